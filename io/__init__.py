@@ -1,0 +1,3 @@
+"""Reading microprobe exports and writing results."""
+
+__all__: list[str] = []

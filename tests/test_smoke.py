@@ -1,0 +1,34 @@
+"""The package layout maps three folders onto one import namespace."""
+
+import subprocess
+import sys
+
+
+def test_subpackages_import_and_stdlib_io_is_not_shadowed(tmp_path):
+    # Run from outside the repository so that only the installed mapping counts.
+    code = (
+        "import io, zoning, zoning.io, zoning.fitting;"
+        "assert hasattr(io, 'StringIO'), io.__file__;"
+        "assert zoning.io.__name__ == 'zoning.io';"
+        "print('ok')"
+    )
+    out = subprocess.run(
+        [sys.executable, "-c", code], cwd=tmp_path, capture_output=True, text=True, check=False
+    )
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.strip() == "ok"
+
+
+def test_demo_data_is_reachable_from_the_installed_package():
+    from zoning.demo_data import DEMO_DIR
+
+    assert DEMO_DIR.is_dir()
+    assert (DEMO_DIR / "__init__.py").exists()
+
+
+def test_command_line_help_runs():
+    out = subprocess.run(
+        [sys.executable, "-m", "zoning", "--help"], capture_output=True, text=True, check=False
+    )
+    assert out.returncode == 0, out.stderr
+    assert "usage: zoning" in out.stdout

@@ -1,0 +1,7 @@
+"""Allow ``python -m zoning``."""
+
+import sys
+
+from zoning.cli import main
+
+sys.exit(main())
