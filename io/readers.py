@@ -1,0 +1,994 @@
+"""Read microprobe exports (CSV/TXT in any common dialect, or .xlsx) into raw tables.
+
+:func:`read_export` turns one instrument export into one or more
+:class:`RawTable` objects: the rows of the file with recognised columns
+renamed to canonical names (:mod:`zoning.io._columns`), numbers parsed, and
+every reader-level problem written next to the row it concerns. Nothing is
+dropped: every data row of the file, summary rows and repeated header lines
+included, appears in :attr:`RawTable.data` with its physical line number, so a
+thesis appendix can account for every spot. Mineral recalculation and quality
+checks happen later, on these tables.
+
+What is understood
+------------------
+* delimiters comma, semicolon and tab; decimal point or decimal comma
+  (``40,81``), and thousands grouping written with the other separator;
+* UTF-8 with or without byte-order mark, UTF-16 with byte-order mark, and
+  Windows-1252/Latin-1 (tried in that order, so a ``µm`` header survives);
+* title and metadata lines above the header: the header is the first line
+  holding at least :data:`MIN_RECOGNISED` recognised column names (or all
+  headers named in ``column_map``); a line of units directly below the header
+  (``wt%``, ``µm`` ...) is read as units;
+* summary rows (average, mean, standard deviation, min, max ...) recognised
+  from the point, label or sample cell or the first cell, kept and flagged;
+* cells ``<0.01``, ``<LOD``, ``bdl``, ``b.d.l.`` (below detection) and
+  ``n.d.``, ``n.a.``, ``--``, ``-``, empty (missing or not determined) read as
+  NaN and counted per column in the notes; negative concentrations
+  (background-corrected) kept and flagged;
+* several traverses in one file: split on an explicit sample/traverse/crystal
+  column, or on blank-line separated blocks that start with a name line.
+
+Units of position columns
+-------------------------
+A unit in the header (``Distance (mm)``, ``X [µm]``, ``distance_mm``) or in a
+units line always wins. A distance column without a unit is read as µm. Stage
+X/Y columns without a unit are read as mm when the larger of the X and Y spans
+in the file is below :data:`STAGE_MM_SPAN_LIMIT` (50), else as µm: stage
+exports give millimetres by default, and a traverse measured in µm spans more
+than 50 µm. The rule used is stated in the notes.
+"""
+
+from __future__ import annotations
+
+import csv
+import os
+import re
+import zipfile
+from collections.abc import Mapping
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from zoning.io import _columns
+from zoning.io._columns import CANONICAL, OXIDES
+
+from zoning.exceptions import ProfileFormatError
+
+__all__ = ["RawTable", "read_export", "MIN_RECOGNISED", "STAGE_MM_SPAN_LIMIT"]
+
+#: A line is the header when it holds at least this many recognised column names.
+MIN_RECOGNISED = 3
+#: Stage X/Y without a unit: read as mm when the larger span is below this value.
+STAGE_MM_SPAN_LIMIT = 50.0
+#: Lines searched for the header.
+_HEADER_SEARCH_LINES = 300
+_DELIMITERS = ("\t", ";", ",")
+_DELIMITER_NAMES = {"\t": "tab", ";": "semicolon ';'", ",": "comma ','"}
+
+_BELOW_DETECTION_RE = (
+    r"^(?:<.*|bdl|b\.d\.l\.?|b\.d\.?|bd|below detection(?: limit)?|lod|l\.o\.d\.?|dl|"
+    r"u\.d\.l\.?|<?\s*mdl)$"
+)
+_MISSING_TOKENS = frozenset(
+    {"n.d.", "n.d", "nd", "--", "-", "---", "—", "–", "n.a.", "n.a", "na", "n/a",
+     "not determined", "not analysed", "not analyzed", "not measured", "nm", "n.m."}
+)
+_NANINF_TOKENS = frozenset(
+    {"nan", "+nan", "-nan", "inf", "+inf", "-inf", "infinity", "+infinity", "-infinity",
+     "#num!", "#div/0!", "1.#inf", "-1.#inf", "1.#qnan", "-1.#ind"}
+)
+_SUMMARY_RE = re.compile(
+    r"^\s*(?P<kind>average|avg\.?|mean|median|std\.?\s*dev\.?|st\.?\s*dev\.?|stdev|"
+    r"standard deviation|s\.d\.|sd|1\s*sigma|2\s*sigma|1σ|2σ|min\.?|minimum|max\.?|maximum|"
+    r"rsd|%\s*rsd|rel\.?\s*sd|range|count|sum)(?:\s*[:(=].*|\s+(?:of|n\s*=).*|\s*)$",
+    re.IGNORECASE,
+)
+_SUMMARY_WORDS = {
+    "avg": "average", "mean": "average", "std dev": "standard deviation",
+    "stdev": "standard deviation", "st dev": "standard deviation",
+    "sd": "standard deviation", "s d": "standard deviation", "min": "minimum",
+    "max": "maximum",
+}
+_COMMA_DECIMAL_RE = r"^[+-]?(?:\d{1,3}(?:\.\d{3})+|\d*),\d+(?:[eE][+-]?\d+)?$"
+_POINT_DECIMAL_RE = r"^[+-]?(?:\d{1,3}(?:,\d{3})+|\d*)\.\d+(?:[eE][+-]?\d+)?$"
+_NUMERIC_CELL_RE = re.compile(r"^[+-]?(?:\d+[.,]?\d*|[.,]\d+)(?:[eE][+-]?\d+)?$")
+
+
+@dataclass(frozen=True, eq=False)
+class RawTable:
+    """One traverse as read from an export, before mineral recalculation.
+
+    Parameters
+    ----------
+    name : str
+        Traverse name: the file stem, or ``"<stem>_<group>"`` when one file
+        holds several traverses.
+    source : str
+        Path of the file, as given.
+    data : pandas.DataFrame
+        One row per data row of the file, in file order (summary rows and
+        repeated header lines included, flagged in ``read_flags``). Columns:
+        ``row`` (int, 1-based line number in the file, or sheet row),
+        ``point`` (str), ``label`` (str), ``distance_um`` and/or ``x_um``,
+        ``y_um`` [µm] when the file has them, the oxides found [wt%],
+        ``total_reported`` [wt%], ``fo_sigma``/``an_sigma`` [mol%, 1-sigma]
+        when present, and ``read_flags`` (str, "; "-joined reasons, "" if
+        none). Numbers are NaN where missing or below detection.
+    column_map : dict of str to str
+        Canonical name → header actually used.
+    notes : tuple of str
+        Plain statements made while reading (encoding, delimiter, decimal
+        separator, header line, units, per-column below-detection and
+        missing counts, ignored columns, how the file was split).
+    """
+
+    name: str
+    source: str
+    data: pd.DataFrame
+    column_map: dict[str, str]
+    notes: tuple[str, ...]
+
+    def __post_init__(self):
+        object.__setattr__(self, "column_map", dict(self.column_map))
+        object.__setattr__(self, "notes", tuple(self.notes))
+
+
+# ---------------------------------------------------------------------------
+# public entry point
+
+
+def read_export(
+    path: str | os.PathLike,
+    *,
+    column_map: Mapping[str, str] | None = None,
+    sheet: str | int | None = None,
+) -> list[RawTable]:
+    r"""Read a microprobe export into one raw table per traverse.
+
+    Parameters
+    ----------
+    path : str or path-like
+        CSV/TXT export (any delimiter, decimal style and common encoding) or
+        ``.xlsx`` workbook.
+    column_map : mapping of str to str, optional
+        Canonical name → header in the file, overriding recognition for files
+        the rules do not understand. Keys: the oxides (``"SiO2"`` ...),
+        ``"point"``, ``"label"``, ``"sample"``, ``"distance_um"``, ``"x_um"``,
+        ``"y_um"``, ``"total"``, ``"fo_sigma"``, ``"an_sigma"``. Position
+        units are still read from the header text.
+    sheet : str or int, optional
+        Worksheet name or 0-based index of an ``.xlsx`` file (default: the
+        first sheet). Ignored for text files.
+
+    Returns
+    -------
+    list of RawTable
+        One table per traverse found in the file, in file order.
+
+    Raises
+    ------
+    ProfileFormatError
+        Empty, binary or undecodable file; no header line; header but no data
+        rows; no oxide columns; duplicated headers; a ``column_map`` key or
+        header that does not exist; an unknown sheet.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> p = pathlib.Path(tempfile.mkdtemp()) / "FRL-07_ol1.csv"
+    >>> _ = p.write_text("Point;SiO2;FeO;MgO\n1;40,81;9,55;49,42\n", encoding="utf-8")
+    >>> t, = read_export(p)
+    >>> float(t.data.loc[0, "MgO"]), t.name
+    (49.42, 'FRL-07_ol1')
+    """
+    source = str(path)
+    p = Path(path)
+    user_map = _check_user_map(column_map, source)
+    if not p.exists():
+        raise ProfileFormatError(
+            f"{source}: file not found; check the path (got {source!r})."
+        )
+    if p.is_dir():
+        raise ProfileFormatError(f"{source}: is a folder, expected an export file.")
+    raw = p.read_bytes()
+    if not raw.strip():
+        raise ProfileFormatError(
+            f"{source}: the file is empty; expected a header line and one row per spot. "
+            "Export the traverse again."
+        )
+    notes: list[str] = []
+    if raw[:4] == b"PK\x03\x04" or p.suffix.lower() in (".xlsx", ".xlsm"):
+        records = _xlsx_records(p, raw, source, sheet, notes)
+        header_pos, delimiter = _find_header(
+            [cells for _, cells in records], source, user_map, delimiter_known=True,
+            line_numbers=[n for n, _ in records],
+        )
+        spans: dict[int, int] = {}
+    else:
+        if p.suffix.lower() in (".xls", ".ods", ".numbers"):
+            raise ProfileFormatError(
+                f"{source}: '{p.suffix}' workbooks are not read; save the sheet as .xlsx "
+                "or as CSV and read that file."
+            )
+        text = _decode(raw, source, notes)
+        lines = re.split(r"\r\n|\r|\n", text)
+        while lines and not lines[-1].strip():
+            lines.pop()
+        header_pos, delimiter = _find_header(
+            lines[:_HEADER_SEARCH_LINES], source, user_map, delimiter_known=False,
+            line_numbers=list(range(1, len(lines) + 1)),
+        )
+        notes.append(f"delimiter: {_DELIMITER_NAMES[delimiter]}")
+        # split from the header on, so that a stray quote in a title line cannot
+        # swallow the header
+        records, spans = _csv_records(lines[header_pos:], delimiter, first_line=header_pos + 1)
+        before = _split_line(lines[header_pos - 1], delimiter) if header_pos > 0 else []
+        return _build_tables(records, 0, spans, p, source, user_map, notes,
+                             header_line=header_pos + 1, line_before=before)
+    before = records[header_pos - 1][1] if header_pos > 0 else []
+    header_line = records[header_pos][0]
+    records = records[header_pos:]
+    return _build_tables(records, 0, spans, p, source, user_map, notes,
+                         header_line=header_line, line_before=before)
+
+
+# ---------------------------------------------------------------------------
+# decoding and splitting
+
+
+def _check_user_map(column_map: Mapping[str, str] | None, source: str) -> dict[str, str]:
+    if column_map is None:
+        return {}
+    if not isinstance(column_map, Mapping):
+        raise ProfileFormatError(
+            f"{source}: column_map must be a mapping of canonical name to header, "
+            f"got {type(column_map).__name__}."
+        )
+    out = {}
+    for key, header in column_map.items():
+        if key not in CANONICAL:
+            raise ProfileFormatError(
+                f"{source}: column_map key {key!r} is not a known column; expected one of "
+                f"{list(CANONICAL)}."
+            )
+        if not isinstance(header, str) or not header.strip():
+            raise ProfileFormatError(
+                f"{source}: column_map[{key!r}] must be a header text of the file, got "
+                f"{header!r}."
+            )
+        out[key] = header.strip()
+    if len(set(out.values())) != len(out):
+        raise ProfileFormatError(
+            f"{source}: column_map maps one header to several columns: {out}; give each "
+            "header once."
+        )
+    return out
+
+
+def _decode(raw: bytes, source: str, notes: list[str]) -> str:
+    if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
+        try:
+            text = raw.decode("utf-16")
+        except UnicodeDecodeError as err:
+            raise ProfileFormatError(
+                f"{source}: starts like UTF-16 text but cannot be decoded ({err}); save the "
+                "export as UTF-8 CSV."
+            ) from err
+        notes.append("encoding: UTF-16")
+        return text.lstrip("\ufeff")
+    if b"\x00" in raw[:65536]:
+        raise ProfileFormatError(
+            f"{source}: looks like a binary file (contains NUL bytes), not a text export; "
+            "export the traverse as CSV or .xlsx."
+        )
+    if raw.startswith(b"\xef\xbb\xbf"):
+        try:
+            text = raw[3:].decode("utf-8")
+            notes.append("encoding: UTF-8 with byte-order mark")
+        except UnicodeDecodeError:
+            text = raw[3:].decode("cp1252", errors="strict") if _cp1252_ok(raw[3:]) else \
+                raw[3:].decode("latin-1")
+            notes.append("encoding: byte-order mark says UTF-8 but the text is not; read "
+                         "as Windows-1252/Latin-1")
+    else:
+        try:
+            text = raw.decode("utf-8")
+            notes.append("encoding: UTF-8")
+        except UnicodeDecodeError:
+            if _cp1252_ok(raw):
+                text = raw.decode("cp1252")
+                notes.append("encoding: not UTF-8; read as Windows-1252 (Latin-1)")
+            else:
+                text = raw.decode("latin-1")
+                notes.append("encoding: not UTF-8; read as Latin-1 (ISO 8859-1)")
+    bad = sum(1 for ch in text[:65536] if (ord(ch) < 32 and ch not in "\t\r\n\x0c")
+              or 0x7F <= ord(ch) < 0xA0)
+    if bad > max(8, 0.01 * min(len(text), 65536)):
+        raise ProfileFormatError(
+            f"{source}: unreadable text ({bad} control characters after decoding as UTF-8, "
+            "Windows-1252 and Latin-1); this is not a text export or uses an unknown "
+            "encoding. Save it as UTF-8 CSV."
+        )
+    return text
+
+
+def _cp1252_ok(raw: bytes) -> bool:
+    try:
+        raw.decode("cp1252")
+    except UnicodeDecodeError:
+        return False
+    return True
+
+
+def _split_line(line: str, delimiter: str) -> list[str]:
+    try:
+        return next(csv.reader([line], delimiter=delimiter))
+    except (StopIteration, csv.Error):
+        return line.split(delimiter)
+
+
+def _csv_records(lines: list[str], delimiter: str, first_line: int):
+    """Split lines into records: [(line number, cells)] and {start line: end line}."""
+    records: list[tuple[int, list[str]]] = []
+    spans: dict[int, int] = {}
+    reader = csv.reader(lines, delimiter=delimiter, strict=False)
+    start = 1
+    off = first_line - 1
+    while True:
+        try:
+            cells = next(reader)
+        except StopIteration:
+            break
+        except csv.Error:
+            # a malformed quote; fall back to a plain split of this line
+            cells = lines[start - 1].split(delimiter)
+        end = reader.line_num
+        if end > start:
+            spans[start + off] = end + off
+        records.append((start + off, cells))
+        start = end + 1
+    return records, spans
+
+
+def _xlsx_records(p: Path, raw: bytes, source: str, sheet, notes: list[str]):
+    try:
+        import openpyxl
+    except ImportError as err:  # pragma: no cover - openpyxl is a dependency
+        raise ProfileFormatError(
+            f"{source}: reading .xlsx needs the 'openpyxl' package; install it or save "
+            "the sheet as CSV."
+        ) from err
+    try:
+        wb = openpyxl.load_workbook(p, read_only=True, data_only=True)
+    except (zipfile.BadZipFile, KeyError, OSError, ValueError, TypeError) as err:
+        raise ProfileFormatError(
+            f"{source}: cannot be opened as an .xlsx workbook ({type(err).__name__}: {err}); "
+            "save it again as .xlsx or CSV."
+        ) from err
+    try:
+        names = wb.sheetnames
+        if sheet is None:
+            ws = wb[names[0]]
+            if len(names) > 1:
+                notes.append(f"sheet: read '{names[0]}', the first of {len(names)} sheets "
+                             f"{names}; pass sheet= to read another")
+            else:
+                notes.append(f"sheet: '{names[0]}'")
+        elif isinstance(sheet, int) and not isinstance(sheet, bool):
+            if not 0 <= sheet < len(names):
+                raise ProfileFormatError(
+                    f"{source}: sheet index {sheet} does not exist; the workbook has "
+                    f"{len(names)} sheets {names} (index from 0)."
+                )
+            ws = wb[names[sheet]]
+            notes.append(f"sheet: '{names[sheet]}'")
+        else:
+            if sheet not in names:
+                raise ProfileFormatError(
+                    f"{source}: sheet {sheet!r} not found; sheets are {names}."
+                )
+            ws = wb[sheet]
+            notes.append(f"sheet: '{sheet}'")
+        records = []
+        for n, values in enumerate(ws.iter_rows(min_row=1, values_only=True), start=1):
+            records.append((n, [_xlsx_cell(v) for v in values]))
+    finally:
+        wb.close()
+    notes.append("read from .xlsx; row numbers are sheet rows")
+    while records and not any(c.strip() for c in records[-1][1]):
+        records.pop()
+    if not records:
+        raise ProfileFormatError(
+            f"{source}: the sheet is empty; expected a header row and one row per spot."
+        )
+    return records
+
+
+def _xlsx_cell(v) -> str:
+    if v is None:
+        return ""
+    if isinstance(v, bool):
+        return str(v)
+    if isinstance(v, float):
+        if np.isfinite(v) and v.is_integer() and abs(v) < 1e15:
+            return str(int(v))
+        return repr(v)
+    return str(v)
+
+
+# ---------------------------------------------------------------------------
+# header
+
+
+def _score(cells: list[str]) -> tuple[int, int]:
+    found = {_columns.recognise(c).canonical for c in cells if c.strip()}
+    found.discard("")
+    return len(found), len(cells)
+
+
+def _find_header(lines_or_cells, source: str, user_map: dict[str, str], *,
+                 delimiter_known: bool, line_numbers: list[int]) -> tuple[int, str]:
+    """Return (index of the header line, delimiter)."""
+    wanted = {h.lower() for h in user_map.values()}
+    best_fallback: tuple[int, int, list[str]] | None = None
+    for i, item in enumerate(lines_or_cells[:_HEADER_SEARCH_LINES]):
+        if delimiter_known:
+            candidates = [("", item)]
+        else:
+            if not item.strip():
+                continue
+            candidates = [(d, _split_line(item, d)) for d in _DELIMITERS if d in item]
+            if not candidates:
+                candidates = [(",", [item])]
+        for _, cells in candidates:
+            stripped = [c.strip() for c in cells]
+            nonempty = sum(1 for c in stripped if c)
+            if best_fallback is None or nonempty > best_fallback[1]:
+                best_fallback = (i, nonempty, stripped)
+        scored = []
+        for d, cells in candidates:
+            stripped = [c.strip() for c in cells]
+            if wanted:
+                present = {c.lower() for c in stripped if c}
+                if wanted <= present:
+                    scored.append((1000, len(cells), d))
+                continue
+            n_rec, n_cells = _score(stripped)
+            if n_rec >= MIN_RECOGNISED:
+                scored.append((n_rec, n_cells, d))
+        if scored:
+            scored.sort(key=lambda t: (t[0], t[1]), reverse=True)
+            return i, scored[0][2]
+    if best_fallback is None:
+        raise ProfileFormatError(f"{source}: the file holds no text lines; nothing to read.")
+    i, _, cells = best_fallback
+    shown = [c for c in cells if c][:30]
+    if wanted:
+        missing = sorted(set(user_map.values()) - {c for c in cells})
+        raise ProfileFormatError(
+            f"{source}: headers {missing} named in column_map not found on any line; the "
+            f"line that looks most like a header (line {line_numbers[i]}) has {shown}. "
+            "Use the header texts exactly as in the file."
+        )
+    raise ProfileFormatError(
+        f"{source}: no header line found (no line in the first {_HEADER_SEARCH_LINES} has "
+        f"{MIN_RECOGNISED} or more recognised column names such as SiO2, MgO, FeO, Point, "
+        f"Distance); the line that looks most like a header (line {line_numbers[i]}) has "
+        f"{shown}. Pass column_map={{'SiO2': '<header>', ...}} to say which column is which."
+    )
+
+
+def _map_columns(header: list[str], source: str, user_map: dict[str, str],
+                 header_line: int):
+    """Return (canonical -> (column index, ColumnMatch), notes)."""
+    stripped = [h.strip().lstrip("\ufeff") for h in header]
+    notes: list[str] = []
+    lower_index: dict[str, list[int]] = {}
+    for j, h in enumerate(stripped):
+        if h:
+            lower_index.setdefault(h.lower(), []).append(j)
+    used: dict[str, tuple[int, _columns.ColumnMatch]] = {}
+    taken: set[int] = set()
+    for key, header_text in user_map.items():
+        idx = lower_index.get(header_text.lower())
+        if not idx:
+            raise ProfileFormatError(
+                f"{source}: column_map[{key!r}] = {header_text!r} is not a header of the "
+                f"file; headers found on line {header_line}: {[h for h in stripped if h]}."
+            )
+        if len(idx) > 1:
+            raise ProfileFormatError(
+                f"{source}: header {header_text!r} appears {len(idx)} times on line "
+                f"{header_line} (columns {[j + 1 for j in idx]}); rename the duplicates so "
+                "each header is unique."
+            )
+        match = _columns.recognise(header_text)
+        if key in OXIDES:
+            scale = match.scale if match.canonical == key else 1.0
+            unit = match.unit if match.canonical == key else ""
+            m = _columns.ColumnMatch(stripped[idx[0]], key, unit, scale, "")
+        elif key in ("distance_um", "x_um", "y_um"):
+            _, unit = _columns.split_unit(_columns.normalise_header(header_text))
+            m = _columns.ColumnMatch(stripped[idx[0]], key, unit,
+                                     _columns.position_scale(unit), "")
+        elif key in ("fo_sigma", "an_sigma"):
+            m = _columns.ColumnMatch(stripped[idx[0]], key, "",
+                                     match.scale if match.canonical == key else 1.0, "")
+        else:
+            m = _columns.ColumnMatch(stripped[idx[0]], key)
+        used[key] = (idx[0], m)
+        taken.add(idx[0])
+        notes.append(f"column '{stripped[idx[0]]}' read as {key} (column_map)")
+    matches = {j: _columns.recognise(h) for j, h in enumerate(stripped) if h and j not in taken}
+    # duplicates among used columns
+    by_canonical: dict[str, list[int]] = {}
+    for j, m in matches.items():
+        if m.canonical:
+            by_canonical.setdefault(m.canonical, []).append(j)
+    dups = {h: idx for h, idx in lower_index.items() if len(idx) > 1}
+    for idx in dups.values():
+        if any(matches.get(j) is not None and matches[j].canonical for j in idx):
+            names = [stripped[j] for j in idx]
+            raise ProfileFormatError(
+                f"{source}: duplicated header {names[0]!r} on line {header_line} (columns "
+                f"{[j + 1 for j in idx]}); rename the duplicates so each header is unique, "
+                "or pick one with column_map."
+            )
+    ignored_other, ignored_elements, ignored_reported = [], [], []
+    for canonical, idx in by_canonical.items():
+        if canonical in used:
+            for j in idx:
+                notes.append(f"column '{stripped[j]}' ignored: {canonical} is taken from "
+                             f"'{used[canonical][1].header}' (column_map)")
+            continue
+        if len(idx) > 1:
+            names = [stripped[j] for j in idx]
+            raise ProfileFormatError(
+                f"{source}: columns {names} on line {header_line} all look like "
+                f"{canonical}; pass column_map={{'{canonical}': '{names[0]}'}} (or the other "
+                "one) to choose."
+            )
+        j = idx[0]
+        used[canonical] = (j, matches[j])
+        if matches[j].note:
+            notes.append(matches[j].note)
+    for m in matches.values():
+        if m.canonical:
+            continue
+        if m.ignored_kind == "element":
+            ignored_elements.append(m.header)
+        elif m.ignored_kind == "reported":
+            ignored_reported.append(m.header)
+        elif m.note:
+            notes.append(m.note)
+        else:
+            ignored_other.append(m.header)
+    if ignored_elements:
+        notes.append(f"element wt% columns ignored (not oxides): {ignored_elements}")
+    if ignored_reported:
+        notes.append(f"columns computed by the instrument ignored (recalculated from the "
+                     f"oxides): {ignored_reported}")
+    if ignored_other:
+        notes.append(f"columns not used: {ignored_other}")
+    if not any(k in OXIDES for k in used):
+        raise ProfileFormatError(
+            f"{source}: no oxide columns recognised on header line {header_line}; headers "
+            f"found: {[h for h in stripped if h]}. Expected oxide wt% columns such as SiO2, "
+            "FeO, MgO, CaO; pass column_map={'MgO': '<header>', ...} to name them."
+        )
+    return used, notes
+
+
+# ---------------------------------------------------------------------------
+# numbers
+
+
+def _parse_numbers(cells: pd.Series, name: str, decimal: str, scale: float,
+                   flag_negative: bool, negative_note: str):
+    """Parse one column of cell texts.
+
+    Returns values (float ndarray), flag messages (object Series, "" where
+    none), counts dict and count of minority-decimal cells.
+    """
+    st = cells.str.strip()
+    low = st.str.lower()
+    empty = (st == "").to_numpy()
+    below = low.str.match(_BELOW_DETECTION_RE).to_numpy() & ~empty
+    missing_tok = low.isin(_MISSING_TOKENS).to_numpy()
+    naninf_tok = low.isin(_NANINF_TOKENS).to_numpy()
+    comma_dec = st.str.match(_COMMA_DECIMAL_RE).to_numpy()
+    point_dec = st.str.match(_POINT_DECIMAL_RE).to_numpy()
+    conv = st
+    if comma_dec.any():
+        sub = st[comma_dec].str.replace(".", "", regex=False).str.replace(",", ".", regex=False)
+        conv = conv.copy()
+        conv[comma_dec] = sub
+    if point_dec.any():
+        sub = st[point_dec].str.replace(",", "", regex=False)
+        conv = conv.copy()
+        conv[point_dec] = sub
+    special = empty | below | missing_tok | naninf_tok
+    values = pd.to_numeric(conv.where(~special, ""), errors="coerce").to_numpy(float, copy=True)
+    values[special] = np.nan
+    nonfinite_num = np.isinf(values)
+    naninf = naninf_tok | nonfinite_num
+    values[nonfinite_num] = np.nan
+    nonnumeric = ~special & ~nonfinite_num & np.isnan(values)
+    values = values * scale
+    minority = int((comma_dec if decimal == "." else point_dec & ~comma_dec).sum())
+    msgs = pd.Series("", index=cells.index, dtype=object)
+    if nonnumeric.any():
+        bad = st[nonnumeric].str.slice(0, 40)
+        msgs[nonnumeric] = "non-numeric value '" + bad + f"' in {name}"
+    if naninf.any():
+        msgs[naninf] = f"NaN/inf in {name}"
+    if flag_negative:
+        neg = values < 0
+        if neg.any():
+            shown = pd.Series(values[neg], index=cells.index[neg]).map(lambda v: f"{v:g}")
+            msgs[neg] = f"negative value in {name} (" + shown + f"{negative_note}) kept"
+    counts = {
+        "below detection": int(below.sum()),
+        "missing/not determined": int((empty | missing_tok).sum()),
+        "non-numeric": int(nonnumeric.sum()),
+        "NaN/inf": int(naninf.sum()),
+    }
+    return values, msgs, counts, minority
+
+
+def _detect_decimal(frame: pd.DataFrame, cols: list[int]) -> str:
+    n_comma = n_point = 0
+    for j in cols:
+        st = frame[j].str.strip()
+        n_comma += int(st.str.match(r"^[+-]?\d*,\d+$").sum())
+        n_point += int(st.str.match(r"^[+-]?\d*\.\d+$").sum())
+    return "," if n_comma > n_point else "."
+
+
+def _join_flags(flags: pd.Series, msgs: pd.Series) -> pd.Series:
+    has = msgs != ""
+    if not has.any():
+        return flags
+    out = flags.copy()
+    both = has & (flags != "")
+    out[both] = flags[both] + "; " + msgs[both]
+    only = has & (flags == "")
+    out[only] = msgs[only]
+    return out
+
+
+# ---------------------------------------------------------------------------
+# assembly
+
+
+def _is_number(text: str) -> bool:
+    return bool(_NUMERIC_CELL_RE.match(text.strip()))
+
+
+def _safe_group(text: str) -> str:
+    s = re.sub(r"[^\w.+-]+", "_", text.strip(), flags=re.UNICODE).strip("._")
+    return s or "unnamed"
+
+
+def _build_tables(records, header_pos, spans, p: Path, source: str, user_map, notes, *,
+                  header_line: int, line_before: list[str]):
+    header_cells = records[header_pos][1]
+    used, col_notes = _map_columns(header_cells, source, user_map, header_line)
+    if header_line > 2:
+        notes.append(f"header on line {header_line}; lines 1-{header_line - 1} above it "
+                     "skipped as title/metadata")
+    elif header_line == 2:
+        notes.append("header on line 2; line 1 above it skipped as title/metadata")
+    else:
+        notes.append("header on line 1")
+    notes.extend(col_notes)
+
+    body = records[header_pos + 1:]
+    if not body:
+        raise ProfileFormatError(
+            f"{source}: header found on line {header_line} but no data rows below it; "
+            "expected one row per analysed spot."
+        )
+    width = max(len(header_cells), max(len(c) for _, c in body))
+    line_no = np.fromiter((n for n, _ in body), dtype=np.int64, count=len(body))
+    lengths = np.fromiter((len(c) for _, c in body), dtype=np.int64, count=len(body))
+    grid = pd.DataFrame([c + [""] * (width - len(c)) for _, c in body], dtype=object)
+    grid = grid.fillna("")
+    stripped = grid.apply(lambda col: col.str.strip())
+    nonempty = stripped.ne("").to_numpy()
+    n_nonempty = nonempty.sum(axis=1)
+    blank = n_nonempty == 0
+
+    # units line directly below the header
+    units_row: dict[int, str] = {}
+    first_nb = int(np.argmax(~blank)) if (~blank).any() else -1
+    if first_nb == 0 and n_nonempty[0] >= 2:
+        cells0 = stripped.iloc[0].tolist()
+        if all(_columns.is_unit_token(c) for c in cells0 if c):
+            units_row = {j: _columns.unit_of_token(c) for j, c in enumerate(cells0) if c}
+            notes.append(f"line {line_no[0]} read as a units line")
+    kind = np.full(len(body), "data", dtype=object)
+    kind[blank] = "blank"
+    if units_row:
+        kind[0] = "units"
+
+    # repeated header lines
+    hdr = [h.strip() for h in header_cells] + [""] * (width - len(header_cells))
+    is_header = (stripped == pd.Series(hdr)).all(axis=1).to_numpy() & ~blank
+
+    # block name lines: after a blank line, one non-numeric cell, followed by a non-blank line
+    prev_blank = np.r_[False, blank[:-1]]
+    next_nonblank = np.r_[~blank[1:], False]
+    name_candidates = np.flatnonzero((n_nonempty == 1) & prev_blank & next_nonblank)
+    block_names: dict[int, str] = {}
+    for i in name_candidates:
+        cell = next(c for c in stripped.iloc[i] if c)
+        if not _is_number(cell) and not _SUMMARY_RE.match(cell):
+            block_names[int(i)] = cell
+            kind[i] = "name"
+    # a header repeated right after a name line is structure, not a row
+    for i in block_names:
+        if i + 1 < len(body) and is_header[i + 1]:
+            kind[i + 1] = "block header"
+    is_data = kind == "data"
+    if not is_data.any():
+        raise ProfileFormatError(
+            f"{source}: header found on line {header_line} but no data rows below it "
+            f"(only blank or structural lines); expected one row per analysed spot."
+        )
+    n_blank = int(blank.sum())
+    if n_blank:
+        notes.append(f"{n_blank} blank line(s) inside the data skipped (not rows)")
+    if block_names:
+        notes.append(
+            "blank-line separated blocks with name lines: "
+            + ", ".join(f"line {line_no[i]} '{v}'" for i, v in block_names.items())
+        )
+
+    idx = np.flatnonzero(is_data)
+    rows = line_no[idx]
+    sub = grid.iloc[idx].reset_index(drop=True)
+    ssub = stripped.iloc[idx].reset_index(drop=True)
+    hdr_rows = is_header[idx]
+    flags = pd.Series("", index=sub.index, dtype=object)
+    if hdr_rows.any():
+        flags[hdr_rows] = "duplicate header row repeated inside the data"
+
+    # rows spanning lines (quoted fields with line breaks) and ragged rows
+    if spans:
+        span_msg = pd.Series(
+            [f"quoted cell spans lines {r}-{spans[r]}" if r in spans else "" for r in rows],
+            dtype=object,
+        )
+        flags = _join_flags(flags, span_msg)
+    used_idx = sorted(j for j, _ in used.values())
+    lens = lengths[idx]
+    n_header = len(header_cells)
+    short = (lens < n_header) & (lens <= max(used_idx)) & ~hdr_rows
+    if short.any():
+        msg = pd.Series("", index=sub.index, dtype=object)
+        msg[short] = pd.Series(lens[short], index=sub.index[short]).map(
+            lambda k: f"row has only {k} of {n_header} fields")
+        flags = _join_flags(flags, msg)
+    if width > n_header:
+        extra = ssub.iloc[:, n_header:].ne("").any(axis=1).to_numpy()
+        if extra.any():
+            msg = pd.Series("", index=sub.index, dtype=object)
+            msg[extra] = f"cells beyond the last of the {n_header} header columns ignored"
+            flags = _join_flags(flags, msg)
+
+    out = pd.DataFrame({"row": rows.astype(np.int64)})
+    if "point" in used:
+        pt = ssub[used["point"][0]]
+        out["point"] = pt.where(pt != "", pd.Series(rows.astype(str)))
+    else:
+        out["point"] = rows.astype(str)
+    out["point"] = out["point"].astype(object)
+    if "label" in used:
+        out["label"] = ssub[used["label"][0]].astype(object)
+    else:
+        out["label"] = pd.Series([""] * len(out), dtype=object)
+
+    # summary rows
+    probe = list(dict.fromkeys([used[k][0] for k in ("point", "label", "sample") if k in used]
+                               + [0]))
+    summary_kind = pd.Series("", index=sub.index, dtype=object)
+    for j in probe:
+        ext = ssub[j].str.extract(_SUMMARY_RE)["kind"].fillna("")
+        summary_kind = summary_kind.where(summary_kind != "", ext)
+    is_summary = (summary_kind != "").to_numpy() & ~hdr_rows
+    if is_summary.any():
+        kinds = summary_kind[is_summary].str.lower().str.replace(r"[.\s]+", " ", regex=True)
+        kinds = kinds.str.strip().map(lambda k: _SUMMARY_WORDS.get(k, k))
+        msg = pd.Series("", index=sub.index, dtype=object)
+        msg[is_summary] = "summary row (" + kinds + ") — not an analysis"
+        flags = _join_flags(flags, msg)
+
+    # numbers
+    numeric_keys = [k for k in OXIDES if k in used]
+    decimal = _detect_decimal(ssub[~hdr_rows], [used[k][0] for k in numeric_keys])
+    notes.append("decimal separator: " + ("comma" if decimal == "," else "point"))
+    minority_total = 0
+    per_col_counts: dict[str, dict[str, np.ndarray]] = {}
+
+    def parse(key: str, out_name: str, flag_negative: bool, scale: float):
+        nonlocal flags, minority_total
+        j = used[key][0]
+        cells = sub[j].where(~pd.Series(hdr_rows), "")
+        values, msgs, counts, minority = _parse_numbers(
+            cells, out_name if key in OXIDES else used[key][1].header, decimal, scale,
+            flag_negative, " wt%, background-corrected" if key in OXIDES else "")
+        minority_total += minority
+        flags = _join_flags(flags, msgs)
+        out[out_name] = values
+        st = cells.str.strip()
+        low = st.str.lower()
+        per_col_counts[out_name] = {
+            "below": (low.str.match(_BELOW_DETECTION_RE) & (st != "")).to_numpy(),
+            "missing": ((st == "") | low.isin(_MISSING_TOKENS)).to_numpy() & ~hdr_rows,
+        }
+        return counts
+
+    # positions
+    for key in ("distance_um", "x_um", "y_um"):
+        if key not in used:
+            continue
+        m = used[key][1]
+        unit = m.unit or units_row.get(used[key][0], "")
+        scale = _columns.position_scale(unit)
+        parse(key, key, False, 1.0 if not np.isfinite(scale) else scale)
+        if np.isfinite(scale):
+            if unit == "mm":
+                notes.append(f"{key[:-3]} from '{m.header}' in mm, converted to µm")
+            else:
+                notes.append(f"{key[:-3]} from '{m.header}' in {unit}")
+            used[key] = (used[key][0], _columns.ColumnMatch(m.header, key, unit, scale))
+        elif key == "distance_um":
+            notes.append(f"distance from '{m.header}': no unit given, assumed µm")
+            used[key] = (used[key][0], _columns.ColumnMatch(m.header, key, "µm", 1.0))
+    stage = [k for k in ("x_um", "y_um") if k in used and not np.isfinite(used[k][1].scale)]
+    if stage:
+        span = max(float(np.nanmax(out[k]) - np.nanmin(out[k])) if np.isfinite(out[k]).any()
+                   else 0.0 for k in stage)
+        if span < STAGE_MM_SPAN_LIMIT:
+            for k in stage:
+                out[k] = out[k] * 1000.0
+            notes.append(
+                f"stage {'/'.join(used[k][1].header for k in stage)}: no unit given; largest "
+                f"span {span:g} < {STAGE_MM_SPAN_LIMIT:g}, so read as mm and converted to µm"
+            )
+        else:
+            notes.append(
+                f"stage {'/'.join(used[k][1].header for k in stage)}: no unit given; largest "
+                f"span {span:g} >= {STAGE_MM_SPAN_LIMIT:g}, so read as µm"
+            )
+    # oxides
+    for key in numeric_keys:
+        m = used[key][1]
+        unit = m.unit or units_row.get(used[key][0], "")
+        scale = m.scale
+        if not m.unit and unit == "ppm":
+            scale = 1e-4
+            notes.append(f"{key}: units line says ppm; converted to wt%")
+        parse(key, key, True, scale)
+    if "total" in used:
+        parse("total", "total_reported", True, 1.0)
+    for key in ("fo_sigma", "an_sigma"):
+        if key in used:
+            parse(key, key, True, used[key][1].scale)
+    if minority_total:
+        other = "comma" if decimal == "." else "point"
+        notes.append(f"{minority_total} cell(s) written with a decimal {other} although the "
+                     f"file uses a decimal {'point' if decimal == '.' else 'comma'}; read "
+                     "with their own separator")
+    out["read_flags"] = flags.astype(object).to_numpy()
+
+    # groups: blocks, then an explicit sample column
+    block_of_body = np.cumsum(kind == "name")
+    block_of_row = block_of_body[idx]
+    block_label = {0: _first_block_name(line_before)}
+    for n, i in enumerate(sorted(block_names), start=1):
+        block_label[n] = block_names[i]
+    split_notes: list[str] = []
+    if "sample" in used:
+        samp, note = _sample_groups(ssub[used["sample"][0]], hdr_rows | is_summary,
+                                    used["sample"][1].header)
+        split_notes.append(note)
+    else:
+        samp = pd.Series([""] * len(out), dtype=object)
+    if block_names:
+        block_text = pd.Series(block_of_row).map(block_label).astype(object)
+        split_notes.append(f"split into {len(set(block_of_row))} blank-line separated "
+                           "blocks by their name lines")
+    else:
+        block_text = pd.Series([""] * len(out), dtype=object)
+    keys = block_text + "\x00" + samp.astype(object)
+    groups = keys.groupby(keys, sort=False).indices
+    column_map_out = {k: m.header for k, (_, m) in used.items()}
+
+    tables = []
+    names_seen: set[str] = set()
+    stem = p.stem
+    for key, positions in groups.items():
+        mask = np.zeros(len(out), dtype=bool)
+        mask[positions] = True
+        parts = [x for x in key.split("\x00", 1) if x]
+        if len(groups) == 1 or not parts:
+            name = stem
+        else:
+            name = stem + "_" + "_".join(_safe_group(x) for x in parts)
+        base, k = name, 2
+        while name in names_seen:
+            name, k = f"{base}_{k}", k + 1
+        names_seen.add(name)
+        data = out[mask].reset_index(drop=True)
+        tnotes = list(notes) + [n for n in split_notes if n]
+        if len(groups) > 1:
+            tnotes.append(f"this traverse: rows of {' / '.join(repr(x) for x in parts)} "
+                          f"({int(mask.sum())} rows)")
+        tnotes.extend(_count_notes(per_col_counts, mask))
+        tables.append(RawTable(name, source, data, column_map_out, tuple(tnotes)))
+    return tables
+
+
+def _sample_groups(values: pd.Series, skip: np.ndarray, header: str) -> tuple[pd.Series, str]:
+    """Group key per row from a sample/traverse/crystal column, and a note.
+
+    Rows whose cell is empty (and summary or repeated-header rows) join the
+    group of the row above. Values are used as they are when each value
+    covers at least two rows; otherwise a trailing spot number is stripped
+    (``FRL-07a_03`` → ``FRL-07a``) and the prefixes are used when each
+    covers at least two rows; otherwise the file is not split.
+    """
+    v = values.where(~pd.Series(skip, index=values.index), "")
+    v = v.replace("", np.nan).ffill().bfill().fillna("").astype(object)
+    n_unique = v[v != ""].nunique()
+    if n_unique == 0:
+        return pd.Series([""] * len(v), dtype=object), \
+            f"sample column '{header}' is empty; file not split"
+    if n_unique == 1:
+        return pd.Series([""] * len(v), dtype=object), \
+            f"sample column '{header}' holds one value {v.iloc[0]!r}; file not split"
+    sizes = v.value_counts()
+    how = "its values"
+    if (sizes < 2).any():
+        prefix = v.str.replace(r"[\s_\-.:/#]*\d+$", "", regex=True)
+        psizes = prefix.value_counts()
+        if 1 < len(psizes) < n_unique and (psizes >= 2).all() and (prefix != "").all():
+            v, sizes, how = prefix.astype(object), psizes, "the value prefixes before a " \
+                "trailing spot number"
+        else:
+            return pd.Series([""] * len(v), dtype=object), (
+                f"sample column '{header}' has {n_unique} different values, some on one row "
+                "only; file not split (pass column_map without 'sample', or fix the column, "
+                "to change this)"
+            )
+    runs = int((v != v.shift()).sum())
+    note = f"split on sample column '{header}' by {how} into {len(sizes)} traverses"
+    if runs != len(sizes):
+        note += (f" (values not contiguous: {runs} runs; the rows of each value are gathered "
+                 "in file order)")
+    return v, note
+
+
+def _first_block_name(line_before: list[str]) -> str:
+    cells = [c.strip() for c in line_before if c.strip()]
+    if len(cells) == 1 and not _is_number(cells[0]):
+        return cells[0]
+    return "1"
+
+
+def _count_notes(per_col_counts, mask) -> list[str]:
+    out = []
+    for name, d in per_col_counts.items():
+        b = int(d["below"][mask].sum())
+        m = int(d["missing"][mask].sum())
+        parts = []
+        if b:
+            parts.append(f"{b} below detection")
+        if m:
+            parts.append(f"{m} missing/not determined")
+        if parts:
+            out.append(f"{name}: " + ", ".join(parts) + " (NaN)")
+    return out
