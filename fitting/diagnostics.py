@@ -1,0 +1,279 @@
+"""Residual and profile diagnostics: runs of same-sign residuals and reversals.
+
+Two things a closed-system crystallization model cannot make are located
+here by distance so that the user can act on them:
+
+* **runs** of residuals of one sign longer than chance allows, which show
+  that the model misses a systematic feature of the profile (wrong Kd,
+  diffusion after growth, an unmodelled process);
+* **reversals** of the measured profile: a zone that goes back towards the
+  core composition (higher Fo or An further out), i.e. recharge or mixing.
+  Every closed-system model of this package makes a profile that evolves
+  monotonically away from the core composition, so such a zone can only be
+  fitted piecewise (``--range A:B``).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+__all__ = [
+    "longest_run_threshold",
+    "residual_runs",
+    "runs_test_z",
+    "reversal_threshold",
+    "find_reversals",
+]
+
+#: Number of consecutive spots averaged before looking for reversals. A
+#: single stray spot cannot make a reversal on its own.
+REVERSAL_WINDOW = 3
+
+#: Minimum rise back towards the core composition, in units of the per-spot
+#: 1-sigma, for a zone to count as a reversal (common practice: ~3 sigma).
+REVERSAL_N_SIGMA = 3.0
+
+
+def _sign_runs(signs: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Start index, length and sign of each run of equal signs."""
+    n = signs.size
+    if n == 0:
+        empty = np.zeros(0, dtype=int)
+        return empty, empty, empty
+    change = np.flatnonzero(np.diff(signs) != 0) + 1
+    starts = np.concatenate(([0], change))
+    ends = np.concatenate((change, [n]))
+    return starts, ends - starts, signs[starts]
+
+
+def longest_run_threshold(n: int, alpha: float = 0.05) -> int:
+    """Shortest run length that chance alone reaches with probability <= alpha [spots].
+
+    For ``n`` independent residuals with random signs (probability 1/2
+    each), the distribution of the longest run of equal signs is computed
+    exactly by recursion over the length of the current run.
+
+    Parameters
+    ----------
+    n : int
+        Number of residuals.
+    alpha : float, optional
+        False-alarm probability (default 0.05, i.e. the 95% level).
+
+    Returns
+    -------
+    int
+        Smallest ``L`` with P(longest run >= L) <= ``alpha``; ``n + 1`` when
+        no run length is that unlikely (very short profiles).
+    """
+    if n <= 0:
+        return 1
+    lengths = np.arange(1, n + 2)
+    # Recursion over the spots for every L at once (rows); column k holds the
+    # probability that the current run has length k + 1 and that no run has
+    # reached length L yet. The loop runs over spots (a recursion).
+    state = np.zeros((lengths.size, n + 1))
+    state[:, 0] = 1.0  # after the first spot the run length is 1 (index 0)
+    valid = np.arange(n + 1)[None, :] < (lengths[:, None] - 1)  # run length k+1 < L
+    state *= valid
+    for _ in range(1, n):
+        new = np.zeros_like(state)
+        new[:, 0] = 0.5 * state.sum(axis=1)  # sign changes: run restarts
+        new[:, 1:] = 0.5 * state[:, :-1]  # sign continues: run grows
+        state = new * valid
+    p_no_run = state.sum(axis=1)  # P(longest run < L)
+    ok = np.flatnonzero(1.0 - p_no_run <= alpha)
+    return int(lengths[ok[0]]) if ok.size else n + 1
+
+
+def runs_test_z(residual: np.ndarray) -> float:
+    """Wald-Wolfowitz runs test statistic of the residual signs.
+
+    Parameters
+    ----------
+    residual : ndarray, shape (n,)
+        Residuals ordered by distance.
+
+    Returns
+    -------
+    float
+        ``(R - E[R]) / sd(R)`` with ``R`` the number of runs; strongly
+        negative values mean too few runs (systematic misfit). NaN when the
+        signs are all equal or fewer than 2 residuals are given.
+
+    References
+    ----------
+    Wald, A. & Wolfowitz, J. (1940) On a test whether two samples are from
+    the same population. Annals of Mathematical Statistics 11, 147-162.
+    """
+    r = np.asarray(residual, dtype=float)
+    r = r[np.isfinite(r) & (r != 0)]
+    n_pos = int((r > 0).sum())
+    n_neg = int((r < 0).sum())
+    n = n_pos + n_neg
+    if n_pos == 0 or n_neg == 0:
+        return float("nan")
+    runs = 1 + int(np.count_nonzero(np.diff(np.sign(r))))
+    mean = 2.0 * n_pos * n_neg / n + 1.0
+    var = 2.0 * n_pos * n_neg * (2.0 * n_pos * n_neg - n) / (n * n * (n - 1.0))
+    if var <= 0:
+        return float("nan")
+    return float((runs - mean) / np.sqrt(var))
+
+
+def residual_runs(
+    distance_um: np.ndarray, residual: np.ndarray, alpha: float = 0.05
+) -> pd.DataFrame:
+    """Find runs of same-sign residuals longer than chance allows at level ``alpha``.
+
+    Parameters
+    ----------
+    distance_um : ndarray, shape (n,)
+        Distance of each spot from the core [µm], increasing.
+    residual : ndarray, shape (n,)
+        Observed minus model of each spot (any unit).
+    alpha : float, optional
+        False-alarm probability for the longest run (default 0.05).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns ``start_um``, ``end_um``, ``sign`` (+1: data above the
+        model, -1: below), ``n_spots``; empty when no run is that long.
+    """
+    d = np.asarray(distance_um, dtype=float)
+    r = np.asarray(residual, dtype=float)
+    keep = np.isfinite(d) & np.isfinite(r)
+    d, r = d[keep], r[keep]
+    columns = ["start_um", "end_um", "sign", "n_spots"]
+    if d.size < 3:
+        return pd.DataFrame(columns=columns)
+    signs = np.where(r >= 0, 1, -1)
+    starts, lengths, run_signs = _sign_runs(signs)
+    limit = longest_run_threshold(d.size, alpha)
+    long = lengths >= limit
+    return pd.DataFrame(
+        {
+            "start_um": d[starts[long]],
+            "end_um": d[starts[long] + lengths[long] - 1],
+            "sign": run_signs[long].astype(int),
+            "n_spots": lengths[long].astype(int),
+        },
+        columns=columns,
+    )
+
+
+def _running_mean(y: np.ndarray, window: int) -> np.ndarray:
+    """Centred running mean; the window shrinks at the ends."""
+    n = y.shape[-1]
+    half = window // 2
+    csum = np.concatenate(
+        (np.zeros(y.shape[:-1] + (1,)), np.cumsum(y, axis=-1)), axis=-1
+    )
+    idx = np.arange(n)
+    lo = np.clip(idx - half, 0, n)
+    hi = np.clip(idx + half + 1, 0, n)
+    return (csum[..., hi] - csum[..., lo]) / (hi - lo)
+
+
+def _max_rise(y: np.ndarray) -> np.ndarray:
+    """Largest rise above the running minimum along the last axis."""
+    return np.max(y - np.minimum.accumulate(y, axis=-1), axis=-1)
+
+
+def reversal_threshold(n: int, sigma: float, *, n_sim: int = 2000, seed: int = 12345) -> float:
+    """Smallest rise that counts as a reversal [same unit as ``sigma``].
+
+    The larger of ``REVERSAL_N_SIGMA * sigma`` and the 99th percentile of the
+    largest rise that pure noise makes on a flat profile of ``n`` spots
+    (after the same running mean), estimated from ``n_sim`` simulated
+    profiles with a fixed seed (so the threshold is reproducible). A flat
+    profile is the worst case: a zoned profile hides noise rises.
+
+    Parameters
+    ----------
+    n : int
+        Number of spots.
+    sigma : float
+        Typical per-spot 1-sigma [mol%].
+    n_sim : int, optional
+        Number of simulated noise profiles.
+    seed : int, optional
+        Seed of the simulation.
+
+    Returns
+    -------
+    float
+        Threshold on the rise of the running mean.
+    """
+    if n < 2 or not np.isfinite(sigma) or sigma <= 0:
+        return float("inf")
+    rng = np.random.default_rng(seed)
+    noise = rng.standard_normal((n_sim, n)) * sigma
+    rises = _max_rise(_running_mean(noise, REVERSAL_WINDOW))
+    return float(max(REVERSAL_N_SIGMA * sigma, np.quantile(rises, 0.99)))
+
+
+def find_reversals(
+    distance_um: np.ndarray, value: np.ndarray, sigma: np.ndarray | float
+) -> pd.DataFrame:
+    """Zones where the measured profile goes back towards the core composition.
+
+    Crystallization lowers Fo and An as the crystal grows, so a reversal is
+    a rise of the profile with distance. The profile is smoothed with a
+    running mean over :data:`REVERSAL_WINDOW` spots; an episode starts at
+    the lowest point so far and is a reversal when the smoothed profile
+    then rises by more than :func:`reversal_threshold`. The episode ends
+    when the profile falls back by more than the threshold (normal zoning
+    resumed) or at a new low.
+
+    Parameters
+    ----------
+    distance_um : ndarray, shape (n,)
+        Distance from the core [µm], increasing.
+    value : ndarray, shape (n,)
+        Measured Fo or An [mol%].
+    sigma : ndarray, shape (n,), or float
+        Per-spot 1-sigma [mol%]; the median is used.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``start_um`` (the low point before the rise), ``end_um`` (the top of
+        the rise), ``amplitude`` (rise of the smoothed profile [mol%]),
+        ``n_spots`` (spots from the low to the top, inclusive); empty when
+        there is none.
+    """
+    d = np.asarray(distance_um, dtype=float)
+    y = np.asarray(value, dtype=float)
+    columns = ["start_um", "end_um", "amplitude", "n_spots"]
+    if d.size < REVERSAL_WINDOW + 1:
+        return pd.DataFrame(columns=columns)
+    s = np.broadcast_to(np.asarray(sigma, dtype=float), y.shape)
+    threshold = reversal_threshold(d.size, float(np.nanmedian(s)))
+    smooth = _running_mean(y, REVERSAL_WINDOW)
+    found = []
+    trough = peak = 0
+    # Sequential scan with a state (trough, peak): a loop over spots is the
+    # natural form here (n is the number of spots of one traverse).
+    for i in range(1, smooth.size):
+        significant = smooth[peak] - smooth[trough] > threshold
+        if significant and (smooth[peak] - smooth[i] > threshold or smooth[i] < smooth[trough]):
+            found.append((trough, peak))
+            trough = peak = i
+        elif smooth[i] < smooth[trough] and not significant:
+            trough = peak = i
+        elif smooth[i] > smooth[peak]:
+            peak = i
+    if smooth[peak] - smooth[trough] > threshold:
+        found.append((trough, peak))
+    return pd.DataFrame(
+        {
+            "start_um": [d[a] for a, _ in found],
+            "end_um": [d[b] for _, b in found],
+            "amplitude": [float(smooth[b] - smooth[a]) for a, b in found],
+            "n_spots": [int(b - a + 1) for a, b in found],
+        },
+        columns=columns,
+    )

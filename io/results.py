@@ -1,0 +1,341 @@
+"""Write fit results: ``summary.csv``, ``<traverse>/fit.json``, ``<traverse>/profile.csv``.
+
+The functions read a :class:`zoning.fitting.FitResult` by attribute (duck
+typing); this module does not import :mod:`zoning.fitting`. Files are
+written through :mod:`zoning.io.writers` (atomic, safe to open in a
+spreadsheet, safe folder names).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import textwrap
+from collections.abc import Iterable, Sequence
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from zoning.io.writers import (
+    standard_metadata,
+    unique_names,
+    write_csv,
+    write_json,
+)
+
+__all__ = [
+    "summary_table",
+    "fit_to_dict",
+    "write_fit_json",
+    "write_profile_csv",
+    "write_fit_outputs",
+    "format_report",
+    "SUMMARY_QUANTITIES",
+    "CAUTIONS",
+]
+
+#: Quantities of the summary table, in column order (the mineral decides
+#: which of the melt ratio / melt oxide pairs are filled).
+SUMMARY_QUANTITIES = (
+    "melt_mg_number",
+    "melt_ca_number",
+    "f_rim",
+    "retention",
+    "kd",
+    "melt_mgo_wt",
+    "melt_cao_wt",
+)
+
+_RATIO = {"olivine": "melt_mg_number", "plagioclase": "melt_ca_number"}
+_OXIDE = {"olivine": "melt_mgo_wt", "plagioclase": "melt_cao_wt"}
+
+#: Plain statement of the model assumptions printed with every report.
+CAUTIONS = (
+    "Assumes each zone grew in surface equilibrium with the melt and that the "
+    "zoning has not changed since; later diffusion smooths zoning, off-centre "
+    "sections distort distances, and every number depends on the chosen Kd and "
+    "reference melt."
+)
+
+_LABELS = {
+    "melt_mg_number": "parent melt Mg#",
+    "melt_ca_number": "parent melt Ca#",
+    "melt_mgo_wt": "parent melt MgO",
+    "melt_cao_wt": "parent melt CaO",
+    "f_rim": "F at the rim",
+    "f_core": "F at the core",
+    "retention": "retention r",
+    "kd": "Kd",
+    "growth_exponent": "growth exponent",
+    "core_offset_um": "core offset",
+    "melt0_ni_ppm": "initial melt Ni",
+    "melt0_sr_ppm": "initial melt Sr",
+    "melt0_mgo_wt": "initial melt MgO (trace)",
+    "temperature_c": "parent temperature",
+}
+
+
+def _quantities(results: Sequence[Any]) -> list[str]:
+    present = set()
+    for r in results:
+        present.update(r.estimates)
+    return [q for q in SUMMARY_QUANTITIES if q in present]
+
+
+def summary_table(results: Iterable[Any]) -> pd.DataFrame:
+    """One row per fitted traverse: best values, 95% bands and verdicts.
+
+    Parameters
+    ----------
+    results : iterable of FitResult
+        Fit results (any mix of minerals).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns ``sample``, ``mineral``, ``n_spots``, ``n_used``; for each
+        quantity of :data:`SUMMARY_QUANTITIES` present in any result:
+        ``<name>`` (best value), ``<name>_lo95``, ``<name>_hi95``,
+        ``<name>_constrained``; then ``reduced_chi_square``,
+        ``preferred_model``, ``warnings`` (``"; "``-joined). Quantities a
+        result does not have are NaN (and empty for ``_constrained``).
+    """
+    results = list(results)
+    quantities = _quantities(results)
+    rows = []
+    for r in results:
+        row: dict[str, Any] = {
+            "sample": r.sample,
+            "mineral": r.mineral,
+            "n_spots": int(r.n_spots),
+            "n_used": int(r.n_used),
+        }
+        for q in quantities:
+            e = r.estimates.get(q)
+            row[q] = float(e.best) if e is not None else math.nan
+            row[f"{q}_lo95"] = float(e.lo95) if e is not None else math.nan
+            row[f"{q}_hi95"] = float(e.hi95) if e is not None else math.nan
+            row[f"{q}_constrained"] = bool(e.constrained) if e is not None else None
+        row["reduced_chi_square"] = float(r.reduced_chi_square)
+        row["preferred_model"] = r.preferred_model
+        row["warnings"] = "; ".join(r.warnings)
+        rows.append(row)
+    columns = ["sample", "mineral", "n_spots", "n_used"]
+    for q in quantities:
+        columns += [q, f"{q}_lo95", f"{q}_hi95", f"{q}_constrained"]
+    columns += ["reduced_chi_square", "preferred_model", "warnings"]
+    return pd.DataFrame(rows, columns=columns)
+
+
+def fit_to_dict(result: Any) -> dict[str, Any]:
+    """Every number of one fit as plain data (the content of ``fit.json``).
+
+    Parameters
+    ----------
+    result : FitResult
+
+    Returns
+    -------
+    dict
+        Sample, source, mineral, estimates, model comparison, chi-square,
+        diagnostics, correlation matrix, reversals, residual runs, warnings,
+        settings, versions and seed. Posterior draws and the spot/curve
+        tables are in ``profile.csv`` and not repeated here.
+    """
+    return {
+        "sample": result.sample,
+        "source": str(result.traverse.source),
+        "mineral": result.mineral,
+        "n_spots": int(result.n_spots),
+        "n_used": int(result.n_used),
+        "estimates": {
+            name: {
+                "unit": e.unit,
+                "best": e.best,
+                "median": e.median,
+                "lo95": e.lo95,
+                "hi95": e.hi95,
+                "lower": e.lower,
+                "upper": e.upper,
+                "constrained": bool(e.constrained),
+                "note": e.note,
+            }
+            for name, e in result.estimates.items()
+        },
+        "chi_square": result.chi_square,
+        "reduced_chi_square": result.reduced_chi_square,
+        "preferred_model": result.preferred_model,
+        "comparison": result.comparison,
+        "parameter_names": list(result.parameter_names),
+        "correlation": np.asarray(result.correlation),
+        "diagnostics": dict(result.diagnostics),
+        "reversals": result.reversals,
+        "residual_runs": result.residual_runs,
+        "warnings": list(result.warnings),
+        "cautions": CAUTIONS,
+        "settings": dict(result.settings),
+        "versions": dict(result.versions),
+        "seed": int(result.seed),
+        "traverse_notes": list(result.traverse.notes),
+    }
+
+
+def write_fit_json(result: Any, path: str | os.PathLike, *, protect=None) -> Path:
+    """Write :func:`fit_to_dict` of one result as JSON (NaN written as null).
+
+    Parameters
+    ----------
+    result : FitResult
+    path : str or path-like
+        Destination file.
+    protect : iterable of path-like, optional
+        Paths never to overwrite (the input files).
+
+    Returns
+    -------
+    pathlib.Path
+    """
+    return write_json(path, fit_to_dict(result), protect=protect)
+
+
+def write_profile_csv(result: Any, path: str | os.PathLike, *, protect=None) -> Path:
+    """Write the per-spot table of one result (model, band, residual, status).
+
+    Parameters
+    ----------
+    result : FitResult
+    path : str or path-like
+        Destination file.
+    protect : iterable of path-like, optional
+        Paths never to overwrite (the input files).
+
+    Returns
+    -------
+    pathlib.Path
+    """
+    meta = standard_metadata(
+        f"fitted profile of {result.sample} ({result.mineral}); observed and model "
+        "Fo/An in mol%, trace oxides in wt%, bands are 95% posterior envelopes",
+        sample=result.sample,
+        seed=result.seed,
+    )
+    return write_csv(result.spots, path, metadata=meta, protect=protect)
+
+
+def write_fit_outputs(
+    results: Iterable[Any], out_dir: str | os.PathLike, *, protect=None
+) -> list[Path]:
+    """Write ``summary.csv`` and, per traverse, ``fit.json`` and ``profile.csv``.
+
+    Parameters
+    ----------
+    results : iterable of FitResult
+        Results to write; each gets a folder named after its traverse
+        (:func:`zoning.io.writers.unique_names`, safe on every system).
+    out_dir : str or path-like
+        Output folder (created if missing).
+    protect : iterable of path-like, optional
+        Paths never to overwrite (the input files of the run).
+
+    Returns
+    -------
+    list of pathlib.Path
+        Every file written, summary first.
+    """
+    results = list(results)
+    out = Path(out_dir)
+    written = [
+        write_csv(
+            summary_table(results),
+            out / "summary.csv",
+            metadata=standard_metadata(
+                "one row per fitted traverse: best values and 95% bands"
+            ),
+            protect=protect,
+        )
+    ]
+    for r, folder in zip(results, unique_names([r.sample for r in results]), strict=True):
+        written.append(write_fit_json(r, out / folder / "fit.json", protect=protect))
+        written.append(write_profile_csv(r, out / folder / "profile.csv", protect=protect))
+    return written
+
+
+def _fmt(value: float, unit: str) -> str:
+    if not np.isfinite(value):
+        return "n/a"
+    a = abs(value)
+    if unit in ("°C", "ppm", "µm") or a >= 100:
+        text = f"{value:.0f}"
+    elif a >= 10:
+        text = f"{value:.1f}"
+    elif a >= 1:
+        text = f"{value:.2f}"
+    else:
+        text = f"{value:.3f}"
+    return text
+
+
+def format_report(result: Any) -> str:
+    """Readable plain-text report of one fit for the terminal.
+
+    Parameters
+    ----------
+    result : FitResult
+
+    Returns
+    -------
+    str
+        Multi-line text: the traverse, each quantity with its best value and
+        95% band (or a plain statement that the data do not constrain it),
+        the model comparison, diagnostics and warnings, and the cautions of
+        the model.
+    """
+    lines = []
+    major = "Fo" if result.mineral == "olivine" else "An"
+    lines.append(
+        f"{result.sample} ({result.mineral}): {result.n_used} of {result.n_spots} spots "
+        f"fitted, reduced chi-square {result.reduced_chi_square:.2f}"
+    )
+    width = max(len(_LABELS.get(n, n)) for n in result.estimates) if result.estimates else 10
+    for name, e in result.estimates.items():
+        label = _LABELS.get(name, name).ljust(width)
+        unit = "" if e.unit in ("1", "") else f" {e.unit}"
+        band = f"[{_fmt(e.lo95, e.unit)}, {_fmt(e.hi95, e.unit)}]"
+        if not e.constrained:
+            text = f"  {label}  NOT CONSTRAINED (95% band {band}{unit})"
+        else:
+            text = f"  {label}  {_fmt(e.best, e.unit)}{unit}  95% band {band}"
+        if e.note:
+            text += f"  - {e.note}"
+        lines.append(text)
+    comp = result.comparison
+    if len(comp):
+        parts = ", ".join(
+            f"{m} BIC {b:.1f}" for m, b in zip(comp["model"], comp["bic"], strict=True)
+        )
+        lines.append(f"  models: {parts}; preferred: {result.preferred_model}")
+    diag = result.diagnostics
+    ess = [v for k, v in diag.items() if k.startswith("ess_")]
+    if ess:
+        lines.append(
+            f"  sampler: {int(diag.get('n_walkers', 0))} walkers x "
+            f"{int(diag.get('n_steps', 0))} steps, lowest effective sample size "
+            f"{min(ess):.0f}; {int(diag.get('n_converged_starts', 0))} of "
+            f"{int(diag.get('n_starts', 0))} starts reached the best fit"
+        )
+    if len(result.reversals):
+        lines.append(f"  reversals in the measured {major} profile:")
+        for row in result.reversals.itertuples(index=False):
+            lines.append(
+                f"    {row.start_um:g}-{row.end_um:g} µm: +{row.amplitude:.1f} mol% {major} "
+                f"over {row.n_spots} spots"
+            )
+    if result.warnings:
+        lines.append("  warnings:")
+        for w in result.warnings:
+            lines.extend(
+                textwrap.wrap(w, width=96, initial_indent="    - ", subsequent_indent="      ")
+            )
+    lines.extend(textwrap.wrap("  note: " + CAUTIONS, width=100, subsequent_indent="    "))
+    return "\n".join(lines) + "\n"

@@ -1,0 +1,187 @@
+"""``zoning fit``: fit crystallization models to every traverse of one export.
+
+Prints a plain report per traverse and writes ``summary.csv`` and, per
+traverse, ``fit.json`` and ``profile.csv`` into the output folder.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+from zoning.exceptions import ZoningError
+
+__all__ = ["add_parser", "run", "parse_melt", "parse_range"]
+
+
+def parse_melt(items: list[str] | None) -> dict[str, float]:
+    """Parse repeated ``OXIDE=WT`` options into a mapping [wt%].
+
+    Parameters
+    ----------
+    items : list of str
+        E.g. ``["FeO=9.5", "MgO=8.1"]``.
+
+    Returns
+    -------
+    dict of str to float
+    """
+    melt: dict[str, float] = {}
+    for item in items or []:
+        name, sep, value = item.partition("=")
+        try:
+            number = float(value)
+        except ValueError:
+            number = float("nan")
+        if not sep or not name.strip() or not (number == number) or number < 0:
+            raise ZoningError(
+                f"--melt expects OXIDE=WT with a non-negative number [wt%]; got {item!r}. "
+                "Give e.g. --melt FeO=9.5."
+            )
+        melt[name.strip()] = number
+    return melt
+
+
+def parse_range(text: str | None) -> tuple[float, float] | None:
+    """Parse ``A:B`` into a distance range [µm].
+
+    Parameters
+    ----------
+    text : str or None
+        E.g. ``"0:120"``.
+
+    Returns
+    -------
+    (float, float) or None
+    """
+    if text is None:
+        return None
+    a, sep, b = text.partition(":")
+    try:
+        lo, hi = float(a), float(b)
+    except ValueError:
+        lo = hi = float("nan")
+    if not sep or not (lo < hi):
+        raise ZoningError(
+            f"--range expects A:B in µm with A < B; got {text!r}. Give e.g. --range 0:120."
+        )
+    return lo, hi
+
+
+def _free(text: str | None) -> tuple[str, ...]:
+    if not text:
+        return ()
+    return tuple(t.strip() for t in text.split(",") if t.strip())
+
+
+def add_parser(subparsers) -> argparse.ArgumentParser:
+    """Register ``zoning fit`` on the sub-command parsers.
+
+    Parameters
+    ----------
+    subparsers : argparse._SubParsersAction
+
+    Returns
+    -------
+    argparse.ArgumentParser
+    """
+    p = subparsers.add_parser(
+        "fit",
+        help="fit parent melt, F and retention with 95%% bands to each traverse",
+        description=(
+            "Fit a crystallization model (retention r between fractional, r = 0, and "
+            "equilibrium, r = 1) to every traverse in FILE and report the parent melt, "
+            "the crystallized fraction at the rim and r with 95%% bands."
+        ),
+    )
+    p.add_argument("file", help="microprobe export (CSV, TXT or XLSX)")
+    p.add_argument("--mineral", choices=("olivine", "plagioclase"),
+                   help="analysed mineral (default: detected from the analyses)")
+    p.add_argument("--melt", action="append", metavar="OXIDE=WT",
+                   help="reference melt analysis [wt%%], repeatable, e.g. --melt FeO=9.5 "
+                        "(olivine) or --melt Na2O=3.1 (plagioclase)")
+    p.add_argument("--kd", type=float, help="mean of the Kd prior (olivine Fe-Mg default "
+                   "0.30; plagioclase KD(Ca-Na))")
+    p.add_argument("--kd-sd", type=float, help="1-sigma of the Kd prior (0 fixes Kd)")
+    p.add_argument("--fe3", type=float, default=0.10, help="melt Fe3+/FeT (default 0.10)")
+    p.add_argument("--geometry", choices=("sphere", "cylinder", "slab"), default="sphere",
+                   help="growth geometry (default sphere)")
+    p.add_argument("--range", dest="distance_range", metavar="A:B",
+                   help="fit only spots between A and B µm from the core")
+    p.add_argument("--radius-um", type=float, help="crystal radius [µm] (default: last spot)")
+    p.add_argument("--sigma", type=float,
+                   help="1-sigma of every Fo/An value [mol%%] (default: from the file, "
+                        "else 0.2 Fo / 0.5 An)")
+    p.add_argument("--robust", action="store_true",
+                   help="soft-L1 loss: down-weight stray spots")
+    p.add_argument("--include-flagged", action="store_true",
+                   help="also fit spots flagged by the checks")
+    p.add_argument("--free", metavar="NAMES",
+                   help="extra free parameters, comma-separated: f_core,growth_exponent,"
+                        "core_offset_um")
+    p.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")
+    p.add_argument("--steps", type=int, default=3000, help="sampler steps (default 3000)")
+    p.add_argument("--out", help="output folder (default: <file name>_fit)")
+    p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    p.set_defaults(run=run)
+    return p
+
+
+def run(args: argparse.Namespace) -> int:
+    """Run ``zoning fit`` with parsed arguments.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+
+    Returns
+    -------
+    int
+        Exit code (0 when every traverse was fitted, 1 when some failed).
+    """
+    from zoning.exceptions import FitError
+    from zoning.fitting import fit_traverse
+    from zoning.io import read_traverses
+    from zoning.io.results import format_report, write_fit_outputs
+
+    source = Path(args.file)
+    melt = parse_melt(args.melt)
+    distance_range = parse_range(args.distance_range)
+    traverses = read_traverses(source, mineral=args.mineral)
+    out_dir = Path(args.out) if args.out else source.with_name(source.stem + "_fit")
+    results = []
+    failed = 0
+    for traverse in traverses:
+        try:
+            result = fit_traverse(
+                traverse,
+                melt=melt,
+                kd=args.kd,
+                kd_sd=args.kd_sd,
+                fe3_fraction=args.fe3,
+                geometry=args.geometry,
+                distance_range=distance_range,
+                radius_um=args.radius_um,
+                free=_free(args.free),
+                sigma=args.sigma,
+                include_flagged=args.include_flagged,
+                robust=args.robust,
+                seed=args.seed,
+                n_walkers=args.walkers,
+                n_steps=args.steps,
+            )
+        except FitError as exc:
+            failed += 1
+            print(f"zoning fit: {traverse.name}: not fitted: {exc}", file=sys.stderr)
+            continue
+        results.append(result)
+        print(format_report(result))
+    if not results:
+        raise ZoningError(
+            f"no traverse of {source} could be fitted (see the messages above); "
+            "check the flagged spots, --range and --melt."
+        )
+    written = write_fit_outputs(results, out_dir, protect=[source])
+    print(f"wrote {len(written)} files to {out_dir}")
+    return 1 if failed else 0
