@@ -224,13 +224,12 @@ def read_export(
         # swallow the header
         records, spans = _csv_records(lines[header_pos:], delimiter, first_line=header_pos + 1)
         before = _split_line(lines[header_pos - 1], delimiter) if header_pos > 0 else []
-        return _build_tables(records, 0, spans, p, source, user_map, notes,
-                             header_line=header_pos + 1, line_before=before)
+        return _build_tables(records, spans, p, source, user_map, notes,
+                             header_line=header_pos + 1, line_before=before, row_word="line")
     before = records[header_pos - 1][1] if header_pos > 0 else []
     header_line = records[header_pos][0]
-    records = records[header_pos:]
-    return _build_tables(records, 0, spans, p, source, user_map, notes,
-                         header_line=header_line, line_before=before)
+    return _build_tables(records[header_pos:], spans, p, source, user_map, notes,
+                         header_line=header_line, line_before=before, row_word="sheet row")
 
 
 # ---------------------------------------------------------------------------
@@ -583,79 +582,99 @@ def _map_columns(header: list[str], source: str, user_map: dict[str, str],
 # ---------------------------------------------------------------------------
 # numbers
 
+_BELOW_RE = re.compile(_BELOW_DETECTION_RE)
+_COMMA_RE = re.compile(_COMMA_DECIMAL_RE)
+_POINT_RE = re.compile(_POINT_DECIMAL_RE)
 
-def _parse_numbers(cells: pd.Series, name: str, decimal: str, scale: float,
-                   flag_negative: bool, negative_note: str):
-    """Parse one column of cell texts.
 
-    Returns values (float ndarray), flag messages (object Series, "" where
-    none), counts dict and count of minority-decimal cells.
+def _classify(cell: str, decimal: str) -> tuple[float, str]:
+    """Slow path for a cell the fast numeric parse did not understand.
+
+    Returns the value (NaN when none) and the kind: "num", "minority" (a
+    number written with the other decimal separator), "below", "missing",
+    "naninf" or "bad".
     """
-    st = cells.str.strip()
-    low = st.str.lower()
-    empty = (st == "").to_numpy()
-    below = low.str.match(_BELOW_DETECTION_RE).to_numpy() & ~empty
-    missing_tok = low.isin(_MISSING_TOKENS).to_numpy()
-    naninf_tok = low.isin(_NANINF_TOKENS).to_numpy()
-    comma_dec = st.str.match(_COMMA_DECIMAL_RE).to_numpy()
-    point_dec = st.str.match(_POINT_DECIMAL_RE).to_numpy()
-    conv = st
-    if comma_dec.any():
-        sub = st[comma_dec].str.replace(".", "", regex=False).str.replace(",", ".", regex=False)
-        conv = conv.copy()
-        conv[comma_dec] = sub
-    if point_dec.any():
-        sub = st[point_dec].str.replace(",", "", regex=False)
-        conv = conv.copy()
-        conv[point_dec] = sub
-    special = empty | below | missing_tok | naninf_tok
-    values = pd.to_numeric(conv.where(~special, ""), errors="coerce").to_numpy(float, copy=True)
-    values[special] = np.nan
-    nonfinite_num = np.isinf(values)
-    naninf = naninf_tok | nonfinite_num
-    values[nonfinite_num] = np.nan
-    nonnumeric = ~special & ~nonfinite_num & np.isnan(values)
+    low = cell.lower()
+    if low in _MISSING_TOKENS:
+        return np.nan, "missing"
+    if _BELOW_RE.match(low):
+        return np.nan, "below"
+    if low in _NANINF_TOKENS:
+        return np.nan, "naninf"
+    if _COMMA_RE.match(cell):
+        return float(cell.replace(".", "").replace(",", ".")), \
+            "num" if decimal == "," else "minority"
+    if _POINT_RE.match(cell):
+        return float(cell.replace(",", "")), "num" if decimal == "." else "minority"
+    return np.nan, "bad"
+
+
+@dataclass
+class _Parsed:
+    values: np.ndarray
+    below: np.ndarray
+    missing: np.ndarray
+    minority: int
+    messages: dict[int, str]
+
+
+def _parse_numbers(cells: np.ndarray, name: str, decimal: str, scale: float,
+                   negative_note: str | None) -> _Parsed:
+    """Parse one column of stripped cell texts (object array).
+
+    A vectorised fast path (``pandas.to_numeric``) handles ordinary numbers;
+    only the cells it cannot read go through :func:`_classify`.
+    ``negative_note`` is None when negative values are legitimate.
+    """
+    n = len(cells)
+    if decimal == ",":
+        conv = np.array([c.replace(",", ".") if "," in c and "." not in c else c
+                         for c in cells], dtype=object)
+        minority_fast = np.fromiter(("." in c for c in cells), dtype=bool, count=n)
+    else:
+        conv = cells
+        minority_fast = None
+    values = pd.to_numeric(pd.Series(conv, dtype=object), errors="coerce").to_numpy(
+        dtype=float, copy=True)
+    empty = cells == ""
+    below = np.zeros(n, dtype=bool)
+    missing = empty.copy()
+    messages: dict[int, str] = {}
+    minority = 0
+    if minority_fast is not None:
+        minority = int((minority_fast & np.isfinite(values)).sum())
+    for i in np.flatnonzero(np.isnan(values) & ~empty):
+        v, kind = _classify(cells[i], decimal)
+        values[i] = v
+        if kind == "below":
+            below[i] = True
+        elif kind == "missing":
+            missing[i] = True
+        elif kind == "naninf":
+            messages[int(i)] = f"NaN/inf in {name}"
+        elif kind == "bad":
+            messages[int(i)] = f"non-numeric value '{cells[i][:40]}' in {name}"
+        elif kind == "minority":
+            minority += 1
+    inf = np.isinf(values)
+    for i in np.flatnonzero(inf):
+        messages[int(i)] = f"NaN/inf in {name}"
+    values[inf] = np.nan
     values = values * scale
-    minority = int((comma_dec if decimal == "." else point_dec & ~comma_dec).sum())
-    msgs = pd.Series("", index=cells.index, dtype=object)
-    if nonnumeric.any():
-        bad = st[nonnumeric].str.slice(0, 40)
-        msgs[nonnumeric] = "non-numeric value '" + bad + f"' in {name}"
-    if naninf.any():
-        msgs[naninf] = f"NaN/inf in {name}"
-    if flag_negative:
-        neg = values < 0
-        if neg.any():
-            shown = pd.Series(values[neg], index=cells.index[neg]).map(lambda v: f"{v:g}")
-            msgs[neg] = f"negative value in {name} (" + shown + f"{negative_note}) kept"
-    counts = {
-        "below detection": int(below.sum()),
-        "missing/not determined": int((empty | missing_tok).sum()),
-        "non-numeric": int(nonnumeric.sum()),
-        "NaN/inf": int(naninf.sum()),
-    }
-    return values, msgs, counts, minority
+    if negative_note is not None:
+        for i in np.flatnonzero(values < 0):
+            messages[int(i)] = f"negative value in {name} ({values[i]:g}{negative_note}) kept"
+    return _Parsed(values, below, missing, minority, messages)
 
 
-def _detect_decimal(frame: pd.DataFrame, cols: list[int]) -> str:
+def _detect_decimal(columns: list[np.ndarray]) -> str:
+    """Return "," when more number-like cells use a decimal comma than a point."""
     n_comma = n_point = 0
-    for j in cols:
-        st = frame[j].str.strip()
-        n_comma += int(st.str.match(r"^[+-]?\d*,\d+$").sum())
-        n_point += int(st.str.match(r"^[+-]?\d*\.\d+$").sum())
+    for col in columns:
+        sample = col[:5000]
+        n_comma += sum(1 for c in sample if "," in c and "." not in c and c[-1:].isdigit())
+        n_point += sum(1 for c in sample if "." in c and "," not in c and c[-1:].isdigit())
     return "," if n_comma > n_point else "."
-
-
-def _join_flags(flags: pd.Series, msgs: pd.Series) -> pd.Series:
-    has = msgs != ""
-    if not has.any():
-        return flags
-    out = flags.copy()
-    both = has & (flags != "")
-    out[both] = flags[both] + "; " + msgs[both]
-    only = has & (flags == "")
-    out[only] = msgs[only]
-    return out
 
 
 # ---------------------------------------------------------------------------
@@ -671,264 +690,259 @@ def _safe_group(text: str) -> str:
     return s or "unnamed"
 
 
-def _build_tables(records, header_pos, spans, p: Path, source: str, user_map, notes, *,
-                  header_line: int, line_before: list[str]):
-    header_cells = records[header_pos][1]
+class _Flags:
+    """Reader flags of each output row, in the order they were raised."""
+
+    def __init__(self, n: int):
+        self.n = n
+        self.by_row: dict[int, list[str]] = {}
+
+    def add(self, i: int, message: str) -> None:
+        self.by_row.setdefault(int(i), []).append(message)
+
+    def add_many(self, rows, message: str) -> None:
+        for i in rows:
+            self.add(i, message)
+
+    def column(self) -> np.ndarray:
+        out = np.full(self.n, "", dtype=object)
+        for i, msgs in self.by_row.items():
+            out[i] = "; ".join(msgs)
+        return out
+
+
+def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
+                  header_line: int, line_before: list[str], row_word: str):
+    header_cells = [c.strip().lstrip("\ufeff") for c in records[0][1]]
     used, col_notes = _map_columns(header_cells, source, user_map, header_line)
     if header_line > 2:
-        notes.append(f"header on line {header_line}; lines 1-{header_line - 1} above it "
-                     "skipped as title/metadata")
+        notes.append(f"header on {row_word} {header_line}; {row_word}s 1-{header_line - 1} "
+                     "above it skipped as title/metadata")
     elif header_line == 2:
-        notes.append("header on line 2; line 1 above it skipped as title/metadata")
+        notes.append(f"header on {row_word} 2; {row_word} 1 above it skipped as "
+                     "title/metadata")
     else:
-        notes.append("header on line 1")
+        notes.append(f"header on {row_word} 1")
     notes.extend(col_notes)
 
-    body = records[header_pos + 1:]
+    body = records[1:]
     if not body:
         raise ProfileFormatError(
-            f"{source}: header found on line {header_line} but no data rows below it; "
+            f"{source}: header found on {row_word} {header_line} but no data rows below it; "
             "expected one row per analysed spot."
         )
-    width = max(len(header_cells), max(len(c) for _, c in body))
+    n_header = len(header_cells)
+    width = max(n_header, max(len(c) for _, c in body))
     line_no = np.fromiter((n for n, _ in body), dtype=np.int64, count=len(body))
     lengths = np.fromiter((len(c) for _, c in body), dtype=np.int64, count=len(body))
-    grid = pd.DataFrame([c + [""] * (width - len(c)) for _, c in body], dtype=object)
-    grid = grid.fillna("")
-    stripped = grid.apply(lambda col: col.str.strip())
-    nonempty = stripped.ne("").to_numpy()
+    pad = [""] * width
+    grid = np.empty((len(body), width), dtype=object)
+    grid[:] = [[c.strip() for c in cells] + pad[len(cells):] for _, cells in body]
+    nonempty = grid != ""
     n_nonempty = nonempty.sum(axis=1)
     blank = n_nonempty == 0
-
-    # units line directly below the header
-    units_row: dict[int, str] = {}
-    first_nb = int(np.argmax(~blank)) if (~blank).any() else -1
-    if first_nb == 0 and n_nonempty[0] >= 2:
-        cells0 = stripped.iloc[0].tolist()
-        if all(_columns.is_unit_token(c) for c in cells0 if c):
-            units_row = {j: _columns.unit_of_token(c) for j, c in enumerate(cells0) if c}
-            notes.append(f"line {line_no[0]} read as a units line")
     kind = np.full(len(body), "data", dtype=object)
     kind[blank] = "blank"
-    if units_row:
+
+    # a units line directly below the header
+    units_row: dict[int, str] = {}
+    if n_nonempty[0] >= 2 and all(_columns.is_unit_token(c) for c in grid[0] if c):
+        units_row = {j: _columns.unit_of_token(c) for j, c in enumerate(grid[0]) if c}
         kind[0] = "units"
+        notes.append(f"{row_word} {line_no[0]} read as a units line")
 
     # repeated header lines
-    hdr = [h.strip() for h in header_cells] + [""] * (width - len(header_cells))
-    is_header = (stripped == pd.Series(hdr)).all(axis=1).to_numpy() & ~blank
+    hdr = np.array(header_cells + pad[n_header:], dtype=object)
+    is_header = (grid == hdr).all(axis=1) & ~blank
 
-    # block name lines: after a blank line, one non-numeric cell, followed by a non-blank line
+    # block name lines: after a blank line, a single non-numeric cell, then a non-blank line
     prev_blank = np.r_[False, blank[:-1]]
     next_nonblank = np.r_[~blank[1:], False]
-    name_candidates = np.flatnonzero((n_nonempty == 1) & prev_blank & next_nonblank)
     block_names: dict[int, str] = {}
-    for i in name_candidates:
-        cell = next(c for c in stripped.iloc[i] if c)
+    for i in np.flatnonzero((n_nonempty == 1) & prev_blank & next_nonblank):
+        cell = next(c for c in grid[i] if c)
         if not _is_number(cell) and not _SUMMARY_RE.match(cell):
             block_names[int(i)] = cell
             kind[i] = "name"
-    # a header repeated right after a name line is structure, not a row
-    for i in block_names:
-        if i + 1 < len(body) and is_header[i + 1]:
-            kind[i + 1] = "block header"
+            if i + 1 < len(body) and is_header[i + 1]:
+                kind[i + 1] = "block header"
     is_data = kind == "data"
     if not is_data.any():
         raise ProfileFormatError(
-            f"{source}: header found on line {header_line} but no data rows below it "
-            f"(only blank or structural lines); expected one row per analysed spot."
+            f"{source}: header found on {row_word} {header_line} but no data rows below it "
+            "(only blank or structural lines); expected one row per analysed spot."
         )
     n_blank = int(blank.sum())
     if n_blank:
-        notes.append(f"{n_blank} blank line(s) inside the data skipped (not rows)")
+        notes.append(f"{n_blank} blank {row_word}(s) inside the data skipped (not spots)")
     if block_names:
         notes.append(
-            "blank-line separated blocks with name lines: "
-            + ", ".join(f"line {line_no[i]} '{v}'" for i, v in block_names.items())
+            "name lines of blank-line separated blocks: "
+            + ", ".join(f"{row_word} {line_no[i]} '{v}'" for i, v in block_names.items())
         )
+    if (kind == "block header").any():
+        notes.append(f"{int((kind == 'block header').sum())} header line(s) repeated at the "
+                     "start of a block skipped")
 
     idx = np.flatnonzero(is_data)
+    n = len(idx)
     rows = line_no[idx]
-    sub = grid.iloc[idx].reset_index(drop=True)
-    ssub = stripped.iloc[idx].reset_index(drop=True)
+    S = grid[idx]
     hdr_rows = is_header[idx]
-    flags = pd.Series("", index=sub.index, dtype=object)
-    if hdr_rows.any():
-        flags[hdr_rows] = "duplicate header row repeated inside the data"
-
-    # rows spanning lines (quoted fields with line breaks) and ragged rows
-    if spans:
-        span_msg = pd.Series(
-            [f"quoted cell spans lines {r}-{spans[r]}" if r in spans else "" for r in rows],
-            dtype=object,
-        )
-        flags = _join_flags(flags, span_msg)
-    used_idx = sorted(j for j, _ in used.values())
+    flags = _Flags(n)
+    flags.add_many(np.flatnonzero(hdr_rows), "duplicate header row repeated inside the data")
+    for i in np.flatnonzero([r in spans for r in rows]) if spans else ():
+        flags.add(i, f"quoted cell spans lines {rows[i]}-{spans[rows[i]]}")
+    max_used = max(j for j, _ in used.values())
     lens = lengths[idx]
-    n_header = len(header_cells)
-    short = (lens < n_header) & (lens <= max(used_idx)) & ~hdr_rows
-    if short.any():
-        msg = pd.Series("", index=sub.index, dtype=object)
-        msg[short] = pd.Series(lens[short], index=sub.index[short]).map(
-            lambda k: f"row has only {k} of {n_header} fields")
-        flags = _join_flags(flags, msg)
+    for i in np.flatnonzero((lens < n_header) & (lens <= max_used) & ~hdr_rows):
+        flags.add(i, f"row has only {lens[i]} of {n_header} fields")
     if width > n_header:
-        extra = ssub.iloc[:, n_header:].ne("").any(axis=1).to_numpy()
-        if extra.any():
-            msg = pd.Series("", index=sub.index, dtype=object)
-            msg[extra] = f"cells beyond the last of the {n_header} header columns ignored"
-            flags = _join_flags(flags, msg)
+        for i in np.flatnonzero((S[:, n_header:] != "").any(axis=1)):
+            flags.add(i, f"cells beyond the last of the {n_header} header columns ignored")
 
-    out = pd.DataFrame({"row": rows.astype(np.int64)})
+    out: dict[str, np.ndarray] = {"row": rows.astype(np.int64)}
+    row_text = rows.astype(str).astype(object)
     if "point" in used:
-        pt = ssub[used["point"][0]]
-        out["point"] = pt.where(pt != "", pd.Series(rows.astype(str)))
+        pt = S[:, used["point"][0]]
+        out["point"] = np.where(pt == "", row_text, pt).astype(object)
     else:
-        out["point"] = rows.astype(str)
-    out["point"] = out["point"].astype(object)
-    if "label" in used:
-        out["label"] = ssub[used["label"][0]].astype(object)
-    else:
-        out["label"] = pd.Series([""] * len(out), dtype=object)
+        out["point"] = row_text
+    out["label"] = (S[:, used["label"][0]].copy() if "label" in used
+                    else np.full(n, "", dtype=object))
 
-    # summary rows
-    probe = list(dict.fromkeys([used[k][0] for k in ("point", "label", "sample") if k in used]
-                               + [0]))
-    summary_kind = pd.Series("", index=sub.index, dtype=object)
+    # summary rows, recognised from the point, label or sample cell or the first cell
+    probe = list(dict.fromkeys(
+        [used[k][0] for k in ("point", "label", "sample") if k in used] + [0]))
+    is_summary = np.zeros(n, dtype=bool)
     for j in probe:
-        ext = ssub[j].str.extract(_SUMMARY_RE)["kind"].fillna("")
-        summary_kind = summary_kind.where(summary_kind != "", ext)
-    is_summary = (summary_kind != "").to_numpy() & ~hdr_rows
-    if is_summary.any():
-        kinds = summary_kind[is_summary].str.lower().str.replace(r"[.\s]+", " ", regex=True)
-        kinds = kinds.str.strip().map(lambda k: _SUMMARY_WORDS.get(k, k))
-        msg = pd.Series("", index=sub.index, dtype=object)
-        msg[is_summary] = "summary row (" + kinds + ") — not an analysis"
-        flags = _join_flags(flags, msg)
+        col = S[:, j]
+        for i in np.flatnonzero(~is_summary & ~hdr_rows):
+            c = col[i]
+            if not c or c[0].isdigit():
+                continue
+            m = _SUMMARY_RE.match(c)
+            if m:
+                k = re.sub(r"[.\s]+", " ", m.group("kind").lower()).strip()
+                flags.add(i, f"summary row ({_SUMMARY_WORDS.get(k, k)}) — not an analysis")
+                is_summary[i] = True
 
     # numbers
-    numeric_keys = [k for k in OXIDES if k in used]
-    decimal = _detect_decimal(ssub[~hdr_rows], [used[k][0] for k in numeric_keys])
+    oxide_keys = [k for k in OXIDES if k in used]
+    clean = ~hdr_rows
+    decimal = _detect_decimal([S[clean, used[k][0]] for k in oxide_keys])
     notes.append("decimal separator: " + ("comma" if decimal == "," else "point"))
     minority_total = 0
-    per_col_counts: dict[str, dict[str, np.ndarray]] = {}
+    counts: dict[str, tuple[np.ndarray, np.ndarray]] = {}
 
-    def parse(key: str, out_name: str, flag_negative: bool, scale: float):
-        nonlocal flags, minority_total
+    def parse(key: str, out_name: str, scale: float, negative_note: str | None):
+        nonlocal minority_total
         j = used[key][0]
-        cells = sub[j].where(~pd.Series(hdr_rows), "")
-        values, msgs, counts, minority = _parse_numbers(
-            cells, out_name if key in OXIDES else used[key][1].header, decimal, scale,
-            flag_negative, " wt%, background-corrected" if key in OXIDES else "")
-        minority_total += minority
-        flags = _join_flags(flags, msgs)
-        out[out_name] = values
-        st = cells.str.strip()
-        low = st.str.lower()
-        per_col_counts[out_name] = {
-            "below": (low.str.match(_BELOW_DETECTION_RE) & (st != "")).to_numpy(),
-            "missing": ((st == "") | low.isin(_MISSING_TOKENS)).to_numpy() & ~hdr_rows,
-        }
-        return counts
+        cells = np.where(hdr_rows, "", S[:, j]).astype(object)
+        label = out_name if key in OXIDES else f"'{used[key][1].header}'"
+        res = _parse_numbers(cells, label, decimal, scale, negative_note)
+        minority_total += res.minority
+        for i, msg in res.messages.items():
+            flags.add(i, msg)
+        out[out_name] = res.values
+        counts[out_name] = (res.below, res.missing & clean)
 
-    # positions
     for key in ("distance_um", "x_um", "y_um"):
         if key not in used:
             continue
         m = used[key][1]
         unit = m.unit or units_row.get(used[key][0], "")
         scale = _columns.position_scale(unit)
-        parse(key, key, False, 1.0 if not np.isfinite(scale) else scale)
+        parse(key, key, scale if np.isfinite(scale) else 1.0, None)
+        what = "distance" if key == "distance_um" else f"stage {key[0].upper()}"
         if np.isfinite(scale):
-            if unit == "mm":
-                notes.append(f"{key[:-3]} from '{m.header}' in mm, converted to µm")
-            else:
-                notes.append(f"{key[:-3]} from '{m.header}' in {unit}")
+            conv = ", converted to µm" if unit != "µm" else ""
+            notes.append(f"{what} from '{m.header}' in {unit}{conv}")
             used[key] = (used[key][0], _columns.ColumnMatch(m.header, key, unit, scale))
         elif key == "distance_um":
-            notes.append(f"distance from '{m.header}': no unit given, assumed µm")
+            notes.append(f"distance from '{m.header}': no unit given, read as µm")
             used[key] = (used[key][0], _columns.ColumnMatch(m.header, key, "µm", 1.0))
     stage = [k for k in ("x_um", "y_um") if k in used and not np.isfinite(used[k][1].scale)]
     if stage:
-        span = max(float(np.nanmax(out[k]) - np.nanmin(out[k])) if np.isfinite(out[k]).any()
-                   else 0.0 for k in stage)
+        spans_xy = [np.nanmax(out[k]) - np.nanmin(out[k]) for k in stage
+                    if np.isfinite(out[k]).any()]
+        span = float(max(spans_xy)) if spans_xy else 0.0
+        heads = "/".join(f"'{used[k][1].header}'" for k in stage)
         if span < STAGE_MM_SPAN_LIMIT:
             for k in stage:
                 out[k] = out[k] * 1000.0
-            notes.append(
-                f"stage {'/'.join(used[k][1].header for k in stage)}: no unit given; largest "
-                f"span {span:g} < {STAGE_MM_SPAN_LIMIT:g}, so read as mm and converted to µm"
-            )
+            notes.append(f"stage {heads}: no unit given; largest span {span:g} < "
+                         f"{STAGE_MM_SPAN_LIMIT:g}, so read as mm and converted to µm")
         else:
-            notes.append(
-                f"stage {'/'.join(used[k][1].header for k in stage)}: no unit given; largest "
-                f"span {span:g} >= {STAGE_MM_SPAN_LIMIT:g}, so read as µm"
-            )
-    # oxides
-    for key in numeric_keys:
+            notes.append(f"stage {heads}: no unit given; largest span {span:g} >= "
+                         f"{STAGE_MM_SPAN_LIMIT:g}, so read as µm")
+    for key in oxide_keys:
         m = used[key][1]
-        unit = m.unit or units_row.get(used[key][0], "")
         scale = m.scale
-        if not m.unit and unit == "ppm":
+        if not m.unit and units_row.get(used[key][0]) == "ppm":
             scale = 1e-4
-            notes.append(f"{key}: units line says ppm; converted to wt%")
-        parse(key, key, True, scale)
+            notes.append(f"{key}: the units line says ppm; converted to wt%")
+        parse(key, key, scale, " wt%, background-corrected")
     if "total" in used:
-        parse("total", "total_reported", True, 1.0)
+        parse("total", "total_reported", 1.0, " wt%")
     for key in ("fo_sigma", "an_sigma"):
         if key in used:
-            parse(key, key, True, used[key][1].scale)
+            parse(key, key, used[key][1].scale, "")
     if minority_total:
-        other = "comma" if decimal == "." else "point"
+        own, other = ("point", "comma") if decimal == "." else ("comma", "point")
         notes.append(f"{minority_total} cell(s) written with a decimal {other} although the "
-                     f"file uses a decimal {'point' if decimal == '.' else 'comma'}; read "
-                     "with their own separator")
-    out["read_flags"] = flags.astype(object).to_numpy()
+                     f"file uses a decimal {own}; read with their own separator")
+    out["read_flags"] = flags.column()
 
-    # groups: blocks, then an explicit sample column
-    block_of_body = np.cumsum(kind == "name")
-    block_of_row = block_of_body[idx]
-    block_label = {0: _first_block_name(line_before)}
-    for n, i in enumerate(sorted(block_names), start=1):
-        block_label[n] = block_names[i]
+    order = ["row", "point", "label", "distance_um", "x_um", "y_um", *OXIDES,
+             "total_reported", "fo_sigma", "an_sigma", "read_flags"]
+    frame = pd.DataFrame({k: out[k] for k in order if k in out})
+    for k in ("point", "label", "read_flags"):
+        frame[k] = frame[k].astype(object)
+
+    # traverses: blank-line blocks with name lines, then an explicit sample column
     split_notes: list[str] = []
-    if "sample" in used:
-        samp, note = _sample_groups(ssub[used["sample"][0]], hdr_rows | is_summary,
-                                    used["sample"][1].header)
-        split_notes.append(note)
-    else:
-        samp = pd.Series([""] * len(out), dtype=object)
+    block_of_row = np.cumsum(kind == "name")[idx]
     if block_names:
-        block_text = pd.Series(block_of_row).map(block_label).astype(object)
-        split_notes.append(f"split into {len(set(block_of_row))} blank-line separated "
-                           "blocks by their name lines")
+        labels = [_first_block_name(line_before)] + [block_names[i] for i in
+                                                     sorted(block_names)]
+        block_text = np.array(labels, dtype=object)[block_of_row]
+        split_notes.append(f"split into {len(set(block_of_row.tolist()))} blank-line "
+                           "separated blocks by their name lines")
     else:
-        block_text = pd.Series([""] * len(out), dtype=object)
-    keys = block_text + "\x00" + samp.astype(object)
+        block_text = np.full(n, "", dtype=object)
+    if "sample" in used:
+        samp, note = _sample_groups(pd.Series(S[:, used["sample"][0]], dtype=object),
+                                    hdr_rows | is_summary, used["sample"][1].header)
+        split_notes.append(note)
+        samp = samp.to_numpy(dtype=object)
+    else:
+        samp = np.full(n, "", dtype=object)
+    keys = pd.Series(block_text + "\x00" + samp, dtype=object)
     groups = keys.groupby(keys, sort=False).indices
     column_map_out = {k: m.header for k, (_, m) in used.items()}
 
     tables = []
     names_seen: set[str] = set()
-    stem = p.stem
     for key, positions in groups.items():
-        mask = np.zeros(len(out), dtype=bool)
+        mask = np.zeros(n, dtype=bool)
         mask[positions] = True
         parts = [x for x in key.split("\x00", 1) if x]
         if len(groups) == 1 or not parts:
-            name = stem
+            name = p.stem
         else:
-            name = stem + "_" + "_".join(_safe_group(x) for x in parts)
+            name = p.stem + "_" + "_".join(_safe_group(x) for x in parts)
         base, k = name, 2
         while name in names_seen:
             name, k = f"{base}_{k}", k + 1
         names_seen.add(name)
-        data = out[mask].reset_index(drop=True)
-        tnotes = list(notes) + [n for n in split_notes if n]
+        tnotes = list(notes) + split_notes
         if len(groups) > 1:
             tnotes.append(f"this traverse: rows of {' / '.join(repr(x) for x in parts)} "
                           f"({int(mask.sum())} rows)")
-        tnotes.extend(_count_notes(per_col_counts, mask))
-        tables.append(RawTable(name, source, data, column_map_out, tuple(tnotes)))
+        tnotes.extend(_count_notes(counts, mask))
+        tables.append(RawTable(name, source, frame[mask].reset_index(drop=True),
+                               column_map_out, tuple(tnotes)))
     return tables
 
 
@@ -944,25 +958,24 @@ def _sample_groups(values: pd.Series, skip: np.ndarray, header: str) -> tuple[pd
     v = values.where(~pd.Series(skip, index=values.index), "")
     v = v.replace("", np.nan).ffill().bfill().fillna("").astype(object)
     n_unique = v[v != ""].nunique()
+    none = pd.Series([""] * len(v), dtype=object)
     if n_unique == 0:
-        return pd.Series([""] * len(v), dtype=object), \
-            f"sample column '{header}' is empty; file not split"
+        return none, f"sample column '{header}' is empty; file not split"
     if n_unique == 1:
-        return pd.Series([""] * len(v), dtype=object), \
-            f"sample column '{header}' holds one value {v.iloc[0]!r}; file not split"
+        return none, f"sample column '{header}' holds one value {v.iloc[0]!r}; file not split"
     sizes = v.value_counts()
     how = "its values"
     if (sizes < 2).any():
-        prefix = v.str.replace(r"[\s_\-.:/#]*\d+$", "", regex=True)
+        prefix = v.str.replace(r"[\s_\-.:/#]*\d+$", "", regex=True).astype(object)
         psizes = prefix.value_counts()
         if 1 < len(psizes) < n_unique and (psizes >= 2).all() and (prefix != "").all():
-            v, sizes, how = prefix.astype(object), psizes, "the value prefixes before a " \
-                "trailing spot number"
+            v, sizes = prefix, psizes
+            how = "the value prefixes before a trailing spot number"
         else:
-            return pd.Series([""] * len(v), dtype=object), (
+            return none, (
                 f"sample column '{header}' has {n_unique} different values, some on one row "
-                "only; file not split (pass column_map without 'sample', or fix the column, "
-                "to change this)"
+                "only; file not split (name the traverse column with column_map, or fix the "
+                "column, to split it)"
             )
     runs = int((v != v.shift()).sum())
     note = f"split on sample column '{header}' by {how} into {len(sizes)} traverses"
@@ -979,11 +992,11 @@ def _first_block_name(line_before: list[str]) -> str:
     return "1"
 
 
-def _count_notes(per_col_counts, mask) -> list[str]:
+def _count_notes(counts, mask) -> list[str]:
     out = []
-    for name, d in per_col_counts.items():
-        b = int(d["below"][mask].sum())
-        m = int(d["missing"][mask].sum())
+    for name, (below, missing) in counts.items():
+        b = int(below[mask].sum())
+        m = int(missing[mask].sum())
         parts = []
         if b:
             parts.append(f"{b} below detection")

@@ -1,0 +1,53 @@
+"""Time :func:`zoning.io.readers.read_export` on large invented exports.
+
+Writes 100,000-row exports (semicolon + decimal comma, and comma + decimal
+point with below-detection cells and junk) to a temporary folder and prints
+the wall time of reading each. Run: ``python benchmarks/read.py``.
+"""
+
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+from zoning.io.readers import read_export
+
+OXIDES = ("SiO2", "TiO2", "Al2O3", "FeO", "MnO", "MgO", "NiO", "CaO", "Na2O", "K2O")
+
+
+def make_file(path: Path, n: int, sep: str, decimal: str, rng: np.random.Generator) -> None:
+    values = rng.uniform(0.0, 50.0, size=(n, len(OXIDES))).round(3)
+    cells = values.astype(str).astype(object)
+    junk = rng.random(cells.shape)
+    cells[junk < 0.01] = "<0.01"
+    cells[(junk >= 0.01) & (junk < 0.015)] = "n.d."
+    cells[(junk >= 0.015) & (junk < 0.016)] = "abc"
+    if decimal == ",":
+        cells = np.char.replace(cells.astype(str), ".", ",").astype(object)
+    header = sep.join(["Point", "Comment", "X (mm)", "Y (mm)", *OXIDES, "Total"])
+    lines = ["Invented benchmark export, FRL-99", header]
+    x = np.round(np.linspace(10.0, 10.5, n), 5).astype(str)
+    body = [
+        sep.join([str(i + 1), f"spot {i + 1}", x[i], x[i], *cells[i], "100"])
+        for i in range(n)
+    ]
+    path.write_text("\n".join(lines + body) + "\n", encoding="utf-8")
+
+
+def main() -> None:
+    rng = np.random.default_rng(20261202)
+    n = 100_000
+    with tempfile.TemporaryDirectory() as tmp:
+        for sep, decimal, name in ((";", ",", "semicolon_comma.csv"), (",", ".", "comma.csv")):
+            path = Path(tmp) / name
+            make_file(path, n, sep, decimal, rng)
+            t0 = time.perf_counter()
+            tables = read_export(path)
+            dt = time.perf_counter() - t0
+            rows = sum(len(t.data) for t in tables)
+            print(f"{name}: {rows} rows, {path.stat().st_size / 1e6:.1f} MB read in {dt:.2f} s")
+
+
+if __name__ == "__main__":
+    main()
