@@ -153,6 +153,15 @@ def _as_sigma(key: str, value: Any) -> float | dict[str, float]:
     return _as_float(key, value)
 
 
+def _as_names(key: str, value: Any) -> tuple[str, ...]:
+    """Accept "a,b" (as on the command line) or a list of names."""
+    if isinstance(value, str):
+        return tuple(v.strip() for v in value.split(",") if v.strip())
+    if isinstance(value, (list, tuple)) and all(isinstance(v, str) for v in value):
+        return tuple(value)
+    raise TypeError('a list of names, e.g. ["f_core", "growth_exponent"]')
+
+
 def _as_table(key: str, value: Any) -> dict[str, Any]:
     if not isinstance(value, Mapping):
         raise TypeError("a table, e.g. { SiO2 = \"Si wt%\" }")
@@ -172,6 +181,7 @@ FIT_OPTIONS: dict[str, tuple[str, Callable[[str, Any], Any]]] = {
     "sigma": ("sigma", _as_sigma),
     "robust": ("robust", _as_bool),
     "include_flagged": ("include_flagged", _as_bool),
+    "free": ("free", _as_names),
     "seed": ("seed", _as_int),
     "walkers": ("n_walkers", _as_int),
     "steps": ("n_steps", _as_int),
@@ -639,8 +649,8 @@ def run_sample(
 
     The sample folder ``out_dir/<safe name>/`` is built in a temporary
     folder and moved into place at the end, so it is either complete or
-    absent. It holds the fit outputs of :func:`zoning.io.results.write_fit_outputs`,
-    the figures (PNG and PDF), ``report.pdf`` and ``fingerprint.json``.
+    absent. It holds ``fit.json`` and ``profile.csv`` (as written by ``zoning
+    fit``), the figures (PNG and PDF), ``report.pdf`` and ``fingerprint.json``.
 
     Parameters
     ----------
@@ -710,14 +720,15 @@ def _error_text(exc: BaseException) -> str:
 
 def _fit_and_write(job: SampleJob, tmp: Path):
     from zoning.fitting import fit_traverse
-    from zoning.io.results import summary_table, write_fit_outputs
+    from zoning.io.results import summary_table, write_fit_json, write_profile_csv
 
     if tmp.exists():
         shutil.rmtree(tmp)
     tmp.mkdir(parents=True)
     traverse = _select_traverse(job)
     result = fit_traverse(traverse, **job.fit_options)
-    write_fit_outputs([result], tmp)
+    write_fit_json(result, tmp / "fit.json")
+    write_profile_csv(result, tmp / "profile.csv")
     if job.figures or job.report:
         from zoning.io import figures
 
@@ -913,8 +924,13 @@ def run_batch(
 
     n_workers = workers if workers is not None else (os.cpu_count() or 1)
     if todo and executor is None and (n_workers <= 1 or len(todo) == 1):
-        for job, fp in todo:
-            record(run_sample(job, out, fp, folders[job.name].name))
+        try:
+            for job, fp in todo:
+                record(run_sample(job, out, fp, folders[job.name].name))
+        except KeyboardInterrupt:
+            _clean_partials(out)
+            _write_summary(project, out, outcomes, inputs)
+            raise
     elif todo:
         own = executor is None
         pool = executor or cf.ProcessPoolExecutor(

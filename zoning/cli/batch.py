@@ -1,0 +1,170 @@
+"""``zoning batch``: fit every sample of a project file, or every export in a folder.
+
+``zoning batch PROJECT.toml [--out DIR] [--workers N] [--cluster ADDRESS]``
+fits the samples listed in a TOML project file (see :mod:`zoning.workflow`);
+``zoning batch FOLDER --mineral olivine --melt FeO=9.5`` fits every export in
+a folder with the settings given on the command line. Fit options given on
+the command line replace those of the project's ``[defaults]`` (sample tables
+still override them).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+from zoning.exceptions import ZoningError
+
+__all__ = ["add_parser", "run", "options_from_args"]
+
+
+def add_parser(subparsers) -> argparse.ArgumentParser:
+    """Register ``zoning batch`` on the sub-command parsers.
+
+    Parameters
+    ----------
+    subparsers : argparse._SubParsersAction
+
+    Returns
+    -------
+    argparse.ArgumentParser
+    """
+    p = subparsers.add_parser(
+        "batch",
+        help="fit every sample of a project file (TOML) or every export in a folder",
+        description=(
+            "Fit every sample of a project file, or every export in a folder, in parallel. "
+            "Writes summary.csv (and summary.xlsx), an overview figure and one folder per "
+            "sample with fit.json, profile.csv, figures and report.pdf. Samples whose input "
+            "file and settings are unchanged since the last run are not refitted."
+        ),
+    )
+    p.add_argument("path", help="project file (.toml) or folder of exports")
+    p.add_argument("--out", help="output folder (default: 'results' beside the project file, "
+                                 "or inside the folder)")
+    p.add_argument("--workers", type=int, help="worker processes (default: number of cores)")
+    p.add_argument("--cluster", metavar="ADDRESS",
+                   help="send the work to a Dask distributed scheduler, e.g. "
+                        "tcp://10.0.0.5:8786 (needs the 'dask' extra)")
+    p.add_argument("--force", action="store_true", help="refit every sample")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    g = p.add_argument_group("fit options (as for zoning fit; replace the project defaults)")
+    g.add_argument("--mineral", choices=("olivine", "plagioclase"))
+    g.add_argument("--melt", action="append", metavar="OXIDE=WT",
+                   help="reference melt analysis [wt%%], repeatable")
+    g.add_argument("--kd", type=float)
+    g.add_argument("--kd-sd", type=float)
+    g.add_argument("--fe3", type=float)
+    g.add_argument("--geometry", choices=("sphere", "cylinder", "slab"))
+    g.add_argument("--range", metavar="A:B")
+    g.add_argument("--radius-um", type=float)
+    g.add_argument("--sigma", type=float)
+    g.add_argument("--robust", action="store_true", default=None)
+    g.add_argument("--include-flagged", action="store_true", default=None)
+    g.add_argument("--free", metavar="NAMES")
+    g.add_argument("--walkers", type=int)
+    g.add_argument("--steps", type=int)
+    g.add_argument("--seed", type=int)
+    p.set_defaults(run=run)
+    return p
+
+
+_FIT_ARGS = ("mineral", "kd", "kd_sd", "fe3", "geometry", "range", "radius_um", "sigma",
+             "robust", "include_flagged", "free", "walkers", "steps", "seed")
+
+
+def options_from_args(args: argparse.Namespace) -> dict:
+    """Project-file options given on the command line.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+
+    Returns
+    -------
+    dict
+        Only the options actually given, with project-file names.
+    """
+    from zoning.cli.fit import parse_melt
+
+    opts = {k: getattr(args, k) for k in _FIT_ARGS if getattr(args, k, None) is not None}
+    if args.melt:
+        opts["melt"] = parse_melt(args.melt)
+    return opts
+
+
+def _cluster_executor(address: str):
+    try:
+        from distributed import Client
+    except ImportError:
+        raise ZoningError(
+            "--cluster needs the Dask 'distributed' package, which is not installed. "
+            "Install it with: pip install 'zoning[dask]'."
+        ) from None
+    try:
+        client = Client(address, timeout="20s")
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise ZoningError(
+            f"cannot connect to the Dask scheduler at {address!r} ({exc}). Check the address "
+            "(e.g. tcp://host:8786) and that the scheduler is running."
+        ) from None
+    return client, client.get_executor()
+
+
+def run(args: argparse.Namespace) -> int:
+    """Run ``zoning batch`` with parsed arguments.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+
+    Returns
+    -------
+    int
+        0 when every sample was fitted (or unchanged), 1 when some failed,
+        130 on Ctrl-C (raised as KeyboardInterrupt to the entry point).
+    """
+    from zoning.workflow import project_from_folder, read_project, run_batch
+
+    path = Path(args.path)
+    opts = options_from_args(args)
+    if path.is_dir():
+        if "melt" not in opts:
+            raise ZoningError(
+                f"{str(path)!r} is a folder: give the reference melt for all its exports, "
+                "e.g. zoning batch FOLDER --mineral olivine --melt FeO=9.5 (or use a "
+                "project file for per-sample settings)."
+            )
+        project = project_from_folder(path, opts)
+        default_out = path / "results"
+    elif path.is_file():
+        project = read_project(path, overrides=opts)
+        default_out = path.resolve().parent / "results"
+    else:
+        raise ZoningError(
+            f"{str(path)!r} not found. Give a project file (.toml) or a folder of exports."
+        )
+    if args.workers is not None and args.workers < 1:
+        raise ZoningError(f"--workers must be 1 or more; got {args.workers}.")
+    out = Path(args.out) if args.out else default_out
+    client = executor = None
+    if args.cluster:
+        client, executor = _cluster_executor(args.cluster)
+    try:
+        result = run_batch(project, out, executor=executor, workers=args.workers,
+                           progress=not args.quiet, force=args.force)
+    finally:
+        if client is not None:
+            client.close()
+    print(
+        f"zoning batch: {len(result.outcomes)} samples: {result.n_fitted} fitted, "
+        f"{result.n_unchanged} unchanged (not refitted), {result.n_failed} failed "
+        f"in {result.seconds:.1f} s"
+    )
+    for o in result.outcomes:
+        if o.status == "failed":
+            print(f"  failed: {o.name}: {o.error}", file=sys.stderr)
+    print(f"summary: {Path(result.out_dir) / 'summary.csv'}")
+    print(f"reports: {Path(result.out_dir)}/<sample>/report.pdf")
+    return 1 if result.n_failed else 0
