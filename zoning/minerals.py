@@ -466,7 +466,9 @@ def _duplicate_positions(spots: pd.DataFrame, limit_um: float) -> np.ndarray:
     # Only spots with a neighbour inside the window need a closer look.
     for k in np.flatnonzero(hi - lo > 1):
         i = order[k]
-        cands = order[lo[k]:hi[k]]
+        # Cap the comparison to the nearest 64 spots on each side in sorted
+        # order, so that a file with all spots at one position stays fast.
+        cands = order[max(lo[k], k - 64):min(hi[k], k + 65)]
         cands = cands[cands < i]  # earlier spots in input order
         if cands.size == 0:
             continue

@@ -409,11 +409,10 @@ def _decide(ps, vs, pmin, pmax, record) -> tuple[str, float, str]:
             if rms < 0.5 * abs(amplitude):
                 kind = "higher" if high else "lower"
                 return ("rim-to-rim", core,
-                        f"both ends of the {record} profile are {kind} in the interior than at "
-                        f"the ends ({e_a:.1f} and {e_b:.1f} at the ends, "
-                        f"{m_max if high else m_min:.1f} inside): rim-to-rim; core at "
-                        f"{core:.4g} µm, the centre of symmetry of the profile "
-                        f"(mirror mismatch {rms:.2g} mol%)")
+                        f"the interior of the {record} profile is {kind} than both ends "
+                        f"({m_max if high else m_min:.1f} inside, {e_a:.1f} and {e_b:.1f} at "
+                        f"the ends); core at {core:.4g} µm, the centre of symmetry of the "
+                        f"profile (mirror mismatch {rms:.2g} mol%)")
     slope_a, change_a = _end_slope(ps, s, True, length)
     slope_b, change_b = _end_slope(ps, s, False, length)
     if abs(e_a - e_b) <= delta and max(change_a, change_b) <= delta:

@@ -1,0 +1,232 @@
+"""``zoning inspect``: read one export, check every spot and show the result.
+
+Prints a short summary per traverse (spots read and flagged by reason,
+mineral, orientation and its basis, Fo/An range, values below detection)
+and writes, per traverse, ``<out>/<traverse>/points.csv`` with every input
+row in input order and ``<out>/<traverse>/notes.txt`` with every statement
+made while reading.
+"""
+
+from __future__ import annotations
+
+import argparse
+import re
+import sys
+from collections import Counter
+from pathlib import Path
+
+from zoning.exceptions import ZoningError
+
+__all__ = ["add_parser", "run", "parse_pairs", "reason_kind", "DEFAULT_OUT_SUFFIX"]
+
+#: The default output folder is ``<file stem><DEFAULT_OUT_SUFFIX>`` in the current folder.
+DEFAULT_OUT_SUFFIX = "_inspect"
+
+_KINDS = (
+    (re.compile(r"^total .* wt% outside (.*)$"), r"total outside \1 wt%"),
+    (re.compile(r"^cation sum \S+ per (\d+) O outside (.*)$"), r"cation sum outside \2 per \1 O"),
+    (re.compile(r"^negative (\S+) \(.*\)$"), r"negative \1"),
+    (re.compile(r"^same position as row .*$"), "duplicate position"),
+    (re.compile(r"^\S+ µm off the traverse line \(limit (.*)\)$"),
+     r"off the traverse line (> \1)"),
+    (re.compile(r"^(\S+) \S+ wt% > (\S+) \((.*)\)$"), r"\1 > \2 wt% (\3)"),
+)
+_NUMBER = re.compile(r"(?<![A-Za-z\d.])-?\d+(?:\.\d+)?(?:[eE][+-]?\d+)?")
+
+
+def reason_kind(reason: str) -> str:
+    """Return the kind of one flagging reason, without spot-specific numbers.
+
+    Parameters
+    ----------
+    reason : str
+        One reason, e.g. ``"total 97.21 wt% outside 98.5-101.5"``.
+
+    Returns
+    -------
+    str
+        E.g. ``"total outside 98.5-101.5 wt%"``; numbers in unknown reasons
+        are replaced by ``#``.
+    """
+    reason = reason.strip()
+    for pattern, repl in _KINDS:
+        if pattern.match(reason):
+            return pattern.sub(repl, reason)
+    return _NUMBER.sub("#", reason)
+
+
+def parse_pairs(items: list[str] | None, option: str, example: str) -> dict[str, str]:
+    """Parse repeated ``KEY=VALUE`` options into a dict.
+
+    Parameters
+    ----------
+    items : list of str
+        Values as given on the command line.
+    option : str
+        Option name, for the message (e.g. ``"--column-map"``).
+    example : str
+        An example value, for the message.
+
+    Returns
+    -------
+    dict of str to str
+
+    Raises
+    ------
+    ZoningError
+        When an item has no ``=`` or an empty key.
+    """
+    out: dict[str, str] = {}
+    for item in items or []:
+        key, sep, value = item.partition("=")
+        if not sep or not key.strip() or not value.strip():
+            raise ZoningError(
+                f"{option} expects KEY=VALUE; got {item!r}. Give e.g. {option} {example}."
+            )
+        out[key.strip()] = value.strip()
+    return out
+
+
+def add_parser(subparsers) -> argparse.ArgumentParser:
+    """Register ``zoning inspect`` on the sub-command parsers.
+
+    Parameters
+    ----------
+    subparsers : argparse._SubParsersAction
+
+    Returns
+    -------
+    argparse.ArgumentParser
+    """
+    p = subparsers.add_parser(
+        "inspect",
+        help="read an export, check every spot and write the checked spot table",
+        description=(
+            "Read one microprobe export (CSV, TXT or XLSX), recalculate every spot (Fo for "
+            "olivine, An/Ab/Or for plagioclase), check it (total, cation sum, contamination, "
+            "duplicate position, distance from the traverse line), find the core and write "
+            "OUT/<traverse>/points.csv with every input row, in input order, with its status "
+            "and the reason for any flag."
+        ),
+    )
+    p.add_argument("file", help="microprobe export (CSV, TXT or XLSX)")
+    p.add_argument("--mineral", choices=("olivine", "plagioclase"),
+                   help="analysed mineral (default: detected from the oxides)")
+    p.add_argument("--out", metavar="DIR",
+                   help=f"output folder (default: <file name>{DEFAULT_OUT_SUFFIX} in the "
+                        "current folder)")
+    p.add_argument("--column-map", action="append", metavar="CANON=HEADER",
+                   help="use the file column HEADER for the quantity CANON, repeatable, e.g. "
+                        "--column-map FeO='FeO tot' --column-map distance_um=Dist. CANON is "
+                        "an oxide (SiO2, FeO, ...), point, label, sample, distance_um, x_um, "
+                        "y_um, total, fo_sigma or an_sigma")
+    p.add_argument("--orientation", choices=("core-to-rim", "rim-to-core", "rim-to-rim"),
+                   help="orientation along increasing position (default: decided from the "
+                        "profile; the basis is printed)")
+    p.add_argument("--core-um", type=float, metavar="X",
+                   help="position of the core along the traverse [µm] (default: found from "
+                        "the profile)")
+    p.add_argument("--sheet", help="worksheet of an .xlsx file (name or 0-based number; "
+                                   "default: the first)")
+    p.add_argument("--iron", choices=("FeO", "reported", "charge-balance"), default="FeO",
+                   help="iron in the structural formula: all as FeO (default), Fe2O3 as "
+                        "reported, or Fe3+ by charge balance (Droop 1987)")
+    p.add_argument("--check", action="append", metavar="NAME=VALUE",
+                   help="change a quality-check threshold, repeatable, e.g. --check "
+                        "total_min_wt=98 (names as in zoning.minerals.QualitySettings)")
+    p.set_defaults(run=run)
+    return p
+
+
+def _sheet(value: str | None):
+    if value is None:
+        return None
+    return int(value) if value.strip().isdigit() else value
+
+
+def _summary(traverse, written: Path) -> str:
+    s = traverse.spots
+    record = "Fo" if traverse.mineral == "olivine" else "An"
+    major = traverse.major
+    n = len(s)
+    flagged = s[s["status"] != "ok"]
+    lines = [f"{traverse.name}  ({traverse.mineral})", f"  file: {traverse.source}"]
+    lines.append(f"  spots read: {n}; ok: {n - len(flagged)}; flagged: {len(flagged)}")
+    if len(flagged):
+        kinds: Counter[str] = Counter()
+        for reason in flagged["reason"]:
+            for piece in {reason_kind(r) for r in str(reason).split("; ") if r.strip()}:
+                kinds[piece] += 1
+        lines.append("  flagged by reason (a spot can have several):")
+        for kind, count in sorted(kinds.items(), key=lambda kv: (-kv[1], kv[0])):
+            lines.append(f"    {count:5d}  {kind}")
+    for note in traverse.notes:
+        if note.startswith(("mineral ", "orientation: ", "cannot be fitted")):
+            lines.append(f"  {note}")
+    lines.append(f"  core at {traverse.core_position_um:.4g} µm along the traverse")
+    ok = s[s["status"] == "ok"]
+    vals = ok[major].dropna()
+    if len(vals):
+        d = ok["distance_um"].dropna()
+        extent = f", {d.min():.1f}-{d.max():.1f} µm from the core" if len(d) else ""
+        lines.append(f"  {record} (ok spots): {vals.min():.2f}-{vals.max():.2f} mol%{extent}")
+    else:
+        lines.append(f"  {record}: no usable value")
+    detection = [nt for nt in traverse.notes
+                 if "below detection" in nt or "missing" in nt or "not determined" in nt]
+    if detection:
+        lines.append("  below detection / missing:")
+        lines.extend(f"    {nt}" for nt in detection)
+    lines.append(f"  written: {written}")
+    return "\n".join(lines)
+
+
+def run(args: argparse.Namespace) -> int:
+    """Run ``zoning inspect`` with parsed arguments.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+
+    Returns
+    -------
+    int
+        0 on success (flagged spots included); unusable input raises
+        :class:`~zoning.exceptions.ZoningError` (exit code 2 from the entry point).
+    """
+    from zoning.io.traverses import read_traverses
+    from zoning.io.writers import standard_metadata, unique_names, write_csv, write_text
+
+    source = Path(args.file)
+    column_map = parse_pairs(args.column_map, "--column-map", "FeO='FeO tot'")
+    checks = parse_pairs(args.check, "--check", "total_min_wt=98")
+    traverses = read_traverses(
+        source,
+        mineral=args.mineral,
+        column_map=column_map or None,
+        orientation=args.orientation,
+        core_position_um=args.core_um,
+        checks=checks or None,
+        sheet=_sheet(args.sheet),
+        iron=args.iron,
+    )
+    out_dir = Path(args.out) if args.out else Path.cwd() / f"{source.stem}{DEFAULT_OUT_SUFFIX}"
+    names = unique_names(t.name for t in traverses)
+    blocks = []
+    for traverse, folder in zip(traverses, names, strict=True):
+        target = out_dir / folder / "points.csv"
+        meta = standard_metadata(
+            "checked spots, one row per input row in input order",
+            source=traverse.source,
+            traverse=traverse.name,
+            mineral=traverse.mineral,
+            orientation=traverse.orientation,
+            core_position_um=f"{traverse.core_position_um:.6g}",
+            units="positions and distances in µm, oxides and totals in wt%, fo/an/ab/or in mol%",
+        )
+        write_csv(traverse.spots, target, metadata=meta, protect=[source])
+        write_text(out_dir / folder / "notes.txt",
+                   "\n".join(traverse.notes) + "\n", protect=[source])
+        blocks.append(_summary(traverse, target))
+    print("\n\n".join(blocks), file=sys.stdout)
+    return 0
