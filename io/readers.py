@@ -43,7 +43,6 @@ from __future__ import annotations
 import csv
 import os
 import re
-import zipfile
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
@@ -358,42 +357,22 @@ def _xlsx_records(p: Path, raw: bytes, source: str, sheet, notes: list[str]):
             f"{source}: reading .xlsx needs the 'openpyxl' package; install it or save "
             "the sheet as CSV."
         ) from err
+    # A damaged workbook can fail inside openpyxl, zipfile or the XML parser with
+    # many exception types; each is turned into one clear error for the user.
     try:
-        wb = openpyxl.load_workbook(p, read_only=True, data_only=True)
-    except (zipfile.BadZipFile, KeyError, OSError, ValueError, TypeError) as err:
+        with open(p, "rb") as fh:
+            wb = openpyxl.load_workbook(fh, read_only=True, data_only=True)
+            try:
+                records = _xlsx_sheet_rows(wb, source, sheet, notes)
+            finally:
+                wb.close()
+    except ProfileFormatError:
+        raise
+    except Exception as err:  # noqa: BLE001 - see comment above
         raise ProfileFormatError(
             f"{source}: cannot be opened as an .xlsx workbook ({type(err).__name__}: {err}); "
             "save it again as .xlsx or CSV."
         ) from err
-    try:
-        names = wb.sheetnames
-        if sheet is None:
-            ws = wb[names[0]]
-            if len(names) > 1:
-                notes.append(f"sheet: read '{names[0]}', the first of {len(names)} sheets "
-                             f"{names}; pass sheet= to read another")
-            else:
-                notes.append(f"sheet: '{names[0]}'")
-        elif isinstance(sheet, int) and not isinstance(sheet, bool):
-            if not 0 <= sheet < len(names):
-                raise ProfileFormatError(
-                    f"{source}: sheet index {sheet} does not exist; the workbook has "
-                    f"{len(names)} sheets {names} (index from 0)."
-                )
-            ws = wb[names[sheet]]
-            notes.append(f"sheet: '{names[sheet]}'")
-        else:
-            if sheet not in names:
-                raise ProfileFormatError(
-                    f"{source}: sheet {sheet!r} not found; sheets are {names}."
-                )
-            ws = wb[sheet]
-            notes.append(f"sheet: '{sheet}'")
-        records = []
-        for n, values in enumerate(ws.iter_rows(min_row=1, values_only=True), start=1):
-            records.append((n, [_xlsx_cell(v) for v in values]))
-    finally:
-        wb.close()
     notes.append("read from .xlsx; row numbers are sheet rows")
     while records and not any(c.strip() for c in records[-1][1]):
         records.pop()
@@ -402,6 +381,32 @@ def _xlsx_records(p: Path, raw: bytes, source: str, sheet, notes: list[str]):
             f"{source}: the sheet is empty; expected a header row and one row per spot."
         )
     return records
+
+
+def _xlsx_sheet_rows(wb, source: str, sheet, notes: list[str]):
+    names = wb.sheetnames
+    if sheet is None:
+        ws = wb[names[0]]
+        if len(names) > 1:
+            notes.append(f"sheet: read '{names[0]}', the first of {len(names)} sheets "
+                         f"{names}; pass sheet= to read another")
+        else:
+            notes.append(f"sheet: '{names[0]}'")
+    elif isinstance(sheet, int) and not isinstance(sheet, bool):
+        if not 0 <= sheet < len(names):
+            raise ProfileFormatError(
+                f"{source}: sheet index {sheet} does not exist; the workbook has "
+                f"{len(names)} sheets {names} (index from 0)."
+            )
+        ws = wb[names[sheet]]
+        notes.append(f"sheet: '{names[sheet]}'")
+    else:
+        if sheet not in names:
+            raise ProfileFormatError(f"{source}: sheet {sheet!r} not found; sheets are {names}.")
+        ws = wb[sheet]
+        notes.append(f"sheet: '{sheet}'")
+    return [(n, [_xlsx_cell(v) for v in values])
+            for n, values in enumerate(ws.iter_rows(min_row=1, values_only=True), start=1)]
 
 
 def _xlsx_cell(v) -> str:
