@@ -15,8 +15,9 @@ and :func:`zoning.fitting.fit_traverse` refuses it with a clear message.
 from __future__ import annotations
 
 import os
+import re
 from collections.abc import Mapping
-from dataclasses import fields
+from dataclasses import fields, replace
 
 import numpy as np
 import pandas as pd
@@ -86,6 +87,32 @@ def quality_settings(checks: QualitySettings | Mapping | None) -> QualitySetting
                 "in the unit of the setting (wt%, µm or cations)."
             ) from None
     return QualitySettings(**values)
+
+
+def _distance_header_hint(header: str, position: np.ndarray):
+    """Orientation stated by a distance header such as 'Distance from core (µm)'.
+
+    Returns ``(orientation, core_position_um, basis)`` or None.
+    """
+    text = str(header).lower()
+    finite = position[np.isfinite(position)]
+    if finite.size == 0:
+        return None
+    if re.search(r"\bfrom\s+(the\s+)?core\b", text) or re.search(r"\bcore\s*dist", text):
+        if finite.min() < 0 < finite.max():
+            return ("rim-to-rim", 0.0,
+                    f"the distance column '{header}' is measured from the core and has both "
+                    "signs: rim-to-rim, core at 0 µm")
+        if finite.max() <= 0:
+            return ("rim-to-core", 0.0,
+                    f"the distance column '{header}' is measured from the core: core at 0 µm")
+        return ("core-to-rim", 0.0,
+                f"the distance column '{header}' is measured from the core: core at 0 µm")
+    if re.search(r"\bfrom\s+(the\s+)?rim\b", text) and finite.min() >= 0:
+        return ("rim-to-core", float(finite.max()),
+                f"the distance column '{header}' is measured from the rim: core at the far "
+                f"end, {finite.max():.4g} µm")
+    return None
 
 
 def read_traverses(
@@ -316,9 +343,17 @@ def build_traverse(
     checked = check_spots(to_check, mineral, settings)
 
     ok = (checked["status"] == "ok").to_numpy()
-    decision = locate_core(position, spots[major].to_numpy(float), usable=ok,
-                           orientation=orientation, core_position_um=core_position_um,
-                           record=record)
+    hint = None
+    if orientation is None and core_position_um is None and has_d:
+        hint = _distance_header_hint(raw.column_map.get("distance_um", ""), position)
+    if hint is not None:
+        decision = locate_core(position, spots[major].to_numpy(float), usable=ok,
+                               orientation=hint[0], core_position_um=hint[1], record=record)
+        decision = replace(decision, basis=hint[2])
+    else:
+        decision = locate_core(position, spots[major].to_numpy(float), usable=ok,
+                               orientation=orientation, core_position_um=core_position_um,
+                               record=record)
     spots.insert(5, "distance_um", decision.distance_um)
     spots.insert(6, "side", decision.side)
     spots["status"] = checked["status"].to_numpy(object)
