@@ -21,6 +21,7 @@ others         ``total`` (the file's analytical total), ``fo_sigma`` and
 
 from __future__ import annotations
 
+import functools
 import re
 from dataclasses import dataclass
 
@@ -241,6 +242,7 @@ def position_scale(unit: str) -> float:
     return _POSITION_FACTOR.get(unit, float("nan"))
 
 
+@functools.lru_cache(maxsize=4096)
 def recognise(header: str) -> ColumnMatch:
     """Recognise one header cell.
 

@@ -224,11 +224,13 @@ def read_export(
         records, spans = _csv_records(lines[header_pos:], delimiter, first_line=header_pos + 1)
         before = _split_line(lines[header_pos - 1], delimiter) if header_pos > 0 else []
         return _build_tables(records, spans, p, source, user_map, notes,
-                             header_line=header_pos + 1, line_before=before, row_word="line")
+                             header_line=header_pos + 1, line_before=before, row_word="line",
+                             delimiter=delimiter)
     before = records[header_pos - 1][1] if header_pos > 0 else []
     header_line = records[header_pos][0]
     return _build_tables(records[header_pos:], spans, p, source, user_map, notes,
-                         header_line=header_line, line_before=before, row_word="sheet row")
+                         header_line=header_line, line_before=before, row_word="sheet row",
+                         delimiter="")
 
 
 # ---------------------------------------------------------------------------
@@ -436,6 +438,7 @@ def _find_header(lines_or_cells, source: str, user_map: dict[str, str], *,
     """Return (index of the header line, delimiter)."""
     wanted = {h.lower() for h in user_map.values()}
     best_fallback: tuple[int, int, list[str]] | None = None
+    best: tuple[int, int, str] | None = None
     for i, item in enumerate(lines_or_cells[:_HEADER_SEARCH_LINES]):
         if delimiter_known:
             candidates = [("", item)]
@@ -463,7 +466,14 @@ def _find_header(lines_or_cells, source: str, user_map: dict[str, str], *,
                 scored.append((n_rec, n_cells, d))
         if scored:
             scored.sort(key=lambda t: (t[0], t[1]), reverse=True)
-            return i, scored[0][2]
+            if wanted:
+                return i, scored[0][2]
+            if best is None or scored[0][0] > best[0]:
+                best = (scored[0][0], i, scored[0][2])
+    if best is not None:
+        # the first line with the most recognised names: a metadata line that
+        # happens to list a few oxides does not beat the real header below it
+        return best[1], best[2]
     if best_fallback is None:
         raise ProfileFormatError(f"{source}: the file holds no text lines; nothing to read.")
     i, _, cells = best_fallback
@@ -717,7 +727,7 @@ class _Flags:
 
 
 def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
-                  header_line: int, line_before: list[str], row_word: str):
+                  header_line: int, line_before: list[str], row_word: str, delimiter: str):
     header_cells = [c.strip().lstrip("\ufeff") for c in records[0][1]]
     used, col_notes = _map_columns(header_cells, source, user_map, header_line)
     if header_line > 2:
@@ -806,6 +816,15 @@ def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
         for i in np.flatnonzero((S[:, n_header:] != "").any(axis=1)):
             flags.add(i, f"cells beyond the last of the {n_header} header columns ignored")
 
+    if delimiter == "," and width > n_header:
+        too_long = (S[:, n_header:] != "").any(axis=1) & ~hdr_rows
+        if too_long.sum() > 0.5 * n:
+            raise ProfileFormatError(
+                f"{source}: {int(too_long.sum())} of {n} rows have more cells than the "
+                f"{n_header} header columns; the file is comma-separated and probably writes "
+                "numbers with a decimal comma without quotes, so the numbers cannot be told "
+                "apart. Export again with ';' or tab as the separator (or a decimal point)."
+            )
     out: dict[str, np.ndarray] = {"row": rows.astype(np.int64)}
     row_text = rows.astype(str).astype(object)
     if "point" in used:
@@ -835,7 +854,9 @@ def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
     # numbers
     oxide_keys = [k for k in OXIDES if k in used]
     clean = ~hdr_rows
-    decimal = _detect_decimal([S[clean, used[k][0]] for k in oxide_keys])
+    numeric_keys = [k for k in (*oxide_keys, "distance_um", "x_um", "y_um", "total")
+                    if k in used]
+    decimal = _detect_decimal([S[clean, used[k][0]] for k in numeric_keys])
     notes.append("decimal separator: " + ("comma" if decimal == "," else "point"))
     minority_total = 0
     counts: dict[str, tuple[np.ndarray, np.ndarray]] = {}

@@ -568,3 +568,28 @@ def test_same_file_reads_identically_twice(tmp_path):
     a, b = only(read_export(path)), only(read_export(path))
     pd.testing.assert_frame_equal(a.data, b.data)
     assert a.notes == b.notes
+
+
+def test_metadata_line_listing_oxides_does_not_beat_the_real_header(tmp_path):
+    path = tmp_path / "meta.csv"
+    path.write_text("Elements,SiO2,MgO,FeO\nPoint,Comment,Distance (µm),SiO2,FeO,MgO,NiO\n"
+                    "1,core,0,40.81,9.55,49.42,0.37\n", encoding="utf-8")
+    t = only(read_export(path))
+    assert t.data["row"].tolist() == [3]
+    assert t.data["NiO"].tolist() == [0.37]
+
+
+def test_quoted_decimal_commas_in_a_comma_separated_file(tmp_path):
+    path = tmp_path / "q.csv"
+    path.write_text('Point,SiO2,FeO,MgO\n1,"40,81","9,55","49,42"\n', encoding="utf-8")
+    t = only(read_export(path))
+    assert t.data[["SiO2", "FeO", "MgO"]].to_numpy().tolist() == [[40.81, 9.55, 49.42]]
+
+
+def test_unquoted_decimal_commas_in_a_comma_separated_file_are_refused(tmp_path):
+    path = tmp_path / "amb.csv"
+    path.write_text("Point,SiO2,FeO,MgO\n1,40,81,9,55,49,42\n2,38,95,16,62,43,58\n",
+                    encoding="utf-8")
+    with pytest.raises(ProfileFormatError, match=r"2 of 2 rows have more cells than the 4 "
+                                                 r"header columns.*decimal comma"):
+        read_export(path)
