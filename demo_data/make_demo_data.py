@@ -17,7 +17,10 @@ Run from anywhere::
 
 from __future__ import annotations
 
+import io
+import re
 import sys
+import zipfile
 from pathlib import Path
 
 import numpy as np
@@ -30,18 +33,18 @@ OUT = Path(__file__).resolve().parent / "ferrolyn"
 
 #: Invented "true" settings of each traverse (the answers the demo fits should find).
 TRUTH = {
-    "FRL-07 ol1": dict(mineral="olivine", melt={"FeO": 9.8}, kd=0.30, melt_mg_number=0.74,
-                       f_rim=0.22, retention=0.10, radius_um=420.0, melt0_ni_ppm=420.0,
+    "FRL-07 ol1": dict(mineral="olivine", melt={"FeO": 9.8}, kd=0.30, melt_mg_number=0.76,
+                       f_rim=0.16, retention=0.10, radius_um=420.0, melt0_ni_ppm=420.0,
                        n=40, seed=701),
-    "FRL-07 ol2": dict(mineral="olivine", melt={"FeO": 9.8}, kd=0.30, melt_mg_number=0.72,
-                       f_rim=0.25, retention=0.90, radius_um=300.0, melt0_ni_ppm=380.0,
+    "FRL-07 ol2": dict(mineral="olivine", melt={"FeO": 9.8}, kd=0.30, melt_mg_number=0.75,
+                       f_rim=0.20, retention=0.90, radius_um=300.0, melt0_ni_ppm=380.0,
                        n=30, seed=702),
-    "FRL-07 ol3": dict(mineral="olivine", melt={"FeO": 9.8}, kd=0.30, melt_mg_number=0.73,
-                       f_rim=0.20, retention=0.40, radius_um=250.0, melt0_ni_ppm=400.0,
+    "FRL-07 ol3": dict(mineral="olivine", melt={"FeO": 9.8}, kd=0.30, melt_mg_number=0.75,
+                       f_rim=0.16, retention=0.40, radius_um=250.0, melt0_ni_ppm=400.0,
                        n=41, seed=703),
-    "FRL-03 ol1": dict(mineral="olivine", melt={"FeO": 10.4}, kd=0.30, melt_mg_number=0.62,
-                       f_rim=0.15, retention=0.20, radius_um=280.0, melt0_ni_ppm=220.0,
-                       n=29, seed=301, recharge_um=170.0, recharge_mg_number=0.68),
+    "FRL-03 ol1": dict(mineral="olivine", melt={"FeO": 10.4}, kd=0.30, melt_mg_number=0.70,
+                       f_rim=0.12, retention=0.20, radius_um=280.0, melt0_ni_ppm=260.0,
+                       n=29, seed=301, recharge_um=170.0, recharge_mg_number=0.74),
     "FRL-12 pl1": dict(mineral="plagioclase", melt={"Na2O": 3.1}, kd=2.0,
                        melt_ca_number=0.62, f_rim=0.35, retention=0.30, radius_um=500.0,
                        melt0_sr_ppm=420.0, n=36, seed=1201),
@@ -51,9 +54,15 @@ TRUTH = {
 }
 
 
+#: Melt temperature assumed for the plagioclase Sr partitioning law [°C] (invented).
+PLAG_TEMPERATURE_C = 1150.0
+
+
 def _model(t: dict) -> CrystallizationModel:
-    traces = ("Ni",) if t["mineral"] == "olivine" else ("Sr",)
-    return CrystallizationModel(t["mineral"], t["melt"], kd=t["kd"], traces=traces)
+    if t["mineral"] == "olivine":
+        return CrystallizationModel("olivine", t["melt"], kd=t["kd"], traces=("Ni",))
+    return CrystallizationModel("plagioclase", t["melt"], kd=t["kd"], traces=("Sr",),
+                                temperature_c=PLAG_TEMPERATURE_C)
 
 
 def _profile(t: dict, distance_um: np.ndarray, **override) -> dict:
@@ -86,7 +95,7 @@ def olivine_oxides(fo: np.ndarray, nio: np.ndarray, rng: np.random.Generator) ->
     wt["MnO"] = 0.0145 * wt["FeO"] / major * (100.0 - fixed)  # Fe/Mn of olivine ~ 70
     for ox in ("SiO2", "FeO", "MgO"):
         wt[ox] = wt[ox] / major * (100.0 - fixed - wt["MnO"])
-    total = rng.normal(99.9, 0.35, n)
+    total = rng.normal(99.9, 0.3, n)
     wt = wt.mul(total / 100.0, axis=0)
     for ox, rel in (("SiO2", 0.004), ("FeO", 0.006), ("MgO", 0.005), ("MnO", 0.05),
                     ("NiO", 0.04)):
@@ -114,7 +123,7 @@ def plagioclase_oxides(an: np.ndarray, sro: np.ndarray, rng: np.random.Generator
     fixed = wt[["FeO", "MgO", "SrO"]].sum(axis=1)
     for ox in ("SiO2", "Al2O3", "CaO", "Na2O", "K2O"):
         wt[ox] = wt[ox] / major * (100.0 - fixed)
-    total = rng.normal(99.8, 0.4, n)
+    total = rng.normal(99.8, 0.3, n)
     wt = wt.mul(total / 100.0, axis=0)
     for ox, rel in (("SiO2", 0.004), ("Al2O3", 0.005), ("CaO", 0.006), ("Na2O", 0.012),
                     ("K2O", 0.05), ("SrO", 0.06)):
@@ -136,7 +145,10 @@ def make_ol1() -> pd.DataFrame:
     fo = prof["crystal"] + rng.normal(0.0, 0.12, len(d))
     wt = olivine_oxides(fo, prof["crystal_nio_wt"], rng)
     wt.loc[12] = wt.loc[12] * 0.972  # planted: low analytical total (~97 wt%)
-    wt.loc[27, "Al2O3"] = 1.85  # planted: spinel/melt inclusion in the excitation volume
+    # planted: spinel/melt inclusion in the excitation volume (total stays near 100)
+    extra = 1.85 + 1.10 - wt.loc[27, "Al2O3"] - wt.loc[27, "CaO"]
+    wt.loc[27, ["SiO2", "MgO"]] -= extra / 2.0
+    wt.loc[27, "Al2O3"] = 1.85
     wt.loc[27, "CaO"] = 1.10
     df = pd.DataFrame({"Point": np.arange(1, len(d) + 1),
                        "Comment": [f"FRL-07 ol1 / {i + 1}" for i in range(len(d))],
@@ -227,8 +239,28 @@ def make_pl1() -> pd.DataFrame:
                        "Distance (um)": d})
     df = pd.concat([df, wt], axis=1)
     df["Total"] = wt.sum(axis=1).round(3)
-    df.to_excel(OUT / "FRL-12_pl1.xlsx", index=False, sheet_name="FRL-12 pl1")
+    path = OUT / "FRL-12_pl1.xlsx"
+    df.to_excel(path, index=False, sheet_name="FRL-12 pl1")
+    _make_xlsx_deterministic(path)
     return df
+
+
+def _make_xlsx_deterministic(path: Path) -> None:
+    """Fix the time stamps inside an .xlsx so that reruns give identical bytes."""
+    fixed = "2026-03-14T09:00:00Z"
+    with zipfile.ZipFile(path) as zin:
+        items = [(info, zin.read(info.filename)) for info in zin.infolist()]
+    buf = io.BytesIO()
+    with zipfile.ZipFile(buf, "w", zipfile.ZIP_DEFLATED) as zout:
+        for info, data in items:
+            if info.filename == "docProps/core.xml":
+                data = re.sub(rb"(<dcterms:(created|modified)[^>]*>)[^<]*",
+                              rb"\g<1>" + fixed.encode(), data)
+            zi = zipfile.ZipInfo(info.filename, date_time=(2026, 3, 14, 9, 0, 0))
+            zi.compress_type = zipfile.ZIP_DEFLATED
+            zi.external_attr = info.external_attr
+            zout.writestr(zi, data)
+    path.write_bytes(buf.getvalue())
 
 
 def make_pl2() -> pd.DataFrame:

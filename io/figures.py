@@ -36,6 +36,7 @@ __all__ = [
     "corner_figure",
     "overview_figure",
     "save_figure",
+    "sample_figures",
     "save_sample_figures",
     "quantity_label",
 ]
@@ -624,7 +625,29 @@ def save_figure(fig: Figure, stem: str | os.PathLike, *, dpi: int = 300) -> dict
     return out
 
 
-def save_sample_figures(result, folder: str | os.PathLike) -> Mapping[str, dict[str, Path]]:
+def sample_figures(result) -> dict[str, Figure]:
+    """Draw the three figures of one fit.
+
+    Parameters
+    ----------
+    result : FitResult
+        A fit of one traverse.
+
+    Returns
+    -------
+    dict
+        ``{"profile": Figure, "melt_path": Figure, "posterior": Figure}``.
+    """
+    return {
+        "profile": profile_figure(result),
+        "melt_path": melt_path_figure(result),
+        "posterior": corner_figure(result),
+    }
+
+
+def save_sample_figures(
+    result, folder: str | os.PathLike, *, figures: Mapping[str, Figure] | None = None
+) -> Mapping[str, dict[str, Path]]:
     """Draw and save the three figures of one fit into a folder.
 
     Parameters
@@ -633,6 +656,8 @@ def save_sample_figures(result, folder: str | os.PathLike) -> Mapping[str, dict[
         A fit of one traverse.
     folder : str or path-like
         Destination folder.
+    figures : mapping, optional
+        Figures already drawn by :func:`sample_figures`.
 
     Returns
     -------
@@ -641,8 +666,5 @@ def save_sample_figures(result, folder: str | os.PathLike) -> Mapping[str, dict[
         the PNG and PDF paths of each.
     """
     folder = Path(folder)
-    return {
-        "profile": save_figure(profile_figure(result), folder / "profile"),
-        "melt_path": save_figure(melt_path_figure(result), folder / "melt_path"),
-        "posterior": save_figure(corner_figure(result), folder / "posterior"),
-    }
+    figures = figures if figures is not None else sample_figures(result)
+    return {name: save_figure(fig, folder / name) for name, fig in figures.items()}

@@ -12,7 +12,7 @@ from __future__ import annotations
 import math
 import os
 import textwrap
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -167,13 +167,16 @@ class _Writer:
             self.y -= 0.016 * max(1, len(last)) + 0.002
 
 
-def report_pages(result) -> list[Figure]:
+def report_pages(result, figures: Sequence[Figure] | None = None) -> list[Figure]:
     """Build the report pages of one fit as matplotlib figures.
 
     Parameters
     ----------
     result : FitResult
         A fit of one traverse.
+    figures : sequence of Figure, optional
+        Already drawn profile, melt-path and posterior figures of this
+        result (drawn here when not given).
 
     Returns
     -------
@@ -232,13 +235,16 @@ def report_pages(result) -> list[Figure]:
     w.heading("Assumptions and cautions")
     w.lines([f"{i + 1}. {c}" for i, c in enumerate(CAUTIONS)])
 
-    pages.append(_fig.profile_figure(result))
-    pages.append(_fig.melt_path_figure(result))
-    pages.append(_fig.corner_figure(result))
+    if figures is None:
+        figures = [_fig.profile_figure(result), _fig.melt_path_figure(result),
+                   _fig.corner_figure(result)]
+    pages.extend(figures)
     return pages
 
 
-def write_report(result, path: str | os.PathLike) -> Path:
+def write_report(
+    result, path: str | os.PathLike, *, figures: Sequence[Figure] | None = None
+) -> Path:
     """Write the PDF report of one fit, atomically.
 
     Parameters
@@ -247,6 +253,9 @@ def write_report(result, path: str | os.PathLike) -> Path:
         A fit of one traverse.
     path : str or path-like
         Destination ``.pdf``; folders are created.
+    figures : sequence of Figure, optional
+        Already drawn figures of this result to put after the text pages
+        (default: the profile, melt-path and posterior figures, drawn here).
 
     Returns
     -------
@@ -260,7 +269,7 @@ def write_report(result, path: str | os.PathLike) -> Path:
             "CreationDate": None}
     try:
         with PdfPages(tmp, metadata=meta) as pdf:
-            for page in report_pages(result):
+            for page in report_pages(result, figures):
                 pdf.savefig(page)
         os.replace(tmp, path)
     finally:

@@ -497,8 +497,7 @@ def project_from_folder(folder: str | os.PathLike, options: Mapping[str, Any]) -
             f"{', '.join(EXPORT_SUFFIXES)}. Give the folder that holds them, or a project file."
         )
     read_kw, _, _ = _split(opts)
-    from zoning.io import read_traverses
-
+    read_traverses = _reader()
     jobs = []
     used: set[str] = set()
     for file in files:
@@ -617,9 +616,16 @@ def _sample_dir_name(name: str) -> str:
     return safe_name(name)
 
 
-def _select_traverse(job: SampleJob):
-    from zoning.io import read_traverses
+def _reader():
+    try:
+        from zoning.io import read_traverses
+    except ImportError:  # pragma: no cover - older layout of zoning.io
+        from zoning.io.traverses import read_traverses
+    return read_traverses
 
+
+def _select_traverse(job: SampleJob):
+    read_traverses = _reader()
     traverses = read_traverses(job.file, **job.read_options)
     if job.traverse:
         for t in traverses:
@@ -732,12 +738,13 @@ def _fit_and_write(job: SampleJob, tmp: Path):
     if job.figures or job.report:
         from zoning.io import figures
 
+        drawn = figures.sample_figures(result)
         if job.figures:
-            figures.save_sample_figures(result, tmp)
+            figures.save_sample_figures(result, tmp, figures=drawn)
         if job.report:
             from zoning.io.report import write_report
 
-            write_report(result, tmp / "report.pdf")
+            write_report(result, tmp / "report.pdf", figures=list(drawn.values()))
     row = summary_table([result]).iloc[0].to_dict()
     row["sample"] = job.name
     return row, result
