@@ -291,13 +291,18 @@ def join_reasons(*columns: Sequence[str]) -> list[str]:
     """
     if not columns:
         return []
-    texts = [pd.Series(np.asarray(c, dtype=object)).fillna("").astype(str) for c in columns]
-    n = len(texts[0])
-    matrix = np.column_stack([t.to_numpy(object) for t in texts]) if n else np.empty((0, 0))
-    nonempty = (
-        np.column_stack([(t.str.strip().ne("") & t.ne("nan")).to_numpy(bool) for t in texts])
-        if n else np.zeros((0, 0), bool)
-    )
+    arrays = []
+    masks = []
+    for c in columns:
+        arr = np.asarray(c, dtype=object).ravel()
+        arr = np.where(pd.isna(arr), "", arr)
+        arrays.append(arr)
+        masks.append(np.asarray((arr != "") & (arr != "nan"), dtype=bool))
+    n = arrays[0].size
+    if n == 0:
+        return []
+    matrix = np.column_stack(arrays)
+    nonempty = np.column_stack(masks)
     out = [""] * n
     for i in np.flatnonzero(nonempty.any(axis=1)):
         seen: list[str] = []
