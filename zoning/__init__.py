@@ -22,6 +22,7 @@ from zoning.exceptions import (
     ZoningError,
     ZoningWarning,
 )
+from zoning.models import ConstantPartitionModel, CrystallizationModel, ParameterSpec
 from zoning.traverse import Traverse
 
 __all__ = [
@@ -35,4 +36,7 @@ __all__ = [
     "DataQualityWarning",
     "ConvergenceWarning",
     "CalibrationRangeWarning",
+    "CrystallizationModel",
+    "ConstantPartitionModel",
+    "ParameterSpec",
 ]
