@@ -192,6 +192,17 @@ def test_no_position_column_is_a_clear_error(tmp_path):
         read_traverses(path)
 
 
+def test_all_positions_missing_flags_every_spot(tmp_path, capsys):
+    path = tmp_path / "nodist.csv"
+    rows = [{"Point": i, "Distance (um)": "n.d.", **SAN_CARLOS} for i in range(4)]
+    pd.DataFrame(rows).to_csv(path, index=False)
+    (t,) = read_traverses(path)
+    assert (t.spots["reason"] == "position missing").all()
+    assert any(n.startswith("cannot be fitted: all 4 spots") for n in t.notes)
+    assert main(["inspect", str(path), "--out", str(tmp_path / "o")]) == 0
+    assert "core position unknown" in capsys.readouterr().out
+
+
 def test_distance_header_from_core_sets_the_orientation(tmp_path):
     path = tmp_path / "FRL-22_ol1.csv"
     # Reverse zoning (Springwater core, San Carlos rim): the header says where the core is.

@@ -163,7 +163,10 @@ def _summary(traverse, written: Path) -> str:
     for note in traverse.notes:
         if note.startswith(("mineral ", "orientation: ", "cannot be fitted")):
             lines.append(f"  {note}")
-    lines.append(f"  core at {traverse.core_position_um:.4g} µm along the traverse")
+    if traverse.core_position_um == traverse.core_position_um:  # finite
+        lines.append(f"  core at {traverse.core_position_um:.4g} µm along the traverse")
+    else:
+        lines.append("  core position unknown (no spot has a position)")
     ok = s[s["status"] == "ok"]
     vals = ok[major].dropna()
     if len(vals):
