@@ -277,7 +277,18 @@ def _decode(raw: bytes, source: str, notes: list[str]) -> str:
             ) from err
         notes.append("encoding: UTF-16")
         return text.lstrip("\ufeff")
-    if b"\x00" in raw[:65536]:
+    head = raw[:65536]
+    if b"\x00" in head and len(head) >= 8:
+        # UTF-16 without a byte-order mark: NUL in every other byte
+        for codec, zeros in (("utf-16-le", head[1::2]), ("utf-16-be", head[0::2])):
+            if zeros.count(0) > 0.9 * len(zeros):
+                try:
+                    text = raw.decode(codec)
+                except UnicodeDecodeError:
+                    break
+                notes.append(f"encoding: {codec.upper()} without byte-order mark")
+                return text
+    if b"\x00" in head:
         raise ProfileFormatError(
             f"{source}: looks like a binary file (contains NUL bytes), not a text export; "
             "export the traverse as CSV or .xlsx."
@@ -407,8 +418,17 @@ def _xlsx_sheet_rows(wb, source: str, sheet, notes: list[str]):
             raise ProfileFormatError(f"{source}: sheet {sheet!r} not found; sheets are {names}.")
         ws = wb[sheet]
         notes.append(f"sheet: '{sheet}'")
-    return [(n, [_xlsx_cell(v) for v in values])
-            for n, values in enumerate(ws.iter_rows(min_row=1, values_only=True), start=1)]
+    if hasattr(ws, "reset_dimensions"):
+        # read-only sheets trust the stored dimension, which some writers get wrong
+        ws.reset_dimensions()
+    rows = [[_xlsx_cell(v) for v in values]
+            for values in ws.iter_rows(min_row=1, values_only=True)]
+    for r in rows:
+        while r and not r[-1].strip():
+            r.pop()
+    width = max((len(r) for r in rows), default=0)
+    # a sheet has no ragged rows: pad every row to the used width
+    return [(n, r + [""] * (width - len(r))) for n, r in enumerate(rows, start=1)]
 
 
 def _xlsx_cell(v) -> str:
@@ -759,6 +779,12 @@ def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
     kind = np.full(len(body), "data", dtype=object)
     kind[blank] = "blank"
 
+    unnamed = [j for j in range(min(n_header, width)) if not header_cells[j]]
+    if unnamed:
+        n_cells = int(nonempty[:, unnamed].sum())
+        if n_cells:
+            notes.append(f"{n_cells} cell(s) in {len(unnamed)} column(s) without a header "
+                         "ignored")
     # a units line directly below the header
     units_row: dict[int, str] = {}
     if n_nonempty[0] >= 2 and all(_columns.is_unit_token(c) for c in grid[0] if c):
@@ -808,7 +834,8 @@ def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
     flags.add_many(np.flatnonzero(hdr_rows), "duplicate header row repeated inside the data")
     for i in np.flatnonzero([r in spans for r in rows]) if spans else ():
         flags.add(i, f"quoted cell spans lines {rows[i]}-{spans[rows[i]]}")
-    max_used = max(j for j, _ in used.values())
+    numeric_cols = [j for k, (j, _) in used.items() if k not in ("point", "label", "sample")]
+    max_used = max(numeric_cols)
     lens = lengths[idx]
     for i in np.flatnonzero((lens < n_header) & (lens <= max_used) & ~hdr_rows):
         flags.add(i, f"row has only {lens[i]} of {n_header} fields")

@@ -593,3 +593,43 @@ def test_unquoted_decimal_commas_in_a_comma_separated_file_are_refused(tmp_path)
     with pytest.raises(ProfileFormatError, match=r"2 of 2 rows have more cells than the 4 "
                                                  r"header columns.*decimal comma"):
         read_export(path)
+
+
+def test_row_ending_before_an_empty_comment_is_not_flagged(tmp_path):
+    path = tmp_path / "c.csv"
+    path.write_text("Point,SiO2,FeO,MgO,Comment\n1,40.8,9.5,49.4\n2,40.8,9.5,49.4,rim\n",
+                    encoding="utf-8")
+    t = only(read_export(path))
+    assert t.data["read_flags"].tolist() == ["", ""]
+    assert t.data["label"].tolist() == ["", "rim"]
+
+
+def test_utf16_without_byte_order_mark(tmp_path):
+    path = write_export(tmp_path / "u16.txt", sep="\t", encoding="utf-16-le")
+    t = only(read_export(path))
+    assert_reference_numbers(t, first_row=2)
+    assert "encoding: UTF-16-LE without byte-order mark" in t.notes
+
+
+def test_cells_under_an_empty_header_are_noted(tmp_path):
+    path = tmp_path / "nh.csv"
+    path.write_text("Point,SiO2,FeO,MgO,\n1,40.8,9.5,49.4,7\n2,40.8,9.5,49.4,\n",
+                    encoding="utf-8")
+    t = only(read_export(path))
+    assert "1 cell(s) in 1 column(s) without a header ignored" in t.notes
+
+
+def test_xlsx_blank_rows_keep_sheet_row_numbers(tmp_path):
+    path = tmp_path / "gap.xlsx"
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    ws["B2"] = "Point"
+    ws["C2"], ws["D2"], ws["E2"] = "SiO2", "FeO", "MgO"
+    ws["B3"], ws["C3"], ws["D3"], ws["E3"] = 1, 40.81, 9.55, 49.42
+    ws["B6"], ws["C6"], ws["D6"], ws["E6"] = 2, "<0.01", 16.62, 43.58
+    wb.save(path)
+    t = only(read_export(path))
+    assert t.data["row"].tolist() == [3, 6]
+    assert t.data["point"].tolist() == ["1", "2"]
+    assert_allclose(t.data["MgO"], [49.42, 43.58], rtol=RTOL_IDENTITY)
+    assert "SiO2: 1 below detection (NaN)" in t.notes
