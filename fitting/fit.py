@@ -48,7 +48,13 @@ from zoning.fitting.diagnostics import find_reversals, residual_runs, runs_test_
 from zoning.fitting.results import Estimate, FitResult
 from zoning.fitting.sampling import MIN_ESS, MIN_TAU_MULTIPLE, credible_band, run_ensemble
 
-from zoning.exceptions import ConvergenceWarning, DataQualityWarning, FitError, ZoningError
+from zoning.exceptions import (
+    CalibrationRangeWarning,
+    ConvergenceWarning,
+    DataQualityWarning,
+    FitError,
+    ZoningError,
+)
 from zoning.traverse import MINERALS, Traverse
 
 __all__ = ["fit_traverse", "DEFAULT_SIGMA", "DEFAULT_TRACE_SIGMA", "KD_PRIOR"]
@@ -88,6 +94,8 @@ DEFAULT_FREE = ("ratio", "f_rim", "retention", "kd")
 #: Parameters the user may free in addition.
 OPTIONAL_FREE = ("f_core", "growth_exponent", "core_offset_um")
 
+#: Share of the sampler steps discarded as burn-in.
+BURN_FRACTION = 0.25
 #: Minimum number of finite values for a trace profile to be fitted.
 MIN_TRACE_SPOTS = 5
 #: Fraction of the prior range above which a 95% band means "not constrained".
@@ -154,8 +162,13 @@ class _Problem:
         return out
 
     def predict(self, params: Mapping, distance_um=None) -> dict:
+        # Warnings of the forward model (calibration ranges) are silenced
+        # here, where the optimiser and sampler explore; the best fit is
+        # checked once with warnings on (see fit_traverse).
         d = self.distance_um if distance_um is None else distance_um
-        return self.model.profile(d, self.radius_um, **params)
+        with np.errstate(all="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            return self.model.profile(d, self.radius_um, strict=False, **params)
 
     def residuals(self, params: Mapping, m: int) -> np.ndarray:
         """Return normalized residuals (m, n_data + 1): data terms, then the Kd prior."""
@@ -177,6 +190,54 @@ class _Problem:
         data, prior = z[:, :-1], z[:, -1]
         loss = _soft_l1(data**2) if self.robust else data**2
         return loss.sum(axis=1) + prior**2
+
+    # --- sampler coordinates -------------------------------------------------
+    # The data fix the composition of the core crystal far better than the
+    # melt ratio and Kd separately, which makes (ratio, Kd) a thin curved
+    # ridge. The sampler therefore works with X0 = the crystal in equilibrium
+    # with the parent melt, X0 = y0 / (y0 + K (1 - y0)), in place of the melt
+    # ratio y0; the flat prior on y0 is kept through the Jacobian
+    # dy0/dX0 = K / (1 - X0 + K X0)^2.
+    def _kernel_k(self, theta: np.ndarray) -> np.ndarray:
+        kd = theta[:, self.free.index("kd")] if "kd" in self.free else np.full(
+            theta.shape[0], self.fixed["kd"]
+        )
+        return np.asarray(self.model.law.kernel_k(kd), dtype=float)
+
+    def to_sampler(self, theta: np.ndarray) -> np.ndarray:
+        theta = np.atleast_2d(np.asarray(theta, dtype=float))
+        u = theta.copy()
+        k = self._kernel_k(theta)
+        y = theta[:, 0]
+        u[:, 0] = y / (y + k * (1.0 - y))
+        return u
+
+    def from_sampler(self, u: np.ndarray) -> np.ndarray:
+        u = np.atleast_2d(np.asarray(u, dtype=float))
+        theta = u.copy()
+        k = self._kernel_k(u)
+        x = u[:, 0]
+        theta[:, 0] = k * x / (1.0 - x + k * x)
+        return theta
+
+    def sampler_bounds(self) -> tuple[np.ndarray, np.ndarray]:
+        lo, hi = self.lower.copy(), self.upper.copy()
+        lo[0], hi[0] = 0.0, 1.0
+        return lo, hi
+
+    def log_prob_sampler(self, u: np.ndarray) -> np.ndarray:
+        u = np.atleast_2d(u)
+        x = u[:, 0]
+        ok = (x > 0.0) & (x < 1.0)
+        lp = np.full(u.shape[0], -np.inf)
+        if ok.any():
+            sub = u[ok]
+            k = self._kernel_k(sub)
+            with np.errstate(all="ignore"):
+                log_jac = np.log(k) - 2.0 * np.log(1.0 - sub[:, 0] + k * sub[:, 0])
+            value = self.log_prob(self.from_sampler(sub)) + log_jac
+            lp[ok] = np.where(np.isfinite(value), value, -np.inf)
+        return lp
 
     def log_prob(self, theta: np.ndarray) -> np.ndarray:
         theta = np.atleast_2d(theta)
@@ -297,7 +358,7 @@ def _major_sigma(used, mineral, sigma):
     return out, f"default {DEFAULT_SIGMA[mineral]:g} mol% (common practice)"
 
 
-def _build_model(mineral, melt, kd, fe3_fraction, traces, geometry):
+def _build_model(mineral, melt, kd, fe3_fraction, traces, geometry, temperature_c):
     from zoning.models import CrystallizationModel
 
     return CrystallizationModel(
@@ -307,6 +368,7 @@ def _build_model(mineral, melt, kd, fe3_fraction, traces, geometry):
         fe3_fraction=fe3_fraction,
         traces=tuple(traces),
         geometry=geometry,
+        temperature_c=temperature_c,
     )
 
 
@@ -327,7 +389,8 @@ def _grid_starts(prob: _Problem, ratio_name: str) -> tuple[np.ndarray, int]:
         if name == ratio_name:
             axes.append(levels(name, GRID_RATIO))
         elif name == "f_rim":
-            axes.append(levels(name, GRID_F))
+            # Fractions of the largest F the parent melt can reach (set below).
+            axes.append(np.linspace(0.0, 1.0, GRID_F + 2)[1:-1])
         elif name == "retention":
             axes.append(levels(name, GRID_R))
         elif name == "kd":
@@ -338,6 +401,10 @@ def _grid_starts(prob: _Problem, ratio_name: str) -> tuple[np.ndarray, int]:
     mesh = np.meshgrid(*axes, indexing="ij")
     theta = np.stack([g.ravel() for g in mesh], axis=1)
     m = theta.shape[0]
+    j_f = idx["f_rim"]
+    f_cap = _max_fraction(prob, theta)
+    theta[:, j_f] = np.clip(theta[:, j_f] * np.minimum(f_cap, prob.upper[j_f]),
+                            prob.lower[j_f], prob.upper[j_f])
     params = prob.params(theta)
     with np.errstate(all="ignore"), warnings.catch_warnings():
         warnings.simplefilter("ignore")
@@ -362,6 +429,12 @@ def _grid_starts(prob: _Problem, ratio_name: str) -> tuple[np.ndarray, int]:
     return theta[picks], m
 
 
+def _max_fraction(prob: _Problem, theta: np.ndarray) -> np.ndarray:
+    """Largest F the parent melt of each parameter set can reach (m,)."""
+    ratio = prob.params(theta)[prob.free[0]]
+    return np.asarray(prob.model.max_fraction(**{prob.free[0]: ratio}), dtype=float)
+
+
 def _least_squares(prob: _Problem, start: np.ndarray, free: Sequence[str]):
     """Refine one start with lmfit; returns (theta, objective, success)."""
     lo = {n: prob.lower[i] for i, n in enumerate(prob.free)}
@@ -371,28 +444,33 @@ def _least_squares(prob: _Problem, start: np.ndarray, free: Sequence[str]):
         span = hi[name] - lo[name]
         v = float(np.clip(value, lo[name] + 1e-9 * span, hi[name] - 1e-9 * span))
         params.add(name, value=v, min=lo[name], max=hi[name])
-    steps = np.array([1e-7 * (hi[n] - lo[n]) for n in free])
+    steps = np.array([1e-6 * (hi[n] - lo[n]) for n in free])
+    upper = np.array([hi[n] for n in free])
+    cache: dict[bytes, np.ndarray] = {}
 
     def vector(p):
         return np.array([p[n].value for n in free])
 
-    def resid_batch(theta):
-        # With robust=True least_squares applies the soft-L1 loss itself.
-        return prob.residuals(prob.params(theta, free), theta.shape[0])
+    def evaluate(x):
+        # The residuals at x and the forward-difference Jacobian come from
+        # ONE batched model call (p + 1 parameter sets); the Jacobian is kept
+        # for the jac() call that least_squares makes at accepted points.
+        key = x.tobytes()
+        if key not in cache:
+            h = steps * np.where(x + steps <= upper, 1.0, -1.0)
+            theta = np.vstack([x, x + np.diag(h)])
+            # With robust=True least_squares applies the soft-L1 loss itself.
+            r = prob.residuals(prob.params(theta, free), theta.shape[0])
+            r = np.where(np.isfinite(r), r, 1e6)
+            cache.clear()
+            cache[key] = np.vstack([r[0], ((r[1:] - r[0]) / h[:, None])])
+        return cache[key]
 
     def fcn(p):
-        r = resid_batch(vector(p)[None, :])[0]
-        return np.where(np.isfinite(r), r, 1e6)
+        return evaluate(vector(p))[0]
 
     def jac(p):
-        # Forward differences, all columns in one batched model call.
-        x = vector(p)
-        direction = np.where(x + steps <= np.array([hi[n] for n in free]), 1.0, -1.0)
-        h = steps * direction
-        theta = np.vstack([x, x + np.diag(h)])
-        r = resid_batch(theta)
-        r = np.where(np.isfinite(r), r, 1e6)
-        return ((r[1:] - r[0]) / h[:, None]).T
+        return evaluate(vector(p))[1:].T
 
     kws = {"jac": jac}
     if prob.robust:
@@ -467,9 +545,10 @@ def fit_traverse(
     traces: str | Sequence[str] | None = "auto",
     include_flagged: bool = False,
     robust: bool = False,
+    temperature_c: float | None = None,
     seed: int = 0,
-    n_walkers: int = 32,
-    n_steps: int = 2500,
+    n_walkers: int = 48,
+    n_steps: int = 600,
     progress: bool = False,
 ) -> FitResult:
     """Fit a crystallization model to one traverse and sample its posterior.
@@ -516,10 +595,13 @@ def fit_traverse(
         Use spots flagged by the reader (default False).
     robust : bool, optional
         Soft-L1 loss instead of squares (down-weights stray spots).
+    temperature_c : float, optional
+        Crystallization temperature [°C]; needed by the plagioclase Sr and
+        Mg partitioning laws (without it, ``traces="auto"`` skips them).
     seed : int, optional
         Seed of every random step (same seed, same numbers).
     n_walkers, n_steps : int, optional
-        emcee walkers and steps (burn-in is the first fifth).
+        emcee walkers and steps, burn-in (the first quarter) included.
     progress : bool, optional
         Show the sampler's progress bar.
 
@@ -584,7 +666,21 @@ def fit_traverse(
 
     sigma, trace_sigma = _split_sigma(sigma, trace_sigma, mineral)
     chosen = _select_traces(traverse, usable, mineral, traces, trace_sigma)
-    model = _build_model(mineral, melt, kd, fe3_fraction, [c[1] for c in chosen], geometry)
+    skipped = []
+    if mineral == "plagioclase" and temperature_c is None and chosen:
+        # The plagioclase Sr and Mg laws (RT ln D = A X_An + B) need a temperature.
+        if traces == "auto":
+            skipped = [c[0] for c in chosen]
+            chosen = []
+        else:
+            raise ZoningError(
+                f"fitting {[c[0] for c in chosen]} in plagioclase needs the temperature of "
+                "the partitioning laws; got none. Give temperature_c (--temperature-c) or "
+                "fit without traces."
+            )
+    model = _build_model(
+        mineral, melt, kd, fe3_fraction, [c[1] for c in chosen], geometry, temperature_c
+    )
     specs = _spec_map(model)
     kd_default, kd_sd_default = KD_PRIOR[mineral]
     kd0 = float(kd) if kd is not None else (
@@ -645,18 +741,17 @@ def fit_traverse(
     grid_best, n_grid = _grid_starts(prob, ratio_name)
     starts = [row for row in grid_best]
     try:
-        guess = model.initial_guess(d, y, trace=None)
-        guess_row = np.array(
-            [float(guess.get(n, prob.fixed.get(n, specs[n].default))) if n not in
-             {c[3] for c in chosen} else grid_best[0][i] for i, n in enumerate(free_names)]
-        )
-        if n := len(free_names):
-            guess_row = np.clip(guess_row[:n], lower, upper)
-            if "kd" in free_names:
-                guess_row[free_names.index("kd")] = kd0
-            starts.append(guess_row)
-    except (ZoningError, ValueError, KeyError, TypeError):
-        pass
+        trace_obs = {c[1]: c[4] for c in chosen}
+        with np.errstate(all="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            guess = model.initial_guess(d, y, trace=trace_obs or None)
+    except (ZoningError, ValueError, FloatingPointError):
+        guess = None
+    if guess is not None:
+        row = np.array([float(guess.get(n, grid_best[0][i])) for i, n in enumerate(free_names)])
+        if "kd" in free_names:
+            row[free_names.index("kd")] = kd0
+        starts.append(np.clip(row, lower, upper))
     starts = np.array(starts)
     theta_best, obj_best, n_same, n_starts, _ = _optimise(prob, starts, free_names)
     if not np.isfinite(obj_best):
@@ -711,31 +806,34 @@ def fit_traverse(
     # --- posterior -----------------------------------------------------------
     n_walkers = max(n_walkers, 2 * k_free + 2)
     n_walkers += n_walkers % 2
-    burn_in = n_steps // 5
+    burn_in = int(n_steps * BURN_FRACTION)
+    u_best = prob.to_sampler(theta_best)[0]
+    u_lower, u_upper = prob.sampler_bounds()
     chain = run_ensemble(
-        prob.log_prob,
-        theta_best,
-        lower,
-        upper,
+        prob.log_prob_sampler,
+        u_best,
+        u_lower,
+        u_upper,
         n_walkers=n_walkers,
         n_steps=n_steps,
         burn_in=burn_in,
         seed=seed,
-        covariance=_laplace_covariance(prob, theta_best),
+        covariance=_laplace_covariance(prob, u_best),
         progress=progress,
     )
-    samples = chain.thinned
+    samples = prob.from_sampler(chain.thinned)
+    flat = prob.from_sampler(chain.flat)
     short = [
         n
         for n, e, t in zip(free_names, chain.ess, chain.tau, strict=True)
         if e < MIN_ESS or (n_steps - burn_in) < MIN_TAU_MULTIPLE * t
     ]
     if short:
-        need = int(np.ceil(max(
+        post_needed = max(
             MIN_TAU_MULTIPLE * float(np.max(chain.tau)),
             MIN_ESS * float(np.max(chain.tau)) / n_walkers,
-        ) * 1.25 + burn_in))
-        need = int(np.ceil(need / 500.0) * 500)
+        )
+        need = int(np.ceil(1.25 * post_needed / (1.0 - BURN_FRACTION) / 100.0) * 100)
         warn_list.append(
             f"posterior chain too short for {', '.join(short)} (effective sample size "
             f"{float(np.min(chain.ess)):.0f}, autocorrelation time "
@@ -747,7 +845,6 @@ def fit_traverse(
 
     # --- estimates -----------------------------------------------------------
     rng = np.random.default_rng(seed + 1)
-    flat = chain.flat
     estimates: dict[str, Estimate] = {}
     for j, name in enumerate(free_names):
         estimates[name] = _estimate(
@@ -778,10 +875,10 @@ def fit_traverse(
     bound_theta[:, j_ratio] = ratio_bounds[:, 0]
     parent_bounds = _parent(prob, bound_theta)
     ratio_est = estimates[ratio_name]
-    for key, name, unit in (
-        ("melt_oxide", oxide_name, "wt%"),
-        ("temperature_c", "temperature_c", "°C"),
-    ):
+    derived = [("melt_oxide", oxide_name, "wt%")]
+    if mineral == "olivine":  # plagioclase temperature is an input, not derived
+        derived.append(("temperature_c", "temperature_c", "°C"))
+    for key, name, unit in derived:
         best_v = float(parent_best[key][0])
         if not np.isfinite(best_v):
             continue
@@ -867,6 +964,21 @@ def fit_traverse(
         )
     if robust:
         warn_list.append("robust (soft-L1) loss used: stray spots are down-weighted.")
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        model.profile(d, radius, strict=False, **prob.params(theta_best[None, :]))
+    for w in caught:
+        if issubclass(w.category, CalibrationRangeWarning):
+            text = str(w.message)
+            if text not in warn_list:
+                warn_list.append(text)
+                warnings.warn(f"traverse {traverse.name!r}: {text}", CalibrationRangeWarning,
+                              stacklevel=2)
+    if skipped:
+        warn_list.append(
+            f"{', '.join(skipped)} not fitted: the plagioclase partitioning laws need a "
+            "temperature (--temperature-c)."
+        )
 
     diagnostics = {
         "acceptance_fraction": chain.acceptance_fraction,
@@ -900,6 +1012,7 @@ def fit_traverse(
         "trace_sigma_wt": {c[0]: float(c[5][0]) for c in chosen},
         "include_flagged": bool(include_flagged),
         "robust": bool(robust),
+        "temperature_c": float("nan") if temperature_c is None else float(temperature_c),
         "seed": int(seed),
         "n_walkers": int(n_walkers),
         "n_steps": int(n_steps),
@@ -930,15 +1043,14 @@ def fit_traverse(
     )
 
 
-def _laplace_covariance(prob: _Problem, theta: np.ndarray) -> np.ndarray:
-    """Covariance (J^T J)^-1 of the normalized residuals at the best fit."""
-    steps = 1e-6 * (prob.upper - prob.lower)
-    direction = np.where(theta + steps <= prob.upper, 1.0, -1.0)
+def _laplace_covariance(prob: _Problem, u: np.ndarray) -> np.ndarray:
+    """Covariance (J^T J)^-1 at the best fit, in sampler coordinates ``u``."""
+    lo, hi = prob.sampler_bounds()
+    steps = 1e-6 * (hi - lo)
+    direction = np.where(u + steps <= hi, 1.0, -1.0)
     h = steps * direction
-    batch = np.vstack([theta, theta + np.diag(h)])
-    with np.errstate(all="ignore"), warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        z = prob.residuals(prob.params(batch), batch.shape[0])
+    batch = prob.from_sampler(np.vstack([u, u + np.diag(h)]))
+    z = prob.residuals(prob.params(batch), batch.shape[0])
     jac = (z[1:] - z[0]) / h[:, None]
     return np.linalg.pinv(jac @ jac.T)
 
@@ -975,7 +1087,7 @@ def _parent(prob: _Problem, theta: np.ndarray) -> dict:
     params["f_core"] = np.zeros(theta.shape[0]) if "f_core" in params else 0.0
     with np.errstate(all="ignore"), warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        out = prob.model.path(np.array([0.0]), **params)
+        out = prob.model.path(np.array([0.0]), strict=False, **params)
     m = theta.shape[0]
     key = "melt_mgo_wt" if "melt_mgo_wt" in out else "melt_cao_wt"
     oxide = np.reshape(out[key], (m, -1))[:, 0]

@@ -33,8 +33,19 @@ MIN_TAU_MULTIPLE = 50.0
 #: Relative size of the ball of starting walkers around the best fit
 #: (fraction of each parameter's prior range).
 BALL_FRACTION = 1e-3
+#: Scale of the Gaussian proposal, 2.38 / sqrt(p) times the posterior sd
+#: (optimal random-walk Metropolis scaling, Gelman, Roberts & Gilks 1996).
+PROPOSAL_SCALE = 2.38
+#: Share of production steps made by the Gaussian random-walk Metropolis
+#: move, by differential-evolution moves, and (the rest) by the Student-t
+#: independence move.
+GAUSSIAN_SHARE = 0.3
+DE_SHARE = 0.1
+#: Degrees of freedom and widening of the Student-t independence proposal.
+T_DOF = 5.0
+T_WIDEN = 1.2
 #: Shrink factor of the Laplace-shaped starting ball.
-BALL_SHRINK = 0.1
+BALL_SHRINK = 1.0
 
 
 @dataclass(frozen=True, eq=False)
@@ -149,19 +160,45 @@ def run_ensemble(
     n_par = lower.size
     rng = np.random.default_rng(seed)
     start = _start_ball(best, lower, upper, n_walkers, rng, covariance)
-    # Differential-evolution moves mix faster than the default stretch move
-    # on these strongly correlated posteriors (emcee documentation: "moves").
-    moves = [(emcee.moves.DEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)]
-    sampler = emcee.EnsembleSampler(
+
+    def seeded(sampler):
+        # emcee keeps its own legacy RandomState; seed it from our generator
+        # so that the same seed always gives the same chain.
+        sampler.random_state = np.random.RandomState(
+            int(rng.integers(0, 2**31 - 1))
+        ).get_state()
+        return sampler
+
+    # Burn-in: differential-evolution moves, which adapt to the posterior's
+    # shape through the ensemble itself (emcee documentation: "moves").
+    burn = seeded(emcee.EnsembleSampler(
+        n_walkers, n_par, log_prob, vectorize=True,
+        moves=[(emcee.moves.DEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)],
+    ))
+    state = burn.run_mcmc(start, burn_in, progress=progress) if burn_in > 0 else start
+    # Production: Metropolis steps with a Gaussian proposal shaped by the
+    # covariance of the second half of the burn-in (scaled by 2.38^2/p,
+    # Gelman, Roberts & Gilks 1996), mixed with differential-evolution steps.
+    # The proposal is fixed during production, so the chain is a valid MCMC.
+    moves = [(emcee.moves.DEMove(), 1.0)]
+    if burn_in >= 20:
+        tail = burn.get_chain(discard=burn_in // 2).reshape(-1, n_par)
+        cov = np.atleast_2d(np.cov(tail, rowvar=False))
+        if np.all(np.isfinite(cov)) and np.all(np.linalg.eigvalsh(cov) > 0):
+            try:
+                independence = _independence_move(tail.mean(axis=0), cov)
+            except np.linalg.LinAlgError:
+                independence = emcee.moves.GaussianMove(cov * PROPOSAL_SCALE**2 / n_par)
+            moves = [
+                (emcee.moves.GaussianMove(cov * PROPOSAL_SCALE**2 / n_par), GAUSSIAN_SHARE),
+                (emcee.moves.DEMove(), DE_SHARE),
+                (independence, 1.0 - GAUSSIAN_SHARE - DE_SHARE),
+            ]
+    sampler = seeded(emcee.EnsembleSampler(
         n_walkers, n_par, log_prob, vectorize=True, moves=moves
-    )
-    # emcee keeps its own legacy RandomState; seed it from our generator so
-    # that the same seed always gives the same chain.
-    sampler.random_state = np.random.RandomState(
-        int(rng.integers(0, 2**31 - 1))
-    ).get_state()
-    sampler.run_mcmc(start, n_steps, progress=progress)
-    chain = sampler.get_chain(discard=burn_in)  # (steps, walkers, p)
+    ))
+    sampler.run_mcmc(state, n_steps - burn_in, progress=progress)
+    chain = sampler.get_chain()  # (steps, walkers, p)
     tau = emcee.autocorr.integrated_time(chain, c=5, tol=0, quiet=True)
     tau = np.maximum(np.asarray(tau, dtype=float), 1.0)
     n_kept = chain.shape[0]
@@ -180,6 +217,33 @@ def run_ensemble(
         burn_in=int(burn_in),
         thin=thin,
     )
+
+
+def _independence_move(mean, cov):
+    """Metropolis-Hastings independence move with a Student-t proposal.
+
+    Proposals are drawn from a multivariate t distribution (``T_DOF``
+    degrees of freedom, covariance ``cov`` widened by ``T_WIDEN``) centred on
+    ``mean``, independently of the current walker; the Hastings ratio
+    q(x) / q(x') keeps the posterior invariant. Near-Gaussian posteriors are
+    then sampled with autocorrelation times of a few steps.
+    """
+    from scipy import stats
+
+    # Work on standardized variables (the parameters differ in scale by
+    # orders of magnitude); the constant Jacobian cancels in the ratio.
+    sd = np.sqrt(np.diag(cov))
+    corr = cov / np.outer(sd, sd)
+    dist = stats.multivariate_t(
+        loc=np.zeros(mean.size), shape=corr * T_WIDEN**2, df=T_DOF
+    )
+
+    def proposal(x0, random):
+        z1 = dist.rvs(size=x0.shape[0], random_state=random).reshape(x0.shape)
+        z0 = (x0 - mean) / sd
+        return mean + sd * z1, dist.logpdf(z0) - dist.logpdf(z1)
+
+    return emcee.moves.MHMove(proposal)
 
 
 def _piled_at(x, edge, width, densest):
