@@ -175,7 +175,7 @@ def split_unit(normalised: str) -> tuple[str, str]:
     if m and m.group("base"):
         base, unit = m.group("base"), m.group("unit")
         # "FeO(T)" and "FeO (tot)" mark total iron, not a unit.
-        if unit.strip() in ("t", "tot", "total"):
+        if unit.strip() in ("t", "tot", "tot.", "total"):
             return h.replace(" ", ""), ""
         return base.strip(), _canonical_unit(unit)
     m = _SUFFIX_UNIT.match(h)
@@ -192,7 +192,7 @@ def split_unit(normalised: str) -> tuple[str, str]:
 
 _OXIDE_RE = re.compile(
     r"^(?P<ox>sio2|tio2|al2o3|cr2o3|fe2o3|feo|mno|mgo|nio|cao|na2o|k2o|sro|bao|p2o5)"
-    r"(?P<tot>\s*(\*|\(t\)|\(tot\)|\(total\)|t|tot|total|\s+t|\s+tot|\s+total))?$"
+    r"(?P<tot>\s*[-_]?\s*(\*|\(t\)|\(tot\.?\)|\(total\)|t|tot\.?|total))?$"
 )
 _ELEMENT_RE = re.compile(r"^(si|ti|al|cr|fe|mn|mg|ni|ca|na|k|sr|ba|p|o)$")
 _REPORTED_RE = re.compile(r"^(fo|fa|an|ab|or|mg#|mg ?number|ca#|xfo|xan)$")
@@ -210,7 +210,7 @@ _X_RE = re.compile(r"^(?:stage\s*)?x(?:\s*-?\s*(?:stage|pos\.?|position|coord\.?
 _Y_RE = re.compile(r"^(?:stage\s*)?y(?:\s*-?\s*(?:stage|pos\.?|position|coord\.?|coordinate))?$")
 _Z_RE = re.compile(r"^(?:stage\s*)?z(?:\s*-?\s*(?:stage|pos\.?|position|coord\.?|coordinate))?$")
 _POINT_RE = re.compile(
-    r"^(?:point|pt|spot|no|nr|n°|#|number|num)\.?$"
+    r"^(?:point|pt|spot|no|nr|n°|#|number|num|dataset\s*/\s*point)\.?$"
     r"|^(?:point|spot|analysis|pt)\s*(?:no\.?|nr\.?|#|number|num\.?|id)$"
 )
 _LABEL_RE = re.compile(

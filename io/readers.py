@@ -190,7 +190,13 @@ def read_export(
         )
     if p.is_dir():
         raise ProfileFormatError(f"{source}: is a folder, expected an export file.")
-    raw = p.read_bytes()
+    try:
+        raw = p.read_bytes()
+    except OSError as err:
+        raise ProfileFormatError(
+            f"{source}: cannot be read ({err.strerror or err}); check that the file exists "
+            "and that you may read it."
+        ) from err
     if not raw.strip():
         raise ProfileFormatError(
             f"{source}: the file is empty; expected a header line and one row per spot. "
