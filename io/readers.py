@@ -511,6 +511,15 @@ def _find_header(lines_or_cells, source: str, user_map: dict[str, str], *,
             f"line that looks most like a header (line {line_numbers[i]}) has {shown}. "
             "Use the header texts exactly as in the file."
         )
+    if not delimiter_known:
+        for j, line in enumerate(lines_or_cells[:_HEADER_SEARCH_LINES]):
+            if _score(line.split())[0] >= MIN_RECOGNISED:
+                raise ProfileFormatError(
+                    f"{source}: line {line_numbers[j]} looks like a header with columns "
+                    "separated by spaces; only comma, semicolon and tab separated text (or "
+                    ".xlsx) is read, because spaces inside comments would shift the numbers. "
+                    "Save the export as CSV or tab-separated text."
+                )
     raise ProfileFormatError(
         f"{source}: no header line found (no line in the first {_HEADER_SEARCH_LINES} has "
         f"{MIN_RECOGNISED} or more recognised column names such as SiO2, MgO, FeO, Point, "
@@ -947,6 +956,12 @@ def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
     for key in ("fo_sigma", "an_sigma"):
         if key in used:
             parse(key, key, used[key][1].scale, "")
+    if oxide_keys:
+        no_oxide = np.ones(n, dtype=bool)
+        for key in oxide_keys:
+            no_oxide &= np.isnan(out[key]) & (S[:, used[key][0]] == "")
+        for i in np.flatnonzero(no_oxide & ~hdr_rows & ~is_summary):
+            flags.add(i, "no oxide values in this row")
     if minority_total:
         own, other = ("point", "comma") if decimal == "." else ("comma", "point")
         notes.append(f"{minority_total} cell(s) written with a decimal {other} although the "

@@ -633,3 +633,22 @@ def test_xlsx_blank_rows_keep_sheet_row_numbers(tmp_path):
     assert t.data["point"].tolist() == ["1", "2"]
     assert_allclose(t.data["MgO"], [49.42, 43.58], rtol=RTOL_IDENTITY)
     assert "SiO2: 1 below detection (NaN)" in t.notes
+
+
+def test_footer_and_excel_separator_lines(tmp_path):
+    path = tmp_path / "sep.csv"
+    path.write_text("sep=;\nPoint;SiO2;FeO;MgO\n1;40,81;9,55;49,42\n\nEnd of data\n",
+                    encoding="utf-8")
+    t = only(read_export(path))
+    assert t.data["row"].tolist() == [3, 5]
+    assert t.data["point"].tolist() == ["1", "End of data"]
+    assert t.data["read_flags"].tolist() == [
+        "", "row has only 1 of 4 fields; no oxide values in this row"]
+
+
+def test_space_separated_export_gets_a_specific_error(tmp_path):
+    path = tmp_path / "sp.txt"
+    path.write_text("Point   SiO2    FeO     MgO\n1       40.81   9.55    49.42\n",
+                    encoding="utf-8")
+    with pytest.raises(ProfileFormatError, match="separated by spaces"):
+        read_export(path)
