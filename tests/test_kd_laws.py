@@ -13,6 +13,7 @@ from zoning.kd_laws import (
     toplis_2005_kd,
     toplis_silica_activity_term,
 )
+from zoning.redox import MOLAR_MASS
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from _tolerances import RTOL_IDENTITY  # noqa: E402
@@ -73,7 +74,7 @@ def test_liquidus_kd_is_self_consistent(law):
     res = liquidus_olivine_kd(BASALT, law, temperature_c=1200.0, fe3_fraction=0.1)
     # Olivine recorded at F = 0 satisfies Fo = 1/(1 + K_D (1/Mg# - 1))
     # (definition of K_D, Roeder & Emslie 1970).
-    mg = (8.0 / 40.3044) / (8.0 / 40.3044 + 9.0 / 71.8444)
+    mg = (8.0 / MOLAR_MASS["MgO"]) / (8.0 / MOLAR_MASS["MgO"] + 9.0 / MOLAR_MASS["FeO"])
     assert res.fo == pytest.approx(100 / (1 + res.kd * (1 / mg - 1)), rel=1e-10)
     if law == "toplis_2005":
         expected = toplis_2005_kd(BASALT, 1200.0, res.fo / 100)

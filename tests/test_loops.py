@@ -16,6 +16,7 @@ from zoning.loops import (
     LoopModel,
     loop_path,
 )
+from zoning.redox import MOLAR_MASS
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from _tolerances import ATOL_MASS_BALANCE, RTOL_IDENTITY  # noqa: E402
@@ -265,10 +266,11 @@ def test_loop_path_keys_and_melt_oxides():
     out = loop_path("olivine", np.array([0.0, 0.5]), melt_mg_number=0.6, retention=0.0)
     assert set(out) == {"f", "crystal", "melt_ratio", "melt_mgo_wt", "melt_feo_wt",
                         "temperature_c"}
-    # Pure Mg2SiO4-Fe2SiO4 melt at X = 0.6: MgO = 2*0.6*40.3044 / (molar mass) (hand).
-    mass = 2 * 0.6 * 40.3044 + 2 * 0.4 * 71.8444 + 60.0843
-    assert out["melt_mgo_wt"][0] == pytest.approx(100 * 2 * 0.6 * 40.3044 / mass, rel=1e-6)
-    assert out["melt_feo_wt"][0] == pytest.approx(100 * 2 * 0.4 * 71.8444 / mass, rel=1e-6)
+    # Pure Mg2SiO4-Fe2SiO4 melt at X = 0.6: MgO = 2*0.6*M(MgO) / (molar mass) (hand).
+    mgo, feo, sio2 = MOLAR_MASS["MgO"], MOLAR_MASS["FeO"], MOLAR_MASS["SiO2"]
+    mass = 2 * 0.6 * mgo + 2 * 0.4 * feo + sio2
+    assert out["melt_mgo_wt"][0] == pytest.approx(100 * 2 * 0.6 * mgo / mass, rel=1e-12)
+    assert out["melt_feo_wt"][0] == pytest.approx(100 * 2 * 0.4 * feo / mass, rel=1e-12)
     pl = loop_path("plagioclase", np.array([0.0]), melt_ca_number=0.5)
     assert set(pl) >= {"melt_cao_wt", "melt_na2o_wt"}
     # An50 melt (hand): CaO 0.5*56.0774, Na2O 0.25*61.9789 per (0.5 An + 0.5 Ab).

@@ -56,6 +56,7 @@ from collections.abc import Mapping
 import numpy as np
 
 from zoning.exceptions import CalibrationRangeWarning, ModelDomainError
+from zoning.oxides import ATOMIC_WEIGHTS, CANONICAL_OXIDES, molar_mass
 
 __all__ = [
     "MOLAR_MASS",
@@ -65,23 +66,10 @@ __all__ = [
     "fe3_fraction_kress_carmichael",
 ]
 
-#: Molar masses of oxides [g/mol] from IUPAC standard atomic weights.
-MOLAR_MASS = {
-    "SiO2": 60.0843,
-    "TiO2": 79.8658,
-    "Al2O3": 101.9613,
-    "Cr2O3": 151.9904,
-    "FeO": 71.8444,
-    "Fe2O3": 159.6882,
-    "MnO": 70.9374,
-    "MgO": 40.3044,
-    "NiO": 74.6928,
-    "CaO": 56.0774,
-    "Na2O": 61.9789,
-    "K2O": 94.1960,
-    "P2O5": 141.9445,
-    "H2O": 18.0153,
-}
+#: Molar masses of oxides [g/mol]: the package oxide table (IUPAC/CIAAW 2021
+#: standard atomic weights) plus H2O (H 1.008, IUPAC conventional value).
+MOLAR_MASS = {name: molar_mass(name) for name in CANONICAL_OXIDES}
+MOLAR_MASS["H2O"] = 2 * 1.008 + ATOMIC_WEIGHTS["O"]
 
 #: Oxides accepted in a melt analysis (``FeOt`` = total iron as FeO).
 _MELT_KEYS = (*MOLAR_MASS, "FeOt")
