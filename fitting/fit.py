@@ -846,9 +846,14 @@ def fit_traverse(
     # --- estimates -----------------------------------------------------------
     rng = np.random.default_rng(seed + 1)
     estimates: dict[str, Estimate] = {}
+    # The reachable F is capped by the parent melt (olivine alone uses up the
+    # melt's MgO and FeO): the prior range of f_rim ends there.
+    draw_rows = flat[rng.choice(flat.shape[0], size=min(2000, flat.shape[0]), replace=False)]
+    f_reach = float(np.nanmax(_max_fraction(prob, np.vstack([theta_best, draw_rows]))))
     for j, name in enumerate(free_names):
+        hi_j = min(upper[j], f_reach) if name == "f_rim" and np.isfinite(f_reach) else upper[j]
         estimates[name] = _estimate(
-            name, specs[name].unit, theta_best[j], flat[:, j], lower[j], upper[j]
+            name, specs[name].unit, theta_best[j], flat[:, j], lower[j], hi_j
         )
     for name, value in prob.fixed.items():
         if name in (ratio_name, "f_rim", "retention", "kd"):
