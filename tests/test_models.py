@@ -355,3 +355,54 @@ def test_initial_guess_recovers_synthetic_parameters_roughly():
     assert guess["melt_mg_number"] == pytest.approx(0.62, abs=0.01)
     assert guess["f_rim"] == pytest.approx(0.12, abs=0.05)
     assert guess["melt0_ni_ppm"] == pytest.approx(300.0, rel=0.1)
+
+
+@pytest.mark.parametrize("r", [0.0, 0.45, 1.0])
+def test_assemblage_integrator_reproduces_fast_path(r):
+    # The general RK4 integrator with the analysed mineral alone against the
+    # semi-analytic path (two independent numerical routes).
+    model = CrystallizationModel("olivine", BASALT, traces=("Ni",))
+    p, _, _ = model._params({"retention": r})
+    f = np.broadcast_to(np.linspace(0, 0.15, 25), (1, 25))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", CalibrationRangeWarning)
+        fast = model._evaluate(f, p, strict=True, stacklevel=2)
+        y0 = p["melt_mg_number"]
+        a0, b0, _ = model.initial_state(y0)
+        slow = model._evaluate_assemblage(f, p, y0, model.law.kernel_k(p["kd"]), p["retention"],
+                                          a0, b0, strict=True, stacklevel=2)
+    assert_allclose(slow["crystal"], fast["crystal"], atol=1e-4)
+    assert_allclose(slow["melt_mgo_wt"], fast["melt_mgo_wt"], rtol=1e-6)
+    assert_allclose(slow["melt_ni_ppm"], fast["melt_ni_ppm"], rtol=RTOL_TRACE)
+
+
+def test_assemblage_trace_with_equal_d_is_rayleigh():
+    # Every mineral takes the trace with the same constant D and r = 0: the melt
+    # follows Rayleigh (1896) fractionation C_L/C0 = (1-F)^(D-1) exactly.
+    model = CrystallizationModel(
+        "plagioclase", BASALT, trace_d={"Ba": 0.3},
+        assemblage={"plagioclase": 0.5, "clinopyroxene": 0.5},
+        assemblage_d={"clinopyroxene": {"Ba": 0.3}},
+    )
+    f = np.linspace(0, 0.6, 13)
+    out = model.path(f, retention=0.0, melt0_ba_ppm=200.0)
+    assert_allclose(out["melt_ba_ppm"], 200 * retention_closed_form(f, 0.3, 0.0), rtol=1e-6)
+
+
+def test_assemblage_dilutes_the_exchange():
+    # With plagioclase and clinopyroxene taking little Mg and Fe, olivine zoning
+    # at a given F is weaker than when olivine crystallizes alone.
+    alone = CrystallizationModel("olivine", BASALT)
+    mix = CrystallizationModel("olivine", BASALT,
+                               assemblage={"olivine": 0.2, "plagioclase": 0.8})
+    a = alone.path([0.15])["crystal"]
+    b = mix.path([0.15])["crystal"]
+    assert b > a
+
+
+def test_assemblage_needs_the_analysed_mineral_and_known_d():
+    with pytest.raises(ModelDomainError, match="must contain the analysed mineral"):
+        CrystallizationModel("olivine", BASALT, assemblage={"clinopyroxene": 1.0})
+    with pytest.raises(ModelDomainError, match="no partition coefficient of Co"):
+        CrystallizationModel("olivine", BASALT, trace_d={"Co": 2.0},
+                             assemblage={"olivine": 0.5, "clinopyroxene": 0.5})

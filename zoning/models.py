@@ -54,6 +54,7 @@ from zoning import geometry as _geometry
 from zoning import kernels as _kernels
 from zoning.exceptions import ModelDomainError
 from zoning.partitioning import (
+    ASSEMBLAGE_D_DEFAULTS,
     EXCHANGE_LAWS,
     OXIDE_MOLAR_MASS,
     TraceLaw,
@@ -323,6 +324,19 @@ class CrystallizationModel(_ModelBase):
     trace_d : mapping of str to float, optional
         Constant crystal/melt partition coefficients (wt basis) of trace
         elements; also overrides the law of "Ni", "Sr" or "Mg".
+    assemblage : mapping of str to float, optional
+        Mass proportions of the crystallizing minerals, including the
+        analysed one, e.g. ``{"plagioclase": 0.6, "clinopyroxene": 0.3,
+        "olivine": 0.1}`` (normalised to sum 1). Default: the analysed
+        mineral alone (fast semi-analytic path); otherwise a fixed-step RK4
+        integration (:func:`zoning.kernels.assemblage_path`), about a
+        hundred times slower.
+    assemblage_d : mapping of str to mapping, optional
+        Constant crystal/melt partition coefficients (oxide or element wt
+        ratio) of the *other* minerals for the tracked components (MgO, FeO
+        or CaO, Na2O, and each trace element), overriding
+        :data:`zoning.partitioning.ASSEMBLAGE_D_DEFAULTS` (typical basaltic
+        values, from memory).
     geometry : {"sphere", "cylinder", "slab"}
         Growth geometry; sets the default growth exponent (3, 2, 1).
     beam_um : float, optional
@@ -382,6 +396,8 @@ class CrystallizationModel(_ModelBase):
         fe3_fraction: float = 0.10,
         traces: Sequence[str] = (),
         trace_d: Mapping[str, float] | None = None,
+        assemblage: Mapping[str, float] | None = None,
+        assemblage_d: Mapping[str, Mapping[str, float]] | None = None,
         geometry: str = "sphere",
         beam_um: float = 0.0,
         section_offset_um: float = 0.0,
@@ -437,8 +453,60 @@ class CrystallizationModel(_ModelBase):
         self.kd = law.kd_default if kd is None else _check_scalar(
             "kd", kd, law.kd_bounds[0], law.kd_bounds[1], "[1]"
         )
+        self._setup_assemblage(assemblage, assemblage_d)
         self.parameters = self._make_parameters()
         self._crystal_keys = ("crystal",) + tuple(t.crystal_key for t in self.traces)
+
+    def _setup_assemblage(self, assemblage, assemblage_d) -> None:
+        """Validate the assemblage; store the shares and mass-weighted D of the others."""
+        law = self.law
+        if assemblage is None:
+            assemblage = {self.mineral: 1.0}
+        if not isinstance(assemblage, Mapping) or not assemblage:
+            raise ModelDomainError(
+                f"assemblage must be a mapping of mineral to mass proportion, e.g. "
+                f"{{'{self.mineral}': 0.3, 'clinopyroxene': 0.7}}; got {assemblage!r}."
+            )
+        props = {}
+        for name, value in assemblage.items():
+            v = _check_scalar(f"assemblage[{name!r}]", value, 0.0, 1e6, "[mass proportion]")
+            props[str(name)] = v
+        total = sum(props.values())
+        if self.mineral not in props or props[self.mineral] <= 0 or total <= 0:
+            raise ModelDomainError(
+                f"the assemblage must contain the analysed mineral {self.mineral!r} with a "
+                f"positive proportion; got {assemblage!r}. Add it, e.g. "
+                f"{{'{self.mineral}': 0.5, ...}}."
+            )
+        props = {k: v / total for k, v in props.items()}
+        user_d = {str(k): dict(v) for k, v in (assemblage_d or {}).items()}
+        needed = [law.compatible_oxide, law.other_oxide]
+        trace_comp = []
+        for tr in self.traces:
+            trace_comp.append("MgO" if tr.parameter == "melt0_mgo_wt" else tr.element)
+        d_other = {c: 0.0 for c in needed + trace_comp}
+        for name, share in props.items():
+            if name == self.mineral:
+                continue
+            table = dict(ASSEMBLAGE_D_DEFAULTS.get(name, {}))
+            table.update(user_d.get(name, {}))
+            for comp in d_other:
+                if comp not in table:
+                    raise ModelDomainError(
+                        f"no partition coefficient of {comp} for {name!r} in the assemblage; "
+                        f"known minerals {sorted(ASSEMBLAGE_D_DEFAULTS)}. Give it with "
+                        f"assemblage_d={{'{name}': {{'{comp}': D}}}}."
+                    )
+                d = _check_scalar(f"assemblage_d[{name!r}][{comp!r}]", table[comp], 0.0, 1e4,
+                                  "[1]")
+                d_other[comp] += share * d
+        w_an = props[self.mineral]
+        w_o = 1.0 - w_an
+        self.assemblage = props
+        self._w_an = w_an
+        self._d_other = {c: (v / w_o if w_o > 0 else 0.0) for c, v in d_other.items()}
+        self._trace_components = tuple(trace_comp)
+        self._fast = w_o <= 0.0
 
     # ------------------------------------------------------------ parameters
     def _ratio_from_melt(self) -> float:
@@ -539,7 +607,10 @@ class CrystallizationModel(_ModelBase):
         y0 = p[law.ratio_name]
         r = p["retention"]
         k = law.kernel_k(p["kd"])
-        a0, _, s0 = self.initial_state(y0)
+        a0, b0, s0 = self.initial_state(y0)
+        if not self._fast:
+            return self._evaluate_assemblage(f, p, y0, k, r, a0, b0, strict=strict,
+                                             stacklevel=stacklevel + 1)
         fmax = _kernels.exhaustion_fraction(y0, s0, law.sites, law.molar_mass_a, law.molar_mass_b)
         limit = fmax * (1.0 - 1e-9)
         beyond = f >= limit
@@ -583,6 +654,60 @@ class CrystallizationModel(_ModelBase):
             out["f"] = np.where(beyond, np.nan, out["f"])
         return out
 
+    def _outputs(self, f, y, k, a_l, b_l, melt_mass):
+        law = self.law
+        ox_a = a_l / law.cations_per_oxide_a * OXIDE_MOLAR_MASS[law.compatible_oxide]
+        ox_b = b_l / law.cations_per_oxide_b * OXIDE_MOLAR_MASS[law.other_oxide]
+        out = {
+            "f": f.copy(),
+            "crystal": 100.0 * equilibrium_crystal(y, k),
+            "melt_ratio": y,
+            f"melt_{law.compatible_oxide.lower()}_wt": 100.0 * ox_a / melt_mass,
+            f"melt_{law.other_oxide.lower()}_wt": 100.0 * ox_b / melt_mass,
+        }
+        if self.mineral == "olivine":
+            out["temperature_c"] = 20.1 * out["melt_mgo_wt"] + 1014.0
+        else:
+            out["temperature_c"] = np.full_like(f, self.temperature_c)
+        return out
+
+    def _evaluate_assemblage(self, f, p, y0, k, r, a0, b0, *, strict, stacklevel):
+        law = self.law
+        temp = self.temperature_c
+        mgo_factor = 100.0 * OXIDE_MOLAR_MASS["MgO"] / law.cations_per_oxide_a
+        olivine = self.mineral == "olivine"
+        laws = []
+        for tr in self.traces:
+            def law_fn(y, a, melt, x, tr=tr):
+                return tr.partition(mgo_factor * a / melt if olivine else None, x, temp)
+            laws.append(law_fn)
+        res = _kernels.assemblage_path(
+            f, y0, k, r, a0, b0, law.sites, law.molar_mass_a, law.molar_mass_b, self._w_an,
+            self._d_other[law.compatible_oxide], self._d_other[law.other_oxide],
+            trace_laws=laws, trace_d_other=[self._d_other[c] for c in self._trace_components],
+        )
+        beyond = f > res["f_reached"] * (1.0 - 1e-9) + 1e-15
+        beyond &= f > 0
+        if np.any(beyond) and strict:
+            i, j = np.argwhere(beyond)[0]
+            raise ModelDomainError(
+                f"crystallized fraction {f[i, j]:.4g} cannot be reached with the assemblage "
+                f"{self.assemblage}: the melt's {law.compatible_oxide} or {law.other_oxide} "
+                f"is used up at F = {res['f_reached'][i, 0]:.4g} (parameter set {i}). Lower "
+                f"f_rim or change the assemblage."
+            )
+        out = self._outputs(f, res["y"], k, res["a"], res["b"], res["melt_mass"])
+        x_pt = out["crystal"] / 100.0
+        for q, tr in enumerate(self.traces):
+            melt_c = p[tr.parameter] * np.exp(res["trace_ln"][..., q])
+            tr.check_range(out.get("melt_mgo_wt"), x_pt, stacklevel=stacklevel + 1)
+            out[tr.melt_key] = melt_c
+            out[tr.crystal_key] = res["trace_d"][..., q] * melt_c * tr.crystal_factor
+        if np.any(beyond):
+            for key in out:
+                out[key] = np.where(beyond, np.nan, out[key])
+        return out
+
     def _traces(self, out, path, p, s0, r, f, stacklevel):
         law = self.law
         temp = self.temperature_c
@@ -592,8 +717,7 @@ class CrystallizationModel(_ModelBase):
         mgo_factor = OXIDE_MOLAR_MASS["MgO"] / law.cations_per_oxide_a
 
         def melt_mgo(y, t, fr):
-            s0b = s0.reshape(s0.shape + (1,) * (np.ndim(y) - 2))
-            return 100.0 * mgo_factor * y * s0b * (1.0 - t) / (100.0 * (1.0 - fr))
+            return mgo_factor * y * s0 * (1.0 - t) / (1.0 - fr)
 
         for tr in self.traces:
             def law_fn(y, t, x, fr, tr=tr):

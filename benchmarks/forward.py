@@ -1,0 +1,168 @@
+"""Speed and accuracy of the forward crystallization model.
+
+Run: ``python benchmarks/forward.py [--batches N] [--seed S]``
+
+Measures, on the same batches of 64 parameter sets (olivine Fe-Mg exchange
+with Ni after Hart & Davis 1978, retention r drawn uniformly in 0-1), the
+time to evaluate 60-spot core-to-rim profiles with
+
+* ours: ``CrystallizationModel.profile`` (semi-analytic kernel);
+* (a) the constant-partition-coefficient closed form through the same
+  interface (``ConstantPartitionModel.profile``);
+* (b) a straightforward ``scipy.integrate.solve_ivp`` integration, per
+  parameter set, of the same mass balance (state t, y and the exchanging Ni
+  total as functions of F; RK45, rtol 1e-8, atol 1e-12).
+
+It also prints the integration error of ours (and of b) against a fine
+reference (DOP853, rtol 1e-12) in mol% Fo and relative Ni. Times are CPU times
+(``time.process_time``), so that other load on the machine affects them less.
+The last line reads
+``forward: speedup_vs_solve_ivp=<b time / ours> closed_form_ratio=<ours / a time>``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import time
+import warnings
+
+import numpy as np
+from scipy.integrate import solve_ivp
+
+from zoning import CalibrationRangeWarning, ConstantPartitionModel, CrystallizationModel
+from zoning.geometry import fraction_from_distance
+from zoning.partitioning import OXIDE_MOLAR_MASS
+
+MELT = {"SiO2": 49.0, "MgO": 10.0, "FeO": 10.0, "CaO": 11.0, "Na2O": 2.3}
+N_SPOTS = 60
+BATCH = 64
+RADIUS_UM = 150.0
+
+
+def draw_batch(rng):
+    return {
+        "melt_mg_number": rng.uniform(0.55, 0.72, BATCH),
+        "f_rim": rng.uniform(0.04, 0.18, BATCH),
+        "retention": rng.uniform(0.0, 1.0, BATCH),
+        "kd": rng.uniform(0.27, 0.34, BATCH),
+        "melt0_ni_ppm": rng.uniform(150.0, 450.0, BATCH),
+    }
+
+
+def ivp_profile(model, f, params, rtol, atol, method="RK45"):
+    """Reference: integrate the mole/mass balance in F for one parameter set."""
+    law = model.law
+    y0 = params["melt_mg_number"]
+    k = params["kd"]
+    r = params["retention"]
+    _, _, s0 = model.initial_state(y0)
+    s, ma, mb = law.sites, law.molar_mass_a, law.molar_mass_b
+    c = s0 / (100.0 * s)
+    m_mgo = OXIDE_MOLAR_MASS["MgO"]
+
+    def rhs(fr, z):
+        t, y, total_ni = z
+        den = y + k * (1 - y)
+        x = y / den
+        fp = k / den**2
+        dydt = (y - x) / ((1 - t) + r * t * fp)
+        dfdt = c * (mb + (ma - mb) * (y - (1 - t) * dydt))
+        dtdf = 1.0 / dfdt
+        dydf = dydt * dtdf
+        mf = mb + (ma - mb) * x
+        dxdf = fp * dydf
+        dmret = r * (s0 / s) * (dtdf * mf + t * (ma - mb) * dxdf)
+        dmiso = 100.0 - dmret
+        mgo = 100.0 * y * s0 * (1 - t) * m_mgo / (100.0 * (1 - fr))
+        d = 124.0 / mgo - 0.9
+        w = 100.0 * (1 - fr) + d * r * (s0 / s) * t * mf
+        cl = total_ni / w
+        return [dtdf, dydf, -d * cl * dmiso]
+
+    order = np.argsort(f)
+    fs = f[order]
+    sol = solve_ivp(rhs, [0.0, fs[-1]], [0.0, y0, params["melt0_ni_ppm"] * 100.0],
+                    t_eval=fs, rtol=rtol, atol=atol, method=method)
+    t, y, total = sol.y
+    x = y / (y + k * (1 - y))
+    mf = mb + (ma - mb) * x
+    mgo = y * s0 * (1 - t) * m_mgo / (1 - fs)
+    d = 124.0 / mgo - 0.9
+    w = 100.0 * (1 - fs) + d * r * (s0 / s) * t * mf
+    fo = np.empty_like(fs)
+    ni = np.empty_like(fs)
+    fo[order] = 100 * x
+    ni[order] = total / w
+    return fo, ni
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--batches", type=int, default=20)
+    parser.add_argument("--ivp-batches", type=int, default=2)
+    parser.add_argument("--seed", type=int, default=20261202)
+    args = parser.parse_args(argv)
+    warnings.simplefilter("ignore", CalibrationRangeWarning)
+
+    rng = np.random.default_rng(args.seed)
+    model = CrystallizationModel("olivine", MELT, traces=("Ni",))
+    closed = ConstantPartitionModel("Ni")
+    x = np.linspace(0.0, RADIUS_UM, N_SPOTS)
+    batches = [draw_batch(rng) for _ in range(args.batches)]
+
+    def ours(b):
+        return model.profile(x, RADIUS_UM, **b)
+
+    def closed_form(b):
+        return closed.profile(x, RADIUS_UM, f_rim=b["f_rim"], retention=b["retention"],
+                              melt0=b["melt0_ni_ppm"], partition_coefficient=10.0)
+
+    ours(batches[0])
+    closed_form(batches[0])
+    t_ours, t_closed = [], []
+    for _ in range(5):  # interleaved repeats; median is robust to load
+        for b in batches:
+            t0 = time.process_time()
+            ours(b)
+            t1 = time.process_time()
+            closed_form(b)
+            t2 = time.process_time()
+            t_ours.append(t1 - t0)
+            t_closed.append(t2 - t1)
+    t_ours_batch = float(np.median(t_ours))
+    t_closed_batch = float(np.median(t_closed))
+
+    t_ivp = []
+    err_fo, err_ni, err_fo_ivp = 0.0, 0.0, 0.0
+    for b in batches[: args.ivp_batches]:
+        f = fraction_from_distance(x[None, :], RADIUS_UM, 0.0, b["f_rim"][:, None], 3.0)
+        t0 = time.process_time()
+        ivp = [ivp_profile(model, f[i], {k: v[i] for k, v in b.items()}, 1e-8, 1e-12)
+               for i in range(BATCH)]
+        t_ivp.append(time.process_time() - t0)
+        fine = [ivp_profile(model, f[i], {k: v[i] for k, v in b.items()}, 1e-12, 1e-14,
+                            "DOP853") for i in range(BATCH)]
+        out = ours(b)
+        for i in range(BATCH):
+            err_fo = max(err_fo, float(np.max(np.abs(out["crystal"][i] - fine[i][0]))))
+            err_ni = max(err_ni, float(np.max(np.abs(out["melt_ni_ppm"][i] / fine[i][1] - 1))))
+            err_fo_ivp = max(err_fo_ivp, float(np.max(np.abs(ivp[i][0] - fine[i][0]))))
+    t_ivp_batch = float(np.median(t_ivp))
+
+    print(f"batches of {BATCH} parameter sets, {N_SPOTS}-spot olivine profiles with Ni, "
+          f"r ~ U(0, 1)")
+    print(f"ours (semi-analytic kernel):     {t_ours_batch * 1e3:9.3f} ms/batch  "
+          f"{BATCH / t_ours_batch:12.0f} profiles/s")
+    print(f"(a) constant-D closed form:      {t_closed_batch * 1e3:9.3f} ms/batch  "
+          f"{BATCH / t_closed_batch:12.0f} profiles/s")
+    print(f"(b) solve_ivp per parameter set: {t_ivp_batch * 1e3:9.3f} ms/batch  "
+          f"{BATCH / t_ivp_batch:12.0f} profiles/s")
+    print(f"accuracy vs fine reference (DOP853 rtol 1e-12), {args.ivp_batches} batches: "
+          f"ours max |dFo| = {err_fo:.2e} mol%, max rel. Ni error = {err_ni:.2e}; "
+          f"(b) max |dFo| = {err_fo_ivp:.2e} mol%")
+    print(f"forward: speedup_vs_solve_ivp={t_ivp_batch / t_ours_batch:.1f} "
+          f"closed_form_ratio={t_ours_batch / t_closed_batch:.2f}")
+
+
+if __name__ == "__main__":
+    main()
