@@ -12,7 +12,7 @@ purpose. The Ferrolyn field, its samples and every number here are invented.
 
 Run from anywhere::
 
-    python demo_data/make_demo_data.py
+    python demo_data/make_demo_data.py [OUTPUT_FOLDER]
 """
 
 from __future__ import annotations
@@ -343,8 +343,13 @@ DEMO_WALKERS = 16
 DEMO_STEPS = 300
 
 
-def main() -> int:
-    OUT.mkdir(exist_ok=True)
+def main(argv: list[str] | None = None) -> int:
+    """Write every demo file into ``ferrolyn/`` (or the folder given as first argument)."""
+    global OUT
+    argv = sys.argv[1:] if argv is None else argv
+    if argv:
+        OUT = Path(argv[0])
+    OUT.mkdir(parents=True, exist_ok=True)
     for make in (make_ol1, make_ol2, make_ol3, make_frl03, make_pl1, make_pl2):
         make()
     (OUT / "project.toml").write_text(

@@ -896,10 +896,12 @@ def run_batch(
     folders = {
         name: out / folder for name, folder in zip(names, unique_names(names), strict=True)
     }
-    clash = [str(f) for f in folders.values() if str(f) in inputs]
+    batch_files = [out / n for n in ("summary.csv", "summary.xlsx", "overview.png",
+                                     "overview.pdf")]
+    clash = [str(f) for f in [*folders.values(), *batch_files] if str(f) in inputs]
     if clash:
         raise ProjectError(
-            f"sample folder {clash[0]!r} would overwrite an input file. "
+            f"output {clash[0]!r} would overwrite an input file of the project. "
             "Choose another --out folder."
         )
 

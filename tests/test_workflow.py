@@ -1,0 +1,152 @@
+"""Project files: reading, option mapping, errors and fingerprints."""
+
+import argparse
+import inspect
+import shutil
+
+import pytest
+from zoning.demo_data import DEMO_DIR
+
+from zoning.cli import fit as fit_cli
+from zoning.exceptions import ProjectError
+from zoning.workflow import (
+    FIT_OPTIONS,
+    OUTPUT_OPTIONS,
+    READ_OPTIONS,
+    fingerprint,
+    project_from_folder,
+    read_project,
+)
+
+FERROLYN = DEMO_DIR / "ferrolyn"
+
+
+def _write(tmp_path, text, files=("a.csv",)):
+    for name in files:
+        shutil.copy(FERROLYN / "FRL-07_ol1.csv", tmp_path / name)
+    path = tmp_path / "project.toml"
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+def test_demo_project_reads_with_every_sample_and_resolved_options():
+    project = read_project(FERROLYN / "project.toml")
+    names = [j.name for j in project.jobs]
+    assert names == ["FRL-07 ol1", "FRL-07 ol2", "FRL-07 ol3", "FRL-03 ol1",
+                     "FRL-12 pl1", "FRL-12 pl2"]
+    ol1 = project.jobs[0]
+    assert ol1.file == str((FERROLYN / "FRL-07_ol1.csv").resolve())
+    assert ol1.read_options == {"mineral": "olivine"}
+    assert ol1.fit_options["melt"] == {"FeO": 9.8}
+    assert ol1.fit_options["n_walkers"] == 16 and ol1.fit_options["n_steps"] == 300
+    pl1 = project.jobs[4]
+    assert pl1.fit_options["kd"] == 2.0 and pl1.fit_options["kd_sd"] == 0.3
+    assert project.jobs[3].read_options["orientation"] == "core-to-rim"
+
+
+def test_option_map_targets_are_keywords_of_fit_and_read():
+    from zoning.fitting import fit_traverse
+    from zoning.io import read_traverses
+
+    fit_kw = set(inspect.signature(fit_traverse).parameters)
+    read_kw = set(inspect.signature(read_traverses).parameters)
+    assert {target for target, _ in FIT_OPTIONS.values()} <= fit_kw
+    assert {target for target, _ in READ_OPTIONS.values()} <= read_kw
+
+
+def test_every_zoning_fit_option_has_a_project_file_name():
+    parser = argparse.ArgumentParser()
+    sub = parser.add_subparsers()
+    p = fit_cli.add_parser(sub)
+    names = {a.option_strings[0].lstrip("-").replace("-", "_")
+             for a in p._actions if a.option_strings and a.dest != "help"}
+    names -= {"out"}  # the output folder is a batch argument, not a per-sample option
+    assert names <= set(FIT_OPTIONS) | set(READ_OPTIONS), names - set(FIT_OPTIONS)
+
+
+def test_sample_tables_override_defaults_and_melt_tables_merge(tmp_path):
+    path = _write(tmp_path, """
+[defaults]
+melt = { FeO = 9.5, MgO = 8.0 }
+kd = 0.30
+steps = 100
+
+[samples."A"]
+file = "a.csv"
+melt = { FeO = 10.0 }
+kd = 0.33
+range = "10:200"
+free = ["f_core"]
+""")
+    job = read_project(path, overrides={"steps": 50}).jobs[0]
+    assert job.fit_options["melt"] == {"FeO": 10.0, "MgO": 8.0}
+    assert job.fit_options["kd"] == 0.33
+    assert job.fit_options["n_steps"] == 50
+    assert job.fit_options["distance_range"] == (10.0, 200.0)
+    assert job.fit_options["free"] == ("f_core",)
+
+
+@pytest.mark.parametrize(
+    ("text", "match"),
+    [
+        ('[defaults]\nwalkerz = 3\n[samples."A"]\nfile = "a.csv"\n',
+         r"unknown option 'walkerz' in \[defaults\].*Did you mean 'walkers'.*Valid names:.*steps"),
+        ('[samples."A"]\nfile = "a.csv"\nkdd = 0.3\n',
+         r"unknown option 'kdd' in \[samples.\"A\"\].*Valid names:.*file"),
+        ('[defaults]\nfile = "a.csv"\n[samples."A"]\nfile = "a.csv"\n',
+         r"'file' belongs in a \[samples"),
+        ('[default]\n[samples."A"]\nfile = "a.csv"\n', r"unknown table \[default\]"),
+        ('[samples."A"]\nkd = 0.3\n', r"has no 'file'"),
+        ('[samples."A"]\nfile = "missing.csv"\n', r"missing.csv.*not found.*relative to"),
+        ('[samples."A"]\nfile = "a.csv"\nkd = "high"\n',
+         r"option 'kd' in \[samples.\"A\"\].*'high'; expected a number"),
+        ('[samples."A"]\nfile = "a.csv"\nrange = "5-9"\n', r"option 'range'.*A:B"),
+        ('[samples."A"]\nfile = "a.csv"\nmelt = 9.5\n', r"melt = \{ FeO = 9.5 \}"),
+        ('[samples."A"]\nfile = "a.csv"\nmineral = "pyroxene"\n', r"'olivine', 'plagioclase'"),
+        ('[samples."A"]\nfile = "a.csv"\nrobust = 1\n', r"true or false"),
+        ("[defaults]\nkd = 0.3\n", r"no samples"),
+        ('[samples."A"\nfile = "a.csv"\n', r"not valid TOML"),
+    ],
+)
+def test_project_file_errors_name_key_table_and_remedy(tmp_path, text, match):
+    path = _write(tmp_path, text)
+    with pytest.raises(ProjectError, match=match):
+        read_project(path)
+
+
+def test_missing_project_file_is_a_clear_error(tmp_path):
+    with pytest.raises(ProjectError, match="not found"):
+        read_project(tmp_path / "nope.toml")
+
+
+def test_fingerprint_changes_with_input_bytes_and_settings_only(tmp_path):
+    path = _write(tmp_path, '[samples."A"]\nfile = "a.csv"\nmelt = { FeO = 9.5 }\n')
+    job = read_project(path).jobs[0]
+    first = fingerprint(job)
+    assert first == fingerprint(read_project(path).jobs[0])
+    path.write_text('[samples."A"]\nfile = "a.csv"\nmelt = { FeO = 9.6 }\n', encoding="utf-8")
+    assert fingerprint(read_project(path).jobs[0]) != first
+    path.write_text('[samples."A"]\nfile = "a.csv"\nmelt = { FeO = 9.5 }\n', encoding="utf-8")
+    assert fingerprint(read_project(path).jobs[0]) == first
+    with open(tmp_path / "a.csv", "a", encoding="utf-8") as fh:
+        fh.write("\n")
+    assert fingerprint(read_project(path).jobs[0]) != first
+
+
+def test_every_option_name_is_unique_across_groups():
+    groups = [set(FIT_OPTIONS), set(READ_OPTIONS), set(OUTPUT_OPTIONS)]
+    assert sum(len(g) for g in groups) == len(set().union(*groups))
+
+
+def test_folder_project_has_one_sample_per_export(tmp_path):
+    for name in ("FRL-07_ol1.csv", "FRL-07_ol2.csv", "FRL-07_ol3.txt"):
+        shutil.copy(FERROLYN / name, tmp_path / name)
+    (tmp_path / "notes.md").write_text("not an export", encoding="utf-8")
+    project = project_from_folder(tmp_path, {"mineral": "olivine", "melt": {"FeO": 9.8}})
+    assert [j.name for j in project.jobs] == ["FRL-07_ol1", "FRL-07_ol2", "FRL-07_ol3"]
+    assert all(j.fit_options["melt"] == {"FeO": 9.8} for j in project.jobs)
+
+
+def test_empty_folder_is_a_clear_error(tmp_path):
+    with pytest.raises(ProjectError, match=r"no exports in folder.*\.csv"):
+        project_from_folder(tmp_path, {"melt": {"FeO": 9.5}})
