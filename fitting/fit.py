@@ -547,7 +547,7 @@ def fit_traverse(
     robust: bool = False,
     temperature_c: float | None = None,
     seed: int = 0,
-    n_walkers: int = 48,
+    n_walkers: int = 64,
     n_steps: int = 600,
     progress: bool = False,
 ) -> FitResult:

@@ -120,7 +120,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--free", metavar="NAMES",
                    help="extra free parameters, comma-separated: f_core,growth_exponent,"
                         "core_offset_um")
-    p.add_argument("--walkers", type=int, default=48, help="sampler walkers (default 48)")
+    p.add_argument("--walkers", type=int, default=64, help="sampler walkers (default 64)")
     p.add_argument("--steps", type=int, default=600,
                    help="sampler steps including burn-in (default 600)")
     p.add_argument("--out", help="output folder (default: <file name>_fit)")
