@@ -410,6 +410,16 @@ def _grid_starts(prob: _Problem, ratio_name: str) -> tuple[np.ndarray, int]:
         warnings.simplefilter("ignore")
         out = prob.predict(params)
     pred = np.reshape(out["crystal"], (m, -1))
+    with np.errstate(all="ignore"):
+        chi2 = _grid_chi2(prob, theta, params, out, pred, idx, m)
+    chi2 = np.where(np.isfinite(chi2), chi2, np.inf)
+    order = np.argsort(chi2, kind="stable")
+    picks = order[:N_REFINE]
+    return theta[picks], m
+
+
+def _grid_chi2(prob, theta, params, out, pred, idx, m):
+    """Chi-square of every grid point; trace initial contents solved linearly."""
     chi2 = (((prob.y - pred) / prob.sigma) ** 2).sum(axis=1)
     # Trace initial contents enter the crystal profile linearly: solve each
     # for its best scale at every grid point instead of gridding it.
@@ -419,14 +429,12 @@ def _grid_starts(prob: _Problem, ratio_name: str) -> tuple[np.ndarray, int]:
         w = 1.0 / sig[ok] ** 2
         num = (base * obs[ok] * w).sum(axis=1)
         den = (base**2 * w).sum(axis=1)
-        scale = np.where(den > 0, num / np.where(den > 0, den, 1.0), 1.0)
+        scale = num / np.where(den > 0, den, 1.0)
+        scale = np.where((den > 0) & np.isfinite(scale) & (scale > 0), scale, 1.0)
         theta[:, j] = np.clip(theta[:, j] * scale, prob.lower[j], prob.upper[j])
         fitted = base * (theta[:, j] / np.where(params[param] > 0, params[param], 1.0))[:, None]
         chi2 += (((obs[ok] - fitted) / sig[ok]) ** 2).sum(axis=1)
-    chi2 = np.where(np.isfinite(chi2), chi2, np.inf)
-    order = np.argsort(chi2, kind="stable")
-    picks = order[:N_REFINE]
-    return theta[picks], m
+    return chi2
 
 
 def _max_fraction(prob: _Problem, theta: np.ndarray) -> np.ndarray:

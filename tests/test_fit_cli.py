@@ -1,0 +1,96 @@
+"""``zoning fit`` end to end on an invented olivine export."""
+
+import json
+import warnings
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from zoning.cli import main
+from zoning.exceptions import CalibrationRangeWarning, ConvergenceWarning
+from zoning.models import CrystallizationModel
+
+#: Molar masses [g/mol] from IUPAC atomic weights (Mg 24.305, Fe 55.845,
+#: Si 28.085, O 15.999).
+M_MGO, M_FEO, M_SIO2 = 40.304, 71.844, 60.083
+
+
+def _olivine_oxides(fo):
+    """Oxide wt% of stoichiometric olivine (Mg,Fe)2SiO4 of the given Fo [mol%]."""
+    x = np.asarray(fo) / 100.0
+    mgo, feo, sio2 = 2 * x * M_MGO, 2 * (1 - x) * M_FEO, np.full_like(x, M_SIO2)
+    total = mgo + feo + sio2
+    return 100 * sio2 / total, 100 * feo / total, 100 * mgo / total
+
+
+@pytest.fixture(scope="module")
+def export(tmp_path_factory):
+    # Invented Ferrolyn-style traverse: forward model + noise.
+    model = CrystallizationModel("olivine", {"FeO": 9.5})
+    d = np.linspace(0.0, 240.0, 40)
+    fo = model.profile(d, 240.0, melt_mg_number=0.72, f_rim=0.12, retention=0.2)["crystal"]
+    fo = fo + np.random.default_rng(0).normal(0, 0.15, d.size)
+    sio2, feo, mgo = _olivine_oxides(fo)
+    df = pd.DataFrame(
+        {
+            "Point": np.arange(1, 41),
+            "Comment": [f"FRL-21 ol1 / {i}" for i in range(1, 41)],
+            "Distance (µm)": d.round(2),
+            "SiO2": sio2.round(3), "FeO": feo.round(3), "MgO": mgo.round(3),
+            "Total": (sio2 + feo + mgo).round(3),
+        }
+    )
+    path = tmp_path_factory.mktemp("exports") / "FRL-21_ol1.csv"
+    df.to_csv(path, index=False, encoding="utf-8")
+    return path
+
+
+def _run(argv):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        warnings.simplefilter("ignore", CalibrationRangeWarning)
+        return main(argv)
+
+
+def test_zoning_fit_writes_summary_fit_json_and_profile(export, tmp_path, capsys):
+    out = tmp_path / "res"
+    code = _run(["fit", str(export), "--melt", "FeO=9.5", "--out", str(out),
+                 "--steps", "300", "--walkers", "32", "--seed", "3"])
+    assert code == 0
+    text = capsys.readouterr().out
+    assert "parent melt Mg#" in text and "95% band" in text and "diffusion" in text
+    summary = pd.read_csv(out / "summary.csv", comment="#")
+    assert len(summary) == 1
+    row = summary.iloc[0]
+    assert row["mineral"] == "olivine" and row["n_used"] == 40
+    assert row["melt_mg_number_lo95"] <= 0.72 <= row["melt_mg_number_hi95"]
+    folder = out / summary.loc[0, "sample"].replace(" ", "_")
+    data = json.loads((folder / "fit.json").read_text(encoding="utf-8"))
+    assert data["seed"] == 3 and data["settings"]["melt"] == {"FeO": 9.5}
+    assert {"zoning", "python", "numpy", "scipy", "lmfit", "emcee", "pandas"} <= set(
+        data["versions"]
+    )
+    profile = pd.read_csv(folder / "profile.csv", comment="#")
+    assert len(profile) == 40 and {"model", "model_lo95", "residual"} <= set(profile.columns)
+    # Same input and seed: identical numbers in a second run.
+    out2 = tmp_path / "res2"
+    _run(["fit", str(export), "--melt", "FeO=9.5", "--out", str(out2),
+          "--steps", "300", "--walkers", "32", "--seed", "3"])
+    again = pd.read_csv(out2 / "summary.csv", comment="#")
+    pd.testing.assert_frame_equal(summary, again)
+
+
+@pytest.mark.parametrize(
+    "argv, message",
+    [
+        (["--melt", "FeO"], "--melt expects OXIDE=WT"),
+        (["--melt", "FeO=9.5", "--range", "50:10"], "--range expects A:B"),
+        (["--melt", "FeO=9.5", "--free", "viscosity"], "cannot free"),
+    ],
+)
+def test_bad_options_give_one_clear_line_and_exit_code_2(export, tmp_path, capsys, argv, message):
+    code = _run(["fit", str(export), "--out", str(tmp_path / "x"), *argv])
+    assert code == 2
+    err = capsys.readouterr().err
+    assert message in err and "Traceback" not in err
