@@ -164,6 +164,10 @@ def test_same_settings_give_identical_numbers(tmp_path):
         (["--points", "1"], "--points must be"),
         (["--trace", "Ni=abc"], "--trace expects"),
         (["--fe3", "0.1", "--delta-qfm", "1"], "either --fe3 or --delta-qfm"),
+        (["--melt", "Sio2=50"], "unknown oxide(s) ['Sio2']"),
+        (["--trace", "Sr"], "no partitioning law for Sr in olivine"),
+        (["--trace-d", "Co=3"], "no --trace asks for them"),
+        (["--trace", "Co", "--trace-d", "Co=-1"], "--trace-d expects EL=D"),
     ],
 )
 def test_bad_options_exit_2_with_message(tmp_path, capsys, extra, message):
@@ -174,6 +178,25 @@ def test_bad_options_exit_2_with_message(tmp_path, capsys, extra, message):
     assert err.startswith("zoning simulate: error:")
     assert message in err
     assert not (tmp_path / "x.csv").exists()
+
+
+def test_constant_trace_d(tmp_path):
+    out = tmp_path / "co.csv"
+    code = main(["simulate", "--out", str(out), "--melt", "MgO=8", "--melt", "FeO=9",
+                 "--trace", "Co=50", "--trace-d", "Co=3", "--f-rim", "0.05", "--points", "4"])
+    assert code == 0
+    table, meta = _read(out)
+    # constant D: crystal = D x melt at every spot (definition of D).
+    assert_allclose(table["crystal_co_ppm"], 3 * table["melt_co_ppm"], rtol=RTOL_IDENTITY)
+    assert table["melt_co_ppm"].iloc[0] == pytest.approx(50.0)
+    assert meta["trace_d"] == "Co=3"
+
+
+def test_plagioclase_trace_needs_temperature(tmp_path, capsys):
+    code = main(["simulate", "--out", str(tmp_path / "p.csv"), "--mineral", "plagioclase",
+                 "--melt", "CaO=11", "--melt", "Na2O=3", "--trace", "Sr"])
+    assert code == 2
+    assert "needs a temperature: give --temperature-c" in capsys.readouterr().err
 
 
 def test_missing_reference_melt_and_bad_out(tmp_path, capsys):

@@ -98,6 +98,10 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="record a trace element (olivine Ni; plagioclase Sr, Mg), "
                         "optionally with its initial melt content in ppm (Mg: melt MgO "
                         "in wt%%), e.g. --trace Ni=300; repeatable")
+    p.add_argument("--trace-d", action="append", metavar="EL=D",
+                   help="constant crystal/melt partition coefficient (wt basis) for a traced "
+                        "element, replacing its law or adding an element without one, e.g. "
+                        "--trace-d Co=3; repeatable")
     p.add_argument("--temperature-c", type=float, metavar="T",
                    help="melt temperature [°C] (plagioclase trace laws and Fe3+ from fO2; "
                         "default for olivine: glass thermometer from melt MgO)")
@@ -135,6 +139,23 @@ def _parse_traces(items):
         if not name:
             raise ZoningError(f"--trace expects an element name; got {item!r}.")
         out.append((name, c0))
+    return out
+
+
+def _parse_trace_d(items):
+    out = {}
+    for item in items or []:
+        name, sep, value = item.partition("=")
+        try:
+            d = float(value)
+        except ValueError:
+            d = math.nan
+        if not sep or not name.strip() or not (d > 0 and math.isfinite(d)):
+            raise ZoningError(
+                f"--trace-d expects EL=D with a positive partition coefficient; got {item!r}. "
+                "Give e.g. --trace-d Ni=12."
+            )
+        out[name.strip()] = d
     return out
 
 
@@ -190,6 +211,7 @@ class _Scenario:
         self.mineral = args.mineral
         self.loop = bool(args.loop)
         self.melt = parse_melt(args.melt)
+        self._check_melt_names()
         self.notes: list[str] = []
         mineral = self.mineral
         wrong_ratio = "--ca-number" if mineral == "olivine" else "--mg-number"
@@ -225,8 +247,11 @@ class _Scenario:
             raise ZoningError(f"--beam-um must be >= 0 µm; got {args.beam_um!r}.")
         self.beam_um = args.beam_um
         self.geometry = args.geometry
-        self.traces = _parse_traces(args.trace)
         self.temperature_c = args.temperature_c
+        self.traces = _parse_traces(args.trace)
+        self.trace_d = _parse_trace_d(args.trace_d)
+        if not self.loop:
+            self._check_traces()
         self.thermometer = args.thermometer
         ratio = args.mg_number if mineral == "olivine" else args.ca_number
         _check_fraction("--mg-number" if mineral == "olivine" else "--ca-number", ratio,
@@ -236,11 +261,44 @@ class _Scenario:
         else:
             self._resolve_exchange(args, ratio)
 
+    def _check_melt_names(self):
+        from zoning.redox import MOLAR_MASS
+
+        unknown = sorted(set(self.melt) - set(MOLAR_MASS))
+        if unknown:
+            raise ZoningError(
+                f"--melt names unknown oxide(s) {unknown}; expected names among "
+                f"{sorted(MOLAR_MASS)} (wt%). Check the spelling, e.g. --melt FeO=9.2."
+            )
+
+    def _check_traces(self):
+        laws = {"olivine": ("Ni",), "plagioclase": ("Sr", "Mg")}[self.mineral]
+        names = [n for n, _ in self.traces]
+        extra = sorted(set(self.trace_d) - set(names))
+        if extra:
+            raise ZoningError(
+                f"--trace-d gives D for {extra} but no --trace asks for them; add --trace "
+                f"{extra[0]}."
+            )
+        for name in names:
+            if name not in laws and name not in self.trace_d:
+                raise ZoningError(
+                    f"no partitioning law for {name} in {self.mineral} (laws: "
+                    f"{', '.join(laws)}); give a constant coefficient with --trace-d {name}=D."
+                )
+            if (self.mineral == "plagioclase" and name in laws and name not in self.trace_d
+                    and self.temperature_c is None):
+                raise ZoningError(
+                    f"the plagioclase {name} law (RT ln D = A X_An + B) needs a temperature: "
+                    f"give --temperature-c, or a constant coefficient with --trace-d {name}=D."
+                )
+
     # -- binary loop ------------------------------------------------------------
     def _resolve_loop(self, args, ratio):
         for opt, val in (("--kd", args.kd), ("--kd-law", args.kd_law), ("--h2o", args.h2o),
                          ("--fe3", args.fe3), ("--delta-qfm", args.delta_qfm),
-                         ("--trace", args.trace), ("--temperature-c", args.temperature_c)):
+                         ("--trace", args.trace), ("--trace-d", args.trace_d),
+                         ("--temperature-c", args.temperature_c)):
             if val is not None:
                 raise ZoningError(
                     f"{opt} does not apply with --loop: the binary loop sets the partitioning "
@@ -364,7 +422,8 @@ class _Scenario:
                                                               "Fe2O3", "MnO", "MgO", "CaO",
                                                               "Na2O", "K2O", "P2O5", "H2O")}
         return CrystallizationModel(
-            self.mineral, melt, kd=self.kd, traces=trace_names, geometry=self.geometry,
+            self.mineral, melt, kd=self.kd, traces=trace_names, trace_d=self.trace_d or None,
+            geometry=self.geometry,
             beam_um=self.beam_um, temperature_c=self.temperature_c, **kwargs,
         )
 
@@ -402,6 +461,8 @@ class _Scenario:
             if self.traces:
                 meta["traces"] = ", ".join(
                     n if not math.isfinite(c) else f"{n}={c:g}" for n, c in self.traces)
+            if self.trace_d:
+                meta["trace_d"] = ", ".join(f"{n}={d:g}" for n, d in self.trace_d.items())
             if self.beam_um:
                 meta["beam_um"] = f"{self.beam_um:g}"
         return meta
