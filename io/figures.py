@@ -35,6 +35,7 @@ __all__ = [
     "melt_path_figure",
     "corner_figure",
     "overview_figure",
+    "loop_figure",
     "save_figure",
     "sample_figures",
     "save_sample_figures",
@@ -379,16 +380,77 @@ def _is_loop(result) -> bool:
     return "loop" in law.lower()
 
 
-def _loop_inset(fig: Figure, result) -> None:  # pragma: no cover - only for loop fits
-    """Add the binary loop (liquidus, solidus, paths) as an inset when available."""
-    try:
-        from zoning import loops
-    except ImportError:
+def _loop_inset(fig: Figure, result) -> None:
+    """Replace the temperature panel by the binary loop for a loop-law fit."""
+    name = "melt_mg_number" if result.mineral == "olivine" else "melt_ca_number"
+    est = result.estimates.get(name)
+    if est is None or not np.isfinite(est.best):
         return
-    draw = getattr(loops, "draw_loop", None)
-    if draw is not None:
-        ax = fig.axes[2].inset_axes([0.55, 0.5, 0.42, 0.45])
-        draw(result.mineral, ax=ax)
+    ax = fig.axes[2]
+    ax.clear()
+    loop_figure(result.mineral, est.best, ax=ax)
+
+
+def loop_figure(mineral: str, bulk: float, *, ax=None, fig: Figure | None = None,
+                f_max: float = 0.99) -> Figure:
+    """Binary solid-solution loop with the equilibrium and fractional paths.
+
+    Draws the liquidus and solidus of the forsterite-fayalite or
+    anorthite-albite loop of :mod:`zoning.loops` (temperature versus
+    composition), the bulk composition, and the liquid and crystal
+    compositions along the equilibrium (r = 1) and fractional (r = 0)
+    paths: fractional crystallization drives the last liquid and the last
+    crystal beyond the equilibrium end point of the same bulk composition.
+
+    Parameters
+    ----------
+    mineral : {"olivine", "plagioclase"}
+        Selects the loop.
+    bulk : float
+        Bulk liquid composition: melt Mg# or Ca# [fraction].
+    ax : matplotlib.axes.Axes, optional
+        Draw into this Axes.
+    fig : matplotlib.figure.Figure, optional
+        Draw into this (empty) figure.
+    f_max : float, optional
+        Largest crystallized fraction of the fractional path [fraction].
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    from zoning.loops import LOOPS
+
+    loop = LOOPS[mineral]
+    if ax is None:
+        fig = fig if fig is not None else _new_figure(TEXT_WIDTH_IN / 2 + 0.6, 3.2)
+        ax = fig.add_subplot(1, 1, 1)
+    end = "Fo" if mineral == "olivine" else "An"
+    curves = loop.curves()
+    t = curves["temperature_c"]
+    ax.plot(100 * curves["x_liquid"], t, color=PALETTE["grey"], lw=1.0, label="liquidus")
+    ax.plot(100 * curves["x_solid"], t, color=PALETTE["grey"], lw=1.0, ls="--",
+            label="solidus")
+    eq = loop.path(np.linspace(0.0, 1.0, 120), bulk, 1.0)
+    fr = loop.path(np.linspace(0.0, f_max, 120), bulk, 0.0)
+    ax.plot(100 * fr["x_liquid"], fr["temperature_c"], color=PALETTE["orange"], lw=5,
+            alpha=0.55, solid_capstyle="butt", label="fractional (r = 0): liquid")
+    ax.plot(100 * fr["x_solid"], fr["temperature_c"], color=PALETTE["orange"], lw=5,
+            alpha=0.55, ls=(0, (1, 1)), label="fractional: crystal rim")
+    ax.plot(100 * eq["x_liquid"], eq["temperature_c"], color=PALETTE["green"], lw=1.8,
+            label="equilibrium (r = 1): liquid")
+    ax.plot(100 * eq["x_solid"], eq["temperature_c"], color=PALETTE["green"], lw=1.8, ls=":",
+            label="equilibrium: crystal")
+    for path, colour, marker, what in ((eq, PALETTE["green"], "s", "equilibrium"),
+                                       (fr, PALETTE["orange"], "v", "fractional")):
+        ax.plot(100 * path["x_liquid"][-1], path["temperature_c"][-1], marker=marker, ms=7,
+                color=colour, linestyle="none", label=f"{what}: last liquid")
+    ax.axvline(100 * bulk, color=PALETTE["grey"], lw=0.8, label=f"bulk {end}{100 * bulk:.0f}")
+    ax.set_xlabel(f"{end} [mol%]")
+    ax.set_ylabel("temperature [°C]")
+    ax.set_xlim(0, 100)
+    ax.legend(fontsize="xx-small", loc="upper left")
+    return ax.figure
 
 
 def _hist_levels(h: np.ndarray, fractions=(0.68, 0.95)) -> list[float]:
