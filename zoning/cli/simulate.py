@@ -465,6 +465,16 @@ class _Scenario:
                 meta["trace_d"] = ", ".join(f"{n}={d:g}" for n, d in self.trace_d.items())
             if self.beam_um:
                 meta["beam_um"] = f"{self.beam_um:g}"
+            meta["assumptions"] = (
+                "one exchange coefficient for the whole path; crystals grew self-similarly "
+                "from the core and the section passes through it; no diffusion after growth "
+                "(diffusion makes a record look more equilibrium-like)"
+            )
+        else:
+            meta["assumptions"] = (
+                "ideal binary loop at 1 atm (pure end-member melt, no other components); "
+                "for experiments and analogue systems, not natural melts"
+            )
         return meta
 
 
