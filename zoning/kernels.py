@@ -252,22 +252,12 @@ def _quintic(v0, v1, d0, d1, s0, s1, h, u):
             + v1 * h01)
 
 
-def _t_interp(w_pt, flat, grid):
-    """Return t at arbitrary w from the quintic Hermite through the nodes (error O(h^6))."""
-    t, tw, tww = grid["t"], grid["dtdw"], grid["d2tdw2"]
-    w_a = _gather(grid["w"], flat)
-    h = _gather(grid["h"], flat)
-    return _quintic(_gather(t, flat), _gather(t, flat + 1), _gather(tw, flat),
-                    _gather(tw, flat + 1), _gather(tww, flat), _gather(tww, flat + 1), h,
-                    (w_pt - w_a) / h)
-
-
 def _dfdw(t, tw, y, c, ma, mb):
     """dF/dw at given t, dt/dw and y."""
     return c * (mb * tw + (ma - mb) * y * (tw + 1.0 - t))
 
 
-def _w_lower_bound(f_end, y0, k, c, ma, mb):
+def _w_lower_bound(f_end, y0, k, c, ma, mb, tol=1e-12):
     r"""Return w reached at F = f_end in the fractional limit (a bound for every r).
 
     Retained crystals buffer the melt, so at a given F the melt ratio moves
@@ -277,20 +267,24 @@ def _w_lower_bound(f_end, y0, k, c, ma, mb):
     near the start and towards exhaustion, using the explicit r = 0 relation;
     vectorised over parameter sets.
     """
-    f_cap = c * (mb + (ma - mb) * y0)
-    target = -np.log(f_cap - f_end)
+    # With L = ln(1 - t) = (w + ln((1-y)/(1-y0))/K)/(1 - 1/K) on the r = 0 path,
+    # F_max - F = (1 - t)(c M_B + c (M_A - M_B) y), so H = -L - ln(c M_B + c(M_A - M_B) y).
+    cb = c * mb
+    ca = c * (ma - mb)
+    target = -np.log(cb + ca * y0 - f_end)
+    ik = 1.0 / k
+    qk = 1.0 / (1.0 - ik)
+    l1y0 = np.log(1.0 - y0)
     w = np.zeros_like(f_end)
     for _ in range(40):
         y = y0 * np.exp(-w)
-        t = rayleigh_exchange_t(y, y0, k)
-        fw = _f_of_t(t, y, y0, c, ma, mb)
-        dl = (1.0 + y / ((1.0 - y) * k)) / (1.0 - 1.0 / k)  # d ln(1-t)/dw
-        dfw = _dfdw(t, -(1.0 - t) * dl, y, c, ma, mb)
-        gap = f_cap - fw
-        resid = -np.log(gap) - target
-        if np.all(np.abs(resid) <= 1e-12):
+        one_y = 1.0 - y
+        mix = cb + ca * y
+        resid = (-(w + (np.log(one_y) - l1y0) * ik) * qk - np.log(mix)) - target
+        if np.all(np.abs(resid) <= tol):
             break
-        w = np.maximum(w - resid * gap / dfw, 0.5 * w)
+        slope = ca * y / mix - (1.0 + y * ik / one_y) * qk
+        w = np.maximum(w - resid / slope, 0.5 * w)
     # Slight overshoot so that the grid surely covers f_end.
     return w * (1.0 + 1e-9) + 1e-12
 
@@ -378,23 +372,38 @@ def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS
     tw = _dtdw(t, y, k, r)
     dfdw = _dfdw(t, tw, y, c, ma, mb)
     tww = _d2tdw2(t, tw, y, k, r)
+    # inverse derivatives for quintic Hermite interpolation of w(F):
+    # F_ww = c [M_B t_ww + (M_A - M_B) y (t_ww - 2 t_w - 1 + t)]
+    d2fdw2 = c * (mb * tww + (ma - mb) * y * (tww - 2.0 * tw - 1.0 + t))
+    dwdf = 1.0 / dfdw
+    d2wdf2 = -d2fdw2 * dwdf**3
     h = np.concatenate([hi, hi[:, -1:]], axis=1)  # padded to N+1 for node indexing
-    return {"w": w, "y": y, "t": t, "f": f, "dfdw": dfdw, "dtdw": tw, "d2tdw2": tww, "h": h}
+    return {"w": w, "y": y, "t": t, "f": f, "dfdw": dfdw, "dtdw": tw, "d2tdw2": tww,
+            "dwdf": dwdf, "d2wdf2": d2wdf2, "h": h}
 
 
-def _hermite_w(f, grid):
-    """Cubic Hermite inverse interpolation of w(F) on the grid nodes."""
+def _hermite_w(f, grid, quintic=False):
+    """Cubic (or quintic) Hermite inverse interpolation of w(F) on the grid nodes."""
     fn = grid["f"]
-    j = np.sum(fn[:, None, 1:-1] <= f[:, :, None], axis=2)
-    flat = j + (np.arange(fn.shape[0]) * fn.shape[1])[:, None]
+    m, n1 = fn.shape
+    # one searchsorted over all rows: row i is shifted by 2 i (F lies in [0, 1))
+    shift = 2.0 * np.arange(m)[:, None]
+    inner = (fn[:, 1:-1] + shift).ravel()
+    pos = np.searchsorted(inner, (f + shift).ravel(), side="right").reshape(f.shape)
+    j = pos - (n1 - 2) * np.arange(m)[:, None]
+    flat = j + (np.arange(m) * n1)[:, None]
     f_a = _gather(fn, flat)
     f_b = _gather(fn, flat + 1)
     w_a = _gather(grid["w"], flat)
     w_b = _gather(grid["w"], flat + 1)
-    s_a = 1.0 / _gather(grid["dfdw"], flat)
-    s_b = 1.0 / _gather(grid["dfdw"], flat + 1)
+    s_a = _gather(grid["dwdf"], flat)
+    s_b = _gather(grid["dwdf"], flat + 1)
     df = f_b - f_a
     u = (f - f_a) / df
+    if quintic:
+        w = _quintic(w_a, w_b, s_a, s_b, _gather(grid["d2wdf2"], flat),
+                     _gather(grid["d2wdf2"], flat + 1), df, u)
+        return w, (flat, w_a)
     u2 = u * u
     u3 = u2 * u
     w = (
@@ -424,7 +433,7 @@ def exchange_invert(f, grid, y0, k, r, s0, sites, ma, mb, *, n_gauss=N_GAUSS, po
     n_gauss : int
         Gauss-Legendre nodes of the polishing quadrature.
     polish : bool
-        Apply one Newton step on the exact F(y).
+        Quintic rather than cubic Hermite inversion.
 
     Returns
     -------
@@ -434,15 +443,9 @@ def exchange_invert(f, grid, y0, k, r, s0, sites, ma, mb, *, n_gauss=N_GAUSS, po
         Flat index of the grid node at the left of each point.
     """
     c = s0 / (100.0 * sites)
-    w, (flat, w_a) = _hermite_w(f, grid)
-    if polish:
-        # Newton step on F(w) with t from the quintic Hermite of the exact
-        # t, dt/dw and d2t/dw2 at the nodes (F error O(h^6) instead of O(h^4)).
-        t_q = _t_interp(w, flat, grid)
-        y = y0 * np.exp(-w)
-        f_q = _f_of_t(t_q, y, y0, c, ma, mb)
-        dfw = _dfdw(t_q, _dtdw(t_q, y, k, r), y, c, ma, mb)
-        w = w + (f - f_q) / dfw
+    # quintic Hermite of w(F) with the exact dw/dF and d2w/dF2 at the nodes
+    # (error O(h^6)); cubic Hermite (O(h^4)) when polish is False
+    w, (flat, w_a) = _hermite_w(f, grid, quintic=polish)
     y = y0 * np.exp(-w)
     t = _t_of_f(f, y, y0, c, ma, mb)
     return y, t, w, flat
@@ -481,18 +484,21 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
     -------
     dict
         ``y`` and ``t`` (m, n) in the original orientation, plus ``grid``,
-        ``swap`` (m, 1) bool, and the swapped ``y0s``, ``ks``, ``mas``, ``mbs``
-        used by :func:`trace_log_ratio`.
+        ``swap`` (m, 1) bool, or None when no row is swapped, and the swapped
+        ``y0s``, ``ks``, ``mas``, ``mbs`` used by :func:`trace_log_ratio`.
     """
     k = np.asarray(kd_kernel, dtype=float)
     swap = k > 1.0
-    ks = np.where(swap, 1.0 / k, k)
-    ks = np.minimum(ks, 1.0 - K_EPS)
-    y0s = np.where(swap, 1.0 - y0, y0)
-    mas = np.where(swap, mb, ma)
-    mbs = np.where(swap, ma, mb)
-    f_end = np.max(f, axis=1, keepdims=True)
-    f_end = np.maximum(f_end, 1e-12)
+    if np.any(swap):
+        ks = np.minimum(np.where(swap, 1.0 / k, k), 1.0 - K_EPS)
+        y0s = np.where(swap, 1.0 - y0, y0)
+        mas = np.where(swap, mb, ma)
+        mbs = np.where(swap, ma, mb)
+    else:
+        swap = None
+        ks = np.minimum(k, 1.0 - K_EPS)
+        y0s, mas, mbs = y0, ma, mb
+    f_end = np.maximum(np.max(f, axis=1, keepdims=True), 1e-12)
     # Grid nodes where the fractional (r = 0) path reaches evenly spaced F:
     # dense in w where the melt changes fast, and covering f_end for every r
     # (retained crystals buffer the melt, so w_r(F) <= w_0(F)).
@@ -504,13 +510,20 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
     frac = np.arange(n_intervals + 1) / n_intervals
     gap_ratio = (f_cap - f_last) / f_cap
     f_targets = 0.5 * (f_last * frac + f_cap * (1.0 - gap_ratio**frac))
-    w_nodes = _w_lower_bound(f_targets, y0s, ks, c, mas, mbs)
+    # node placement needs no precision; coverage of f_end is checked below
+    w_nodes = _w_lower_bound(f_targets, y0s, ks, c, mas, mbs, tol=1e-6)
     w_nodes[:, 0] = 0.0
     grid = exchange_grid(f_end, y0s, ks, r, s0, sites, mas, mbs, n_gauss=n_gauss,
                          w_nodes=w_nodes)
+    short = grid["f"][:, -1:] < f_end
+    if np.any(short):  # last node short of f_end: move it to the precise r = 0 bound
+        w_safe = _w_lower_bound(f_last, y0s, ks, c, mas, mbs) * (1.0 + 1e-6)
+        w_nodes[:, -1:] = np.where(short, np.maximum(w_safe, w_nodes[:, -1:]), w_nodes[:, -1:])
+        grid = exchange_grid(f_end, y0s, ks, r, s0, sites, mas, mbs, n_gauss=n_gauss,
+                             w_nodes=w_nodes)
     ys, t, w_pt, flat = exchange_invert(f, grid, y0s, ks, r, s0, sites, mas, mbs,
                                n_gauss=n_gauss, polish=polish)
-    y = np.where(swap, 1.0 - ys, ys)
+    y = ys if swap is None else np.where(swap, 1.0 - ys, ys)
     return {"y": y, "t": t, "ys": ys, "w": w_pt, "flat": flat, "grid": grid, "swap": swap,
             "y0s": y0s, "ks": ks, "mas": mas, "mbs": mbs}
 
@@ -551,8 +564,11 @@ def _trace_terms(w, t, ks, r, s0, sites, y0s, mas, mbs, swap, law, f):
     mf = mbs + (mas - mbs) * xs  # formula-unit mass of the retained crystal
     m_ret = r * (s0 / sites) * t * mf
     m_iso_w = 100.0 * fw - r * (s0 / sites) * (tw * mf + t * (mas - mbs) * xs_w)
-    y_orig = np.where(swap, 1.0 - ys, ys)
-    x_orig = np.where(swap, 1.0 - xs, xs)
+    if swap is None:
+        y_orig, x_orig = ys, xs
+    else:
+        y_orig = np.where(swap, 1.0 - ys, ys)
+        x_orig = np.where(swap, 1.0 - xs, xs)
     d = law(y_orig, t, x_orig, f)
     wgt = 100.0 * (1.0 - f) + d * m_ret
     return d, wgt, d / wgt * m_iso_w

@@ -129,44 +129,61 @@ class _ModelBase:
 
     def _params(self, params: Mapping[str, object]) -> tuple[dict[str, np.ndarray], int, bool]:
         """Validate keyword parameters; return (m, 1) arrays, m, and scalar flag."""
-        specs = {p.name: p for p in self.parameters}
-        unknown = sorted(set(params) - set(specs))
+        specs = self.parameters
+        names = self.parameter_names
+        unknown = sorted(set(params) - set(names))
         if unknown:
             raise ModelDomainError(
                 f"unknown parameter(s) {unknown} for {type(self).__name__}; expected names "
-                f"from {list(specs)}."
+                f"from {list(names)}."
             )
-        arrays = {}
+        arrays = []
         m = None
         scalar = True
-        for name, spec in specs.items():
-            value = params.get(name, spec.default)
+        for spec in specs:
+            value = params.get(spec.name, spec.default)
             arr = np.asarray(value, dtype=float)
-            if arr.ndim > 1:
-                raise ModelDomainError(
-                    f"parameter {name!r} must be a float or a 1-D array of parameter sets; "
-                    f"got an array of shape {arr.shape}."
-                )
-            if arr.ndim == 1:
+            if arr.ndim:
+                if arr.ndim > 1:
+                    raise ModelDomainError(
+                        f"parameter {spec.name!r} must be a float or a 1-D array of parameter "
+                        f"sets; got an array of shape {arr.shape}."
+                    )
                 scalar = False
                 if m is None:
                     m = arr.shape[0]
                 elif arr.shape[0] != m:
                     raise ModelDomainError(
-                        f"parameter {name!r} has {arr.shape[0]} values but other parameters "
-                        f"have {m}; give every array parameter the same length."
+                        f"parameter {spec.name!r} has {arr.shape[0]} values but other "
+                        f"parameters have {m}; give every array parameter the same length."
                     )
-            bad = ~np.isfinite(arr) | (arr < spec.lower) | (arr > spec.upper)
-            if np.any(bad):
-                got = arr[bad].ravel()[0] if arr.ndim else float(arr)
-                raise ModelDomainError(
-                    f"parameter {name!r} = {got!r} is outside its allowed range "
-                    f"[{spec.lower:g}, {spec.upper:g}] {spec.unit}; give a value inside it."
-                )
-            arrays[name] = arr
+            arrays.append(arr)
         m = 1 if m is None else m
-        out = {k: np.broadcast_to(v, (m,)).reshape(m, 1) for k, v in arrays.items()}
+        table = np.empty((len(specs), m))
+        for i, arr in enumerate(arrays):
+            table[i] = arr
+        lower, upper = self._bounds
+        bad = ~((table >= lower) & (table <= upper))  # also catches NaN
+        if bad.any():
+            i = int(np.argmax(bad.any(axis=1)))
+            spec = specs[i]
+            got = float(table[i][bad[i]][0])
+            raise ModelDomainError(
+                f"parameter {spec.name!r} = {got!r} is outside its allowed range "
+                f"[{spec.lower:g}, {spec.upper:g}] {spec.unit}; give a value inside it."
+            )
+        out = {spec.name: table[i, :, None] for i, spec in enumerate(specs)}
         return out, m, scalar
+
+    @property
+    def _bounds(self) -> tuple[np.ndarray, np.ndarray]:
+        cached = getattr(self, "_bounds_cache", None)
+        if cached is None or cached[0] is not self.parameters:
+            lower = np.array([[sp.lower] for sp in self.parameters])
+            upper = np.array([[sp.upper] for sp in self.parameters])
+            cached = (self.parameters, (lower, upper))
+            self._bounds_cache = cached
+        return cached[1]
 
     # ------------------------------------------------------------- evaluation
     def path(self, f, *, strict: bool = True, **params) -> dict[str, np.ndarray]:
