@@ -232,6 +232,14 @@ def build_traverse(
     Traverse
         The checked traverse.
     """
+    # Absurd cell values (1e308, denormals) must end as flagged spots, not as
+    # floating-point warnings: every non-finite result is flagged downstream.
+    with np.errstate(all="ignore"):
+        return _build(raw, mineral=mineral, orientation=orientation,
+                      core_position_um=core_position_um, checks=checks, iron=iron, sheet=sheet)
+
+
+def _build(raw, *, mineral, orientation, core_position_um, checks, iron, sheet) -> Traverse:
     settings = quality_settings(checks)
     data = raw.data.reset_index(drop=True)
     source = str(raw.source)

@@ -297,7 +297,8 @@ def test_inspect_as_a_subprocess(tmp_path):
 _cell = st.one_of(
     st.floats(allow_nan=True, allow_infinity=True, width=32),
     st.floats(min_value=-5, max_value=120),
-    st.sampled_from(["", "<0.01", "n.d.", "abc", "--", "1e400", "=cmd()", "12,5"]),
+    st.sampled_from(["", "<0.01", "n.d.", "abc", "--", "1e400", "=cmd()", "12,5", "1e308",
+                     "-1e308", "5e-324"]),
 )
 
 

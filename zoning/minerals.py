@@ -134,15 +134,16 @@ def structural_formula(
     n_cat = np.array([ox.n_cations for ox in table], dtype=float)
     moles = wt / mass
     oxygen_total = moles @ n_ox
-    with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(all="ignore"):
         factor = np.where(oxygen_total > 0, basis / oxygen_total, np.nan)
-    cations = moles * n_cat * factor[:, None]
+        factor = np.where(np.isfinite(factor), factor, np.nan)
+        cations = moles * n_cat * factor[:, None]
     cations[bad_row] = np.nan
     out = pd.DataFrame(cations, index=oxides.index, columns=list(_CATION_COLUMNS))
     if iron == "charge-balance":
         ideal = IDEAL_CATIONS[mineral] * basis / FORMULA_OXYGENS[mineral]
         total = out.sum(axis=1, skipna=False).to_numpy()
-        with np.errstate(divide="ignore", invalid="ignore"):
+        with np.errstate(all="ignore"):
             scale = ideal / total
             fe_total = out["Fe"].to_numpy() * scale
             fe3 = np.clip(2.0 * basis * (1.0 - ideal / total), 0.0, None)
@@ -174,7 +175,7 @@ def end_members(formula: pd.DataFrame, mineral: str) -> pd.DataFrame:
         denominator is not positive.
     """
     _check_mineral_name(mineral)
-    with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(all="ignore"):
         if mineral == "olivine":
             mg = formula["Mg"].to_numpy(float)
             fe = formula["Fe"].to_numpy(float) + formula["Fe3"].to_numpy(float)

@@ -163,8 +163,13 @@ def project_traverse(
     scatter = 0.0
     for _ in range(2):
         centre = pts[use].mean(axis=0)
-        _, _, vt = np.linalg.svd(pts[use] - centre, full_matrices=False)
-        direction = vt[0]
+        try:
+            _, _, vt = np.linalg.svd(pts[use] - centre, full_matrices=False)
+            direction = vt[0]
+        except np.linalg.LinAlgError:  # absurd coordinates (overflow): first-to-last line
+            chord = pts[-1] - pts[0]
+            norm = np.hypot(*chord)
+            direction = chord / norm if np.isfinite(norm) and norm > 0 else np.array([1.0, 0.0])
         if np.dot(pts[-1] - pts[0], direction) < 0:
             direction = -direction
         normal = np.array([-direction[1], direction[0]])
@@ -236,8 +241,14 @@ def _end_slope(p: np.ndarray, v: np.ndarray, at_start: bool, length: float) -> t
     pp, vv = p[sel], v[sel]
     if np.ptp(pp) == 0:
         return 0.0, 0.0
-    slope = np.polyfit(pp, vv, 1)[0]
-    return abs(float(slope)), abs(float(slope) * np.ptp(pp))
+    dp = pp - pp.mean()
+    denom = float(np.dot(dp, dp))
+    if not np.isfinite(denom) or denom == 0:
+        return 0.0, 0.0
+    slope = float(np.dot(dp, vv - vv.mean())) / denom  # least-squares slope
+    if not np.isfinite(slope):
+        return 0.0, 0.0
+    return abs(slope), abs(slope * float(np.ptp(pp)))
 
 
 def _mirror_centre(p: np.ndarray, s: np.ndarray, noise: float) -> tuple[float, float]:
