@@ -143,6 +143,7 @@ def test_read_traverses_olivine_every_row_fo_and_flags(olivine_csv):
             assert s["status"].iloc[i] == "ok", (i, s["reason"].iloc[i])
     assert s["status"].iloc[-1] == "flagged"
     assert "summary row" in s["reason"].iloc[-1]
+    assert "total" not in s["reason"].iloc[-1]  # only the reader's reason for a non-analysis
     assert t.orientation == "rim-to-rim"
     assert abs(t.core_position_um - true_core) <= ATOL_CORE_UM
     assert set(s.loc[s["status"] == "ok", "side"]) == {"A", "B"}

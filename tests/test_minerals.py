@@ -224,6 +224,18 @@ def test_check_spots_keeps_reader_flags_and_duplicates():
     ]
 
 
+def test_rows_that_are_not_analyses_keep_only_the_reader_reason():
+    df = _frame(SAN_CARLOS, {"SiO2": 1.2, "FeO": 0.3, "MgO": 0.9})
+    f = structural_formula(df, "olivine")
+    df["cation_sum"] = f["cation_sum"]
+    df["total_wt"] = [100.29, 2.4]
+    df["fo"] = end_members(f, "olivine")["fo"]
+    df["read_flags"] = ["", "summary row (standard deviation) — not an analysis"]
+    out = check_spots(df, "olivine")
+    assert out["reason"].tolist() == ["", "summary row (standard deviation) — not an analysis"]
+    assert out["status"].tolist() == ["ok", "flagged"]
+
+
 def test_join_reasons_dedupes_and_skips_empty():
     assert join_reasons(["a", "", "x; y"], ["a", "", "y"], ["", "", "z"]) == [
         "a", "", "x; y; z"

@@ -50,6 +50,9 @@ IRON_OPTIONS = ("FeO", "reported", "charge-balance")
 #: Oxides that must be measured to compute the major-element record.
 ESSENTIAL_OXIDES = {"olivine": ("MgO", "FeO"), "plagioclase": ("CaO", "Na2O")}
 
+#: Phrases in a reader flag meaning the row is not an analysis at all.
+NOT_ANALYSIS_MARKERS = ("not an analysis", "header row repeated", "no oxide values")
+
 _CATION_COLUMNS = tuple(OXIDES[o].cation for o in CANONICAL_OXIDES)
 
 
@@ -450,6 +453,14 @@ def check_spots(
         reasons.append(spots["offline_flag"].fillna("").astype(str).to_numpy(object))
 
     joined = join_reasons(*reasons) if reasons else list(empty)
+    if "read_flags" in spots.columns:
+        # Rows the reader found not to be analyses (summary rows, repeated
+        # headers, rows without oxides) keep only the reader's reason: the
+        # analysis checks would add noise such as "total 0.57 wt% outside".
+        flags = spots["read_flags"].fillna("").astype(str)
+        not_analysis = flags.str.contains("|".join(NOT_ANALYSIS_MARKERS), regex=True).to_numpy()
+        for i in np.flatnonzero(not_analysis):
+            joined[i] = join_reasons([flags.iloc[i]])[0]
     status = np.where([bool(r) for r in joined], "flagged", "ok") if n else np.array([], str)
     return pd.DataFrame({"status": status, "reason": joined}, index=spots.index)
 
