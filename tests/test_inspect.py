@@ -324,3 +324,43 @@ def test_random_malformed_tables_never_crash_and_keep_every_row(tmp_path, rows):
     assert (flagged["reason"].str.len() > 0).all()
     ok = spots[spots["status"] == "ok"]
     assert np.isfinite(ok["fo"].to_numpy(float)).all()
+
+
+# Planted bad spots of the invented Ferrolyn demo exports (demo_data/make_demo_data.py):
+# 0-based spot index -> expected words in the reason.
+DEMO_PLANTED = {
+    "FRL-07_ol1.csv": {12: "total", 20: "same position as row", 27: "Al2O3"},
+    "FRL-07_ol2.csv": {9: "total"},
+    "FRL-12_pl2.csv": {17: "MgO"},
+}
+
+
+@pytest.mark.parametrize("name", ["FRL-03_ol1.csv", "FRL-07_ol1.csv", "FRL-07_ol2.csv",
+                                  "FRL-07_ol3.txt", "FRL-12_pl1.xlsx", "FRL-12_pl2.csv"])
+def test_demo_exports_fo_an_per_spot_and_planted_spots(name):
+    from zoning.demo_data import DEMO_DIR
+
+    path = DEMO_DIR / "ferrolyn" / name
+    if not path.exists():
+        pytest.skip(f"demo export {name} not generated")
+    (t,) = read_traverses(path)
+    s = t.spots
+    oxides = [c for c in OXIDES if c in s.columns]
+    analyses = ~s["reason"].str.contains("summary row")
+    for i in np.flatnonzero(analyses.to_numpy()):
+        comp = {k: s[k].iloc[i] for k in oxides}
+        if t.mineral == "olivine":
+            comp["FeO"] = np.nan_to_num(comp.get("FeO", 0.0)) + 0.8998 * np.nan_to_num(
+                comp.pop("Fe2O3", 0.0))
+            assert abs(s["fo"].iloc[i] - _hand_fo(comp)) <= ATOL_MOL_PCT_HAND, i
+        else:
+            assert abs(s["an"].iloc[i] - _hand_an(comp)) <= ATOL_MOL_PCT_HAND, i
+    planted = DEMO_PLANTED.get(name, {})
+    for i, word in planted.items():
+        assert s["status"].iloc[i] == "flagged" and word in s["reason"].iloc[i], (i, s.iloc[i])
+    others = analyses.to_numpy() & ~np.isin(np.arange(len(s)), list(planted))
+    assert (s["status"].to_numpy()[others] == "ok").all(), s.loc[others & (s["status"] != "ok")]
+    if name == "FRL-07_ol3.txt":
+        # rim-to-rim: the core is at the middle spot (spot 21 of 41)
+        assert t.orientation == "rim-to-rim"
+        assert abs(t.core_position_um - s["position_um"].iloc[20]) <= ATOL_CORE_UM
