@@ -26,8 +26,8 @@ __all__ = [
     "find_reversals",
 ]
 
-#: Number of consecutive spots averaged before looking for reversals. A
-#: single stray spot cannot make a reversal on its own.
+#: Width of the running median applied before looking for reversals
+#: [spots]. A single stray spot cannot make a reversal on its own.
 REVERSAL_WINDOW = 3
 
 #: Minimum rise back towards the core composition, in units of the per-spot
@@ -164,17 +164,17 @@ def residual_runs(
     )
 
 
-def _running_mean(y: np.ndarray, window: int) -> np.ndarray:
-    """Centred running mean; the window shrinks at the ends."""
-    n = y.shape[-1]
+def _running_median(y: np.ndarray, window: int) -> np.ndarray:
+    """Centred running median along the last axis (ends padded by repetition).
+
+    A median, unlike a mean, ignores a single stray spot, so one outlier can
+    never make a reversal on its own.
+    """
     half = window // 2
-    csum = np.concatenate(
-        (np.zeros(y.shape[:-1] + (1,)), np.cumsum(y, axis=-1)), axis=-1
-    )
-    idx = np.arange(n)
-    lo = np.clip(idx - half, 0, n)
-    hi = np.clip(idx + half + 1, 0, n)
-    return (csum[..., hi] - csum[..., lo]) / (hi - lo)
+    pad = [(0, 0)] * (y.ndim - 1) + [(half, half)]
+    padded = np.pad(y, pad, mode="edge")
+    windows = np.lib.stride_tricks.sliding_window_view(padded, window, axis=-1)
+    return np.median(windows, axis=-1)
 
 
 def _max_rise(y: np.ndarray) -> np.ndarray:
@@ -187,7 +187,7 @@ def reversal_threshold(n: int, sigma: float, *, n_sim: int = 2000, seed: int = 1
 
     The larger of ``REVERSAL_N_SIGMA * sigma`` and the 99th percentile of the
     largest rise that pure noise makes on a flat profile of ``n`` spots
-    (after the same running mean), estimated from ``n_sim`` simulated
+    (after the same running median), estimated from ``n_sim`` simulated
     profiles with a fixed seed (so the threshold is reproducible). A flat
     profile is the worst case: a zoned profile hides noise rises.
 
@@ -205,13 +205,13 @@ def reversal_threshold(n: int, sigma: float, *, n_sim: int = 2000, seed: int = 1
     Returns
     -------
     float
-        Threshold on the rise of the running mean.
+        Threshold on the rise of the running median.
     """
     if n < 2 or not np.isfinite(sigma) or sigma <= 0:
         return float("inf")
     rng = np.random.default_rng(seed)
     noise = rng.standard_normal((n_sim, n)) * sigma
-    rises = _max_rise(_running_mean(noise, REVERSAL_WINDOW))
+    rises = _max_rise(_running_median(noise, REVERSAL_WINDOW))
     return float(max(REVERSAL_N_SIGMA * sigma, np.quantile(rises, 0.99)))
 
 
@@ -222,7 +222,7 @@ def find_reversals(
 
     Crystallization lowers Fo and An as the crystal grows, so a reversal is
     a rise of the profile with distance. The profile is smoothed with a
-    running mean over :data:`REVERSAL_WINDOW` spots; an episode starts at
+    running median over :data:`REVERSAL_WINDOW` spots; an episode starts at
     the lowest point so far and is a reversal when the smoothed profile
     then rises by more than :func:`reversal_threshold`. The episode ends
     when the profile falls back by more than the threshold (normal zoning
@@ -252,7 +252,7 @@ def find_reversals(
         return pd.DataFrame(columns=columns)
     s = np.broadcast_to(np.asarray(sigma, dtype=float), y.shape)
     threshold = reversal_threshold(d.size, float(np.nanmedian(s)))
-    smooth = _running_mean(y, REVERSAL_WINDOW)
+    smooth = _running_median(y, REVERSAL_WINDOW)
     found = []
     trough = peak = 0
     # Sequential scan with a state (trough, peak): a loop over spots is the

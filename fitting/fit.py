@@ -803,8 +803,14 @@ def fit_traverse(
             f"only {n_same} of {n_starts} starts reached the best optimum; the fit surface "
             "has several minima, check the profile and the reference melt."
         )
-    if reduced > 1.0 + 3.0 * np.sqrt(2.0 / dof):
-        prob.sigma_scale = float(np.sqrt(reduced))
+    # Misfit beyond the stated uncertainties widens the bands (Birge ratio).
+    # With the robust loss the scale comes from the median absolute
+    # normalized residual (1.4826 MAD), so that stray spots do not inflate it.
+    misfit = reduced
+    if robust:
+        misfit = float((1.4826 * np.median(np.abs(z_best[:-1]))) ** 2)
+    if misfit > 1.0 + 3.0 * np.sqrt(2.0 / dof):
+        prob.sigma_scale = float(np.sqrt(misfit))
         warn_list.append(
             f"the model does not fit within the stated uncertainties (reduced chi-square "
             f"{reduced:.2f}); every sigma was multiplied by {prob.sigma_scale:.2f} so that "
@@ -1102,7 +1108,7 @@ def _parent(prob: _Problem, theta: np.ndarray) -> dict:
         warnings.simplefilter("ignore")
         out = prob.model.path(np.array([0.0]), strict=False, **params)
     m = theta.shape[0]
-    key = "melt_mgo_wt" if "melt_mgo_wt" in out else "melt_cao_wt"
+    key = _MELT_OXIDE[prob.model.mineral]
     oxide = np.reshape(out[key], (m, -1))[:, 0]
     temp = np.reshape(out["temperature_c"], (m, -1))[:, 0] if "temperature_c" in out else (
         np.full(m, np.nan)

@@ -80,3 +80,13 @@ def test_no_reversal_on_normal_zoning_or_flat_noise():
         base = 85.0 if k % 2 else 88.0 - 0.1 * np.arange(60)
         hits += len(find_reversals(d, base + rng.normal(0, 0.2, 60), 0.2)) > 0
     assert hits / 200 <= MAX_FALSE_REVERSAL_RATE
+
+
+def test_a_single_stray_spot_is_not_a_reversal():
+    rng = np.random.default_rng(5)
+    d = np.arange(60) * 5.0
+    fo = 88.0 - 0.08 * np.arange(60) + rng.normal(0, 0.2, 60)
+    fo[20] += 4.0  # one bad analysis (20 sigma), not a zone
+    assert len(find_reversals(d, fo, 0.2)) == 0
+    fo[21] += 4.0  # two consecutive spots: a (thin) zone
+    assert len(find_reversals(d, fo, 0.2)) == 1

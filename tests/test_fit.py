@@ -262,3 +262,20 @@ def test_short_chain_warns_with_a_remedy():
         for w in caught
     )
     assert any("run longer" in w for w in r.warnings)
+
+
+def test_robust_loss_resists_a_stray_spot_and_says_so():
+    truth = dict(melt_mg_number=0.72, f_rim=0.12, retention=0.3, kd=0.30)
+    tr = synthetic("olivine", truth, melt=MELT_OL, seed=9)
+    spots = tr.spots.copy()
+    spots.loc[12, "fo"] += 4.0  # one bad analysis the checks did not catch
+    tr = Traverse("FRL-14", "FRL-14.csv", "olivine", spots)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DataQualityWarning)
+        r = _fit(tr, melt=MELT_OL, seed=9, robust=True)
+    assert any("soft-L1" in w for w in r.warnings)
+    assert r.settings["robust"] is True
+    assert len(r.reversals) == 0
+    assert r.diagnostics["sigma_scale"] == 1.0
+    for name in ("melt_mg_number", "f_rim", "kd"):
+        assert _inside(r, name, truth[name]), (name, r.estimates[name])
