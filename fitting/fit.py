@@ -21,6 +21,11 @@ of the forward model; the best few grid points (and the model's own initial
 guess) are refined with lmfit's bounded ``least_squares``. The posterior is
 then sampled with emcee (:mod:`zoning.fitting.sampling`).
 
+Model comparison: the best fits with r fixed at 0 (fractional), fixed at 1
+(equilibrium) and free are compared by AIC = chi2 + 2k and BIC = chi2 +
+k ln(n) (Schwarz 1978), where chi2 includes the Kd prior term, k counts the
+free parameters and n the fitted data values; the lowest BIC is preferred.
+
 When the best fit is significantly worse than the stated analytical
 uncertainties allow (reduced chi-square above ``1 + 3 sqrt(2/dof)``), every
 sigma is multiplied by ``sqrt(reduced chi-square)`` before sampling (the
@@ -77,16 +82,19 @@ TRACES = {
 #: microprobe trace analyses at raised beam current and counting time).
 DEFAULT_TRACE_SIGMA = {"NiO": 0.015, "SrO": 0.02, "MgO": 0.01}
 
-#: Default Kd prior (mean, 1-sigma). Olivine: Fe-Mg exchange 0.30 +/- 0.03
+#: Default Kd prior of olivine (mean, 1-sigma): Fe-Mg exchange 0.30 +/- 0.03
 #: (Roeder & Emslie 1970, Contrib. Mineral. Petrol. 29, 275-289).
-#: Plagioclase: the mean is the forward model's default KD(Ca-Na); its
-#: 1-sigma is taken as 25% of the mean, because KD(Ca-Na) ranges from about
-#: 1-2 in dry melts to about 5.5 in water-rich melts at 200 MPa (Sisson &
-#: Grove 1993, Contrib. Mineral. Petrol. 113, 143-166; from memory) and a
-#: known water content narrows it to roughly this.
-KD_PRIOR = {"olivine": (0.30, 0.03), "plagioclase": (float("nan"), 0.25)}
+#: Plagioclase has no single default: the mean is the forward model's
+#: default KD(Ca-Na) (or the user's value) and the 1-sigma is
+#: :data:`KD_RELATIVE_SD` of it.
+KD_PRIOR = {"olivine": (0.30, 0.03)}
 
-#: Relative 1-sigma of Kd used when the user gives a Kd but no sd.
+#: Relative 1-sigma of Kd when no sd is given (olivine with a user Kd: the
+#: 10% of Roeder & Emslie's 0.30 +/- 0.03). Plagioclase: 25%, because
+#: KD(Ca-Na) ranges from about 1-2 in dry melts to about 5.5 in water-rich
+#: melts at 200 MPa (Sisson & Grove 1993, Contrib. Mineral. Petrol. 113,
+#: 143-166; from memory) and a known water content narrows it to roughly
+#: this; our choice, to be replaced by a value for the melt at hand.
 KD_RELATIVE_SD = {"olivine": 0.10, "plagioclase": 0.25}
 
 #: Parameters free by default (besides the trace initial melt contents).
@@ -653,7 +661,7 @@ def fit_traverse(
     n_steps = int(n_steps)
     if n_steps < 100:
         raise ZoningError(
-            f"n_steps must be at least 100; got {n_steps}. Use e.g. --steps 2500."
+            f"n_steps must be at least 100; got {n_steps}. Use e.g. --steps 600."
         )
 
     usable = traverse.usable(include_flagged)
@@ -690,14 +698,17 @@ def fit_traverse(
         mineral, melt, kd, fe3_fraction, [c[1] for c in chosen], geometry, temperature_c
     )
     specs = _spec_map(model)
-    kd_default, kd_sd_default = KD_PRIOR[mineral]
-    kd0 = float(kd) if kd is not None else (
-        kd_default if np.isfinite(kd_default) else float(specs["kd"].default)
-    )
+    if kd is not None:
+        kd0 = float(kd)
+    elif mineral in KD_PRIOR:
+        kd0 = KD_PRIOR[mineral][0]
+    else:
+        kd0 = float(specs["kd"].default)
     if kd_sd is None:
-        kd_sd = kd_sd_default if (kd is None and mineral == "olivine") else (
-            KD_RELATIVE_SD[mineral] * kd0
-        )
+        if kd is None and mineral in KD_PRIOR:
+            kd_sd = KD_PRIOR[mineral][1]
+        else:
+            kd_sd = KD_RELATIVE_SD[mineral] * kd0
     kd_sd = float(kd_sd)
     if not (np.isfinite(kd0) and kd0 > 0 and np.isfinite(kd_sd) and kd_sd >= 0):
         raise ZoningError(

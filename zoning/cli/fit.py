@@ -105,6 +105,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    "0.30; plagioclase KD(Ca-Na))")
     p.add_argument("--kd-sd", type=float, help="1-sigma of the Kd prior (0 fixes Kd)")
     p.add_argument("--fe3", type=float, default=0.10, help="melt Fe3+/FeT (default 0.10)")
+    p.add_argument("--temperature-c", type=float,
+                   help="temperature [°C] of the plagioclase Sr/Mg partitioning laws "
+                        "(SrO/MgO profiles are fitted only when it is given)")
     p.add_argument("--geometry", choices=("sphere", "cylinder", "slab"), default="sphere",
                    help="growth geometry (default sphere)")
     p.add_argument("--range", dest="distance_range", metavar="A:B",
@@ -168,6 +171,7 @@ def run(args: argparse.Namespace) -> int:
                 sigma=args.sigma,
                 include_flagged=args.include_flagged,
                 robust=args.robust,
+                temperature_c=args.temperature_c,
                 seed=args.seed,
                 n_walkers=args.walkers,
                 n_steps=args.steps,
