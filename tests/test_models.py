@@ -406,3 +406,15 @@ def test_assemblage_needs_the_analysed_mineral_and_known_d():
     with pytest.raises(ModelDomainError, match="no partition coefficient of Co"):
         CrystallizationModel("olivine", BASALT, trace_d={"Co": 2.0},
                              assemblage={"olivine": 0.5, "clinopyroxene": 0.5})
+
+
+def test_max_fraction_with_assemblage_exceeds_olivine_alone():
+    alone = CrystallizationModel("olivine", BASALT)
+    mix = CrystallizationModel("olivine", BASALT,
+                               assemblage={"olivine": 0.3, "plagioclase": 0.7})
+    assert float(mix.max_fraction()) > float(alone.max_fraction())
+    assert float(alone.max_fraction()) == pytest.approx(
+        # F_max = (S0/2)(M_A y0 + M_B (1 - y0))/100: all Mg and Fe2+ as olivine
+        float(np.sum(np.array(alone.initial_state(alone.defaults()["melt_mg_number"])[:2])
+                     * [alone.law.molar_mass_a, alone.law.molar_mass_b])) / 200.0,
+        rel=RTOL_IDENTITY)

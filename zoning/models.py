@@ -599,7 +599,9 @@ class CrystallizationModel(_ModelBase):
 
         Crystallizing the analysed mineral alone stops when the melt's
         exchange cations are used up:
-        :math:`F_{max} = (S_0/100s)[M_B + (M_A - M_B)y_0]`.
+        :math:`F_{max} = (S_0/100s)[M_B + (M_A - M_B)y_0]`. With an
+        assemblage the integration is run to F = 0.95 and the fraction
+        reached is returned (0.95 when nothing runs out first).
 
         Parameters
         ----------
@@ -612,10 +614,19 @@ class CrystallizationModel(_ModelBase):
             F_max per parameter set, shape (m,) (or scalar).
         """
         p, m, scalar = self._params(params)
-        y0 = p[self.law.ratio_name]
-        _, _, s0 = self.initial_state(y0)
-        fmax = _kernels.exhaustion_fraction(y0, s0, self.law.sites, self.law.molar_mass_a,
-                                            self.law.molar_mass_b)[:, 0]
+        law = self.law
+        y0 = p[law.ratio_name]
+        a0, b0, s0 = self.initial_state(y0)
+        if self._fast:
+            fmax = _kernels.exhaustion_fraction(y0, s0, law.sites, law.molar_mass_a,
+                                                law.molar_mass_b)[:, 0]
+        else:
+            res = _kernels.assemblage_path(
+                np.full((m, 1), 0.95), y0, law.kernel_k(p["kd"]), p["retention"], a0, b0,
+                law.sites, law.molar_mass_a, law.molar_mass_b, self._w_an,
+                self._d_other[law.compatible_oxide], self._d_other[law.other_oxide],
+            )
+            fmax = res["f_reached"][:, 0]
         return fmax[0] if scalar else fmax
 
     def _evaluate(self, f, p, *, strict, stacklevel):
