@@ -418,3 +418,40 @@ def test_max_fraction_with_assemblage_exceeds_olivine_alone():
         float(np.sum(np.array(alone.initial_state(alone.defaults()["melt_mg_number"])[:2])
                      * [alone.law.molar_mass_a, alone.law.molar_mass_b])) / 200.0,
         rel=RTOL_IDENTITY)
+
+
+@pytest.mark.parametrize("mineral,melt,trace,kw", [
+    ("olivine", {"MgO": 12.0, "FeO": 10.0}, "Ni", {}),
+    ("plagioclase", {"CaO": 9.0, "Na2O": 3.5}, "Sr", {"temperature_c": 1150.0}),
+    ("plagioclase", {"CaO": 9.0, "Na2O": 3.5}, "Ba", {"trace_d": {"Ba": 0.2}}),
+])
+def test_trace_mass_balance_closes(mineral, melt, trace, kw):
+    # melt + retained + isolated = initial for the trace: c_L (M_L + D M_ret) +
+    # integral of D c_L dm_iso = 100 c0 (closes to the trace integration accuracy)
+    traces = () if "trace_d" in kw else (trace,)
+    model = CrystallizationModel(mineral, melt, traces=traces, **kw)
+    law = model.law
+    tr = model.traces[0]
+    r = 0.6
+    f = np.linspace(0, 0.12, 4001)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", CalibrationRangeWarning)
+        out = model.path(f, retention=r)
+    from scipy.integrate import cumulative_simpson
+
+    from zoning.partitioning import OXIDE_MOLAR_MASS as MM
+    ratio = model.defaults()[law.ratio_name]
+    _, _, s0 = model.initial_state(ratio)
+    ca, cb = law.compatible_oxide, law.other_oxide
+    cat = (out[f"melt_{ca.lower()}_wt"] / MM[ca] * law.cations_per_oxide_a
+           + out[f"melt_{cb.lower()}_wt"] / MM[cb] * law.cations_per_oxide_b) * (1 - f)
+    t = 1 - cat / s0
+    x = out["crystal"] / 100
+    m_ret = r * s0 / law.sites * t * (law.molar_mass_b + (law.molar_mass_a - law.molar_mass_b) * x)
+    m_iso = 100 * f - m_ret
+    c_l = out[tr.melt_key]
+    d = out[tr.crystal_key] / tr.crystal_factor / c_l
+    iso = cumulative_simpson(d * c_l * np.gradient(m_iso, f, edge_order=2), x=f, initial=0.0)
+    total = c_l * (100 * (1 - f) + d * m_ret) + iso
+    c0 = model.defaults()[tr.parameter]
+    assert_allclose(total, 100 * c0, rtol=RTOL_TRACE)
