@@ -719,7 +719,8 @@ def save_sample_figures(
     folder : str or path-like
         Destination folder.
     figures : mapping, optional
-        Figures already drawn by :func:`sample_figures`.
+        Figures already drawn by :func:`sample_figures`. Their layout is
+        fixed after saving, so that saving them again is faster.
 
     Returns
     -------
@@ -729,4 +730,9 @@ def save_sample_figures(
     """
     folder = Path(folder)
     figures = figures if figures is not None else sample_figures(result)
-    return {name: save_figure(fig, folder / name) for name, fig in figures.items()}
+    paths = {}
+    for name, fig in figures.items():
+        paths[name] = save_figure(fig, folder / name)
+        # Keep the layout found for the PNG: later saves (the PDF report) reuse it.
+        fig.set_layout_engine("none")
+    return paths

@@ -974,6 +974,9 @@ def run_batch(
 
 
 def _summary_frame(project: Project, outcomes: Mapping[str, SampleOutcome]) -> pd.DataFrame:
+    """Rows in project order; columns in the order of ``zoning fit``, then file, error."""
+    from zoning.io.results import SUMMARY_QUANTITIES
+
     rows = [dict(outcomes[j.name].row) for j in project.jobs if j.name in outcomes]
     df = pd.DataFrame(rows)
     if df.empty:
@@ -982,9 +985,14 @@ def _summary_frame(project: Project, outcomes: Mapping[str, SampleOutcome]) -> p
         if col not in df:
             df[col] = ""
         df[col] = df[col].fillna("")
-    first = [c for c in df.columns if c not in ("file", "error", "batch_warnings")]
-    last = [c for c in ("batch_warnings", "file", "error") if c in df.columns]
-    return df[first + last]
+    order = ["sample", "mineral", "n_spots", "n_used"]
+    for q in SUMMARY_QUANTITIES:
+        order += [q, f"{q}_lo95", f"{q}_hi95", f"{q}_constrained"]
+    order += ["reduced_chi_square", "preferred_model", "warnings"]
+    tail = ["batch_warnings", "file", "error"]
+    known = [c for c in order if c in df.columns]
+    other = [c for c in df.columns if c not in known and c not in tail]
+    return df[known + other + [c for c in tail if c in df.columns]]
 
 
 def _write_summary(
