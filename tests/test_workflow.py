@@ -150,3 +150,14 @@ def test_folder_project_has_one_sample_per_export(tmp_path):
 def test_empty_folder_is_a_clear_error(tmp_path):
     with pytest.raises(ProjectError, match=r"no exports in folder.*\.csv"):
         project_from_folder(tmp_path, {"melt": {"FeO": 9.5}})
+
+
+def test_zoning_batch_accepts_every_zoning_fit_option():
+    from zoning.cli import batch as batch_cli
+
+    def options(module):
+        parser = argparse.ArgumentParser()
+        p = module.add_parser(parser.add_subparsers())
+        return {s for a in p._actions for s in a.option_strings}
+
+    assert options(fit_cli) <= options(batch_cli)

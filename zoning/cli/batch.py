@@ -46,26 +46,32 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--workers", type=int, help="worker processes (default: number of cores)")
     p.add_argument("--cluster", metavar="ADDRESS",
                    help="send the work to a Dask distributed scheduler, e.g. "
-                        "tcp://10.0.0.5:8786 (needs the 'dask' extra)")
+                        "tcp://10.0.0.5:8786 (needs the 'dask' extra; the input files and "
+                        "--out must be on a file system the workers share)")
     p.add_argument("--force", action="store_true", help="refit every sample")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     g = p.add_argument_group("fit options (as for zoning fit; replace the project defaults)")
-    g.add_argument("--mineral", choices=("olivine", "plagioclase"))
+    g.add_argument("--mineral", choices=("olivine", "plagioclase"),
+                   help="analysed mineral (default: detected)")
     g.add_argument("--melt", action="append", metavar="OXIDE=WT",
-                   help="reference melt analysis [wt%%], repeatable")
-    g.add_argument("--kd", type=float)
-    g.add_argument("--kd-sd", type=float)
-    g.add_argument("--fe3", type=float)
-    g.add_argument("--geometry", choices=("sphere", "cylinder", "slab"))
-    g.add_argument("--range", metavar="A:B")
-    g.add_argument("--radius-um", type=float)
-    g.add_argument("--sigma", type=float)
-    g.add_argument("--robust", action="store_true", default=None)
-    g.add_argument("--include-flagged", action="store_true", default=None)
-    g.add_argument("--free", metavar="NAMES")
-    g.add_argument("--walkers", type=int)
-    g.add_argument("--steps", type=int)
-    g.add_argument("--seed", type=int)
+                   help="reference melt analysis [wt%%], repeatable, e.g. --melt FeO=9.5")
+    g.add_argument("--kd", type=float, help="mean of the Kd prior")
+    g.add_argument("--kd-sd", type=float, help="1-sigma of the Kd prior (0 fixes Kd)")
+    g.add_argument("--fe3", type=float, help="melt Fe3+/FeT")
+    g.add_argument("--geometry", choices=("sphere", "cylinder", "slab"),
+                   help="growth geometry")
+    g.add_argument("--range", metavar="A:B", help="fit only spots between A and B µm")
+    g.add_argument("--radius-um", type=float, help="crystal radius [µm]")
+    g.add_argument("--sigma", type=float, help="1-sigma of every Fo/An value [mol%%]")
+    g.add_argument("--robust", action="store_true", default=None,
+                   help="soft-L1 loss: down-weight stray spots")
+    g.add_argument("--include-flagged", action="store_true", default=None,
+                   help="also fit spots flagged by the checks")
+    g.add_argument("--free", metavar="NAMES",
+                   help="extra free parameters, comma-separated")
+    g.add_argument("--walkers", type=int, help="sampler walkers")
+    g.add_argument("--steps", type=int, help="sampler steps")
+    g.add_argument("--seed", type=int, help="random seed")
     p.set_defaults(run=run)
     return p
 
