@@ -552,18 +552,16 @@ def exhaustion_fraction(y0, s0, sites, ma, mb):
     return s0 / (100.0 * sites) * (mb + (ma - mb) * y0)
 
 
-def _trace_terms(w, t, ks, r, s0, sites, y0s, mas, mbs, swap, law, f):
-    """Trace-budget terms D, W and D/W dm_iso/dw at points (swapped orientation)."""
-    c = s0 / (100.0 * sites)
-    ys = y0s * np.exp(-w)
-    tw = _dtdw(t, ys, ks, r)
-    fw = _dfdw(t, tw, ys, c, mas, mbs)
-    den = ks + (1.0 - ks) * ys
-    xs = ys / den
-    xs_w = -ys * ks / (den * den)  # dX/dw = f'(y) dy/dw, dy/dw = -y
-    mf = mbs + (mas - mbs) * xs  # formula-unit mass of the retained crystal
-    m_ret = r * (s0 / sites) * t * mf
-    m_iso_w = 100.0 * fw - r * (s0 / sites) * (tw * mf + t * (mas - mbs) * xs_w)
+def _trace_terms(ys, t, ks, r, s0, sites, mas, mbs, swap, law, f, tw=None):
+    r"""Trace-budget terms at points (swapped orientation).
+
+    Returns D, W = M_L + D M_ret and, when ``tw`` (dt/dw) is given,
+    D/W dm_iso/dw with :math:`dm_{iso} = (1-r)(S_0/s) M_f(X)\,dt`.
+    """
+    xs = ys / (ks + (1.0 - ks) * ys)
+    mf = mbs + (mas - mbs) * xs  # formula-unit mass of the crystal
+    per_site = s0 / sites
+    m_ret = (r * per_site) * t * mf
     if swap is None:
         y_orig, x_orig = ys, xs
     else:
@@ -571,7 +569,9 @@ def _trace_terms(w, t, ks, r, s0, sites, y0s, mas, mbs, swap, law, f):
         x_orig = np.where(swap, 1.0 - xs, xs)
     d = law(y_orig, t, x_orig, f)
     wgt = 100.0 * (1.0 - f) + d * m_ret
-    return d, wgt, d / wgt * m_iso_w
+    if tw is None:
+        return d, wgt, None
+    return d, wgt, d / wgt * ((1.0 - r) * per_site) * mf * tw
 
 
 def trace_log_ratio(path, law, s0, sites, r, f, *, n_gauss=N_GAUSS):
@@ -585,8 +585,9 @@ def trace_log_ratio(path, law, s0, sites, r, f, *, n_gauss=N_GAUSS):
               \qquad W = M_L + D M_{ret}
 
     D may vary along the path. The integral is accumulated over the grid
-    intervals by Gauss-Legendre quadrature (t at the quadrature points from
-    the exact solution) and interpolated to the points by cubic Hermite
+    intervals by Gauss-Legendre quadrature (t at the quadrature points by
+    quintic Hermite interpolation of the exact t, dt/dw, d2t/dw2 at the
+    nodes) and interpolated to the points by cubic Hermite
     interpolation with its exact derivative; W is evaluated at the points.
 
     Parameters
@@ -624,16 +625,19 @@ def trace_log_ratio(path, law, s0, sites, r, f, *, n_gauss=N_GAUSS):
         t_q = _quintic(t[:, :-1, None], t[:, 1:, None], tw[:, :-1, None], tw[:, 1:, None],
                        tww[:, :-1, None], tww[:, 1:, None], hi, xi).reshape(m, -1)
         c = s0 / (100.0 * sites)
-        f_q = _f_of_t(t_q, y0s * np.exp(-w_q), y0s, c, mas, mbs)
-        # one evaluation for nodes, quadrature points and requested points
-        n_pts = f.shape[1]
-        w_all = np.concatenate([g["w"], w_q, path["w"]], axis=1)
-        t_all = np.concatenate([t, t_q, path["t"]], axis=1)
-        f_all = np.concatenate([g["f"], f_q, f], axis=1)
-        d_all, wgt_all, integrand_all = _trace_terms(w_all, t_all, ks, r, s0, sites, y0s, mas,
-                                                     mbs, swap, law, f=f_all)
-        integrand_nodes = integrand_all[:, :n1]
-        integrand_q = integrand_all[:, n1:-n_pts].reshape(m, n1 - 1, -1)
+        y_q = y0s * np.exp(-w_q)
+        f_q = _f_of_t(t_q, y_q, y0s, c, mas, mbs)
+        tw_q = _dtdw(t_q, y_q, ks, r)
+        # nodes and quadrature points together
+        y_nq = np.concatenate([g["y"], y_q], axis=1)
+        _, _, integrand_nq = _trace_terms(
+            y_nq, np.concatenate([t, t_q], axis=1), ks, r, s0, sites, mas, mbs, swap, law,
+            np.concatenate([g["f"], f_q], axis=1), tw=np.concatenate([tw, tw_q], axis=1))
+        integrand_nodes = integrand_nq[:, :n1]
+        integrand_q = integrand_nq[:, n1:].reshape(m, n1 - 1, -1)
+        # the requested points: D and W only
+        d_pt, wgt_pt, _ = _trace_terms(path["ys"], path["t"], ks, r, s0, sites, mas, mbs, swap,
+                                       law, f)
         parts = g["h"][:, :-1] * (integrand_q @ om)  # (m, N)
         cum = np.concatenate([np.zeros_like(parts[:, :1]), np.cumsum(parts, axis=1)], axis=1)
         # cubic Hermite interpolation of the integral to the points
@@ -648,8 +652,8 @@ def trace_log_ratio(path, law, s0, sites, r, f, *, n_gauss=N_GAUSS):
             + (-2 * u3 + 3 * u2) * _gather(cum, flat + 1)
             + (u3 - u2) * h * _gather(integrand_nodes, flat + 1)
         )
-        out = -np.log(wgt_all[:, -n_pts:] / 100.0) - integral
-    return out, d_all[:, -n_pts:]
+        out = -np.log(wgt_pt / 100.0) - integral
+    return out, d_pt
 
 
 #: Fixed RK4 steps of the assemblage integrator.
