@@ -85,6 +85,7 @@ def test_zoning_fit_writes_summary_fit_json_and_profile(export, tmp_path, capsys
     "argv, message",
     [
         (["--melt", "FeO"], "--melt expects OXIDE=WT"),
+        ([], "no reference melt given"),
         (["--melt", "FeO=9.5", "--range", "50:10"], "--range expects A:B"),
         (["--melt", "FeO=9.5", "--free", "viscosity"], "cannot free"),
     ],

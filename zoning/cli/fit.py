@@ -151,6 +151,12 @@ def run(args: argparse.Namespace) -> int:
 
     source = Path(args.file)
     melt = parse_melt(args.melt)
+    if not melt:
+        raise ZoningError(
+            "no reference melt given; the fit needs the less compatible oxide of the "
+            "exchanging pair [wt%], from a glass or whole-rock analysis. Give e.g. "
+            "--melt FeO=9.5 (olivine) or --melt Na2O=3.1 (plagioclase)."
+        )
     distance_range = parse_range(args.distance_range)
     traverses = read_traverses(source, mineral=args.mineral)
     out_dir = Path(args.out) if args.out else source.with_name(source.stem + "_fit")
