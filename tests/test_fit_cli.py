@@ -6,6 +6,7 @@ import warnings
 import numpy as np
 import pandas as pd
 import pytest
+from zoning.io.writers import safe_name
 
 from zoning.cli import main
 from zoning.exceptions import CalibrationRangeWarning, ConvergenceWarning
@@ -65,7 +66,7 @@ def test_zoning_fit_writes_summary_fit_json_and_profile(export, tmp_path, capsys
     row = summary.iloc[0]
     assert row["mineral"] == "olivine" and row["n_used"] == 40
     assert row["melt_mg_number_lo95"] <= 0.72 <= row["melt_mg_number_hi95"]
-    folder = out / summary.loc[0, "sample"].replace(" ", "_")
+    folder = out / safe_name(summary.loc[0, "sample"])
     data = json.loads((folder / "fit.json").read_text(encoding="utf-8"))
     assert data["seed"] == 3 and data["settings"]["melt"] == {"FeO": 9.5}
     assert {"zoning", "python", "numpy", "scipy", "lmfit", "emcee", "pandas"} <= set(
