@@ -196,3 +196,62 @@ def test_random_text_tables_raise_only_profile_format_error(tmp_path, table, sep
         assert str(path) in str(err)
         return
     assert sum(len(t.data) for t in tables) <= len(table)
+
+
+@st.composite
+def grouped(draw):
+    """A comma file with a Sample column of 1-4 traverses, in contiguous runs."""
+    n_groups = draw(st.integers(1, 4))
+    names = draw(st.lists(st.sampled_from(["ol1", "ol2", "pl-A", "FRL 07", "c3", "x"]),
+                          min_size=n_groups, max_size=n_groups, unique=True))
+    sizes = [draw(st.integers(2, 6)) for _ in names]
+    lines = ["Sample,Point,SiO2,FeO,MgO"]
+    rows_by_group = {}
+    for name, size in zip(names, sizes, strict=True):
+        for k in range(size):
+            cells = [name, str(k + 1), "40.81", draw(st.sampled_from(["9.55", "<0.01", "abc"])),
+                     "49.42"]
+            lines.append(",".join(cells))
+            rows_by_group.setdefault(name, []).append(len(lines))
+        if draw(st.booleans()):
+            lines.append(",Average,40.8,9.5,49.4")
+            rows_by_group[name].append(len(lines))
+    return "\n".join(lines) + "\n", rows_by_group
+
+
+@SETTINGS
+@given(grouped())
+def test_sample_column_split_keeps_every_row_once(tmp_path, case):
+    text, rows_by_group = case
+    path = tmp_path / "FRL.csv"
+    path.write_text(text, encoding="utf-8")
+    tables = read_export(path)
+    assert [t.data["row"].tolist() for t in tables] == list(rows_by_group.values())
+    if len(rows_by_group) > 1:
+        assert [t.name for t in tables] == [
+            "FRL_" + g.replace(" ", "_") for g in rows_by_group]
+
+
+@settings(max_examples=25, deadline=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
+@given(st.lists(st.tuples(st.floats(0, 100, allow_nan=False),
+                          st.sampled_from(["<0.01", "n.d.", "", "abc"])),
+                min_size=1, max_size=15),
+       st.integers(0, 3))
+def test_xlsx_rows_keep_sheet_row_numbers_and_values(tmp_path, cells, n_title):
+    import openpyxl
+
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    for k in range(n_title):
+        ws.append([f"title line {k}"])
+    ws.append(["Point", "SiO2", "FeO", "MgO"])
+    for i, (x, junk) in enumerate(cells):
+        ws.append([i + 1, x, junk if junk else None, round(x / 2, 3)])
+    path = tmp_path / "r.xlsx"
+    wb.save(path)
+    t = read_export(path)[0]
+    first = n_title + 2
+    assert t.data["row"].tolist() == list(range(first, first + len(cells)))
+    np.testing.assert_allclose(t.data["SiO2"], [x for x, _ in cells], rtol=RTOL_IDENTITY)
+    assert t.data["FeO"].isna().all()
