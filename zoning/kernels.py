@@ -275,7 +275,15 @@ def _w_lower_bound(f_end, y0, k, c, ma, mb, tol=1e-12):
     ik = 1.0 / k
     qk = 1.0 / (1.0 - ik)
     l1y0 = np.log(1.0 - y0)
-    w = np.zeros_like(f_end)
+    # H is concave in w and lies below its tangent at 0 and below its
+    # asymptote (slope K/(1-K)); starting from the larger of the two roots
+    # Newton converges monotonically from below in a few steps.
+    mix0 = cb + ca * y0
+    h0 = -np.log(mix0)
+    slope0 = ca * y0 / mix0 - (1.0 + y0 * ik / (1.0 - y0)) * qk
+    w = np.maximum((target - h0) / slope0,
+                   (target + l1y0 / (1.0 - k) + np.log(cb)) * (1.0 - k) / k)
+    w = np.maximum(w, 0.0)
     for _ in range(40):
         y = y0 * np.exp(-w)
         one_y = 1.0 - y
@@ -511,7 +519,7 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
     gap_ratio = (f_cap - f_last) / f_cap
     f_targets = 0.5 * (f_last * frac + f_cap * (1.0 - gap_ratio**frac))
     # node placement needs no precision; coverage of f_end is checked below
-    w_nodes = _w_lower_bound(f_targets, y0s, ks, c, mas, mbs, tol=1e-6)
+    w_nodes = _w_lower_bound(f_targets, y0s, ks, c, mas, mbs, tol=1e-4)
     w_nodes[:, 0] = 0.0
     grid = exchange_grid(f_end, y0s, ks, r, s0, sites, mas, mbs, n_gauss=n_gauss,
                          w_nodes=w_nodes)
