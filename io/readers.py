@@ -424,8 +424,11 @@ def _xlsx_sheet_rows(wb, source: str, sheet, notes: list[str]):
             raise ProfileFormatError(f"{source}: sheet {sheet!r} not found; sheets are {names}.")
         ws = wb[sheet]
         notes.append(f"sheet: '{sheet}'")
-    if hasattr(ws, "reset_dimensions"):
-        # read-only sheets trust the stored dimension, which some writers get wrong
+    if hasattr(ws, "reset_dimensions") and (
+        ws.max_row is None or ws.max_column is None or (ws.max_row, ws.max_column) == (1, 1)
+    ):
+        # read-only sheets trust the stored dimension, which some writers omit or
+        # leave at "A1"; then the sheet is scanned for its real size
         ws.reset_dimensions()
     rows = [[_xlsx_cell(v) for v in values]
             for values in ws.iter_rows(min_row=1, values_only=True)]
