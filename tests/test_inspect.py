@@ -30,6 +30,10 @@ from _tolerances import ATOL_MOL_PCT_HAND  # noqa: E402
 # spacings (8 µm spacing here) [µm].
 ATOL_CORE_UM = 16.0
 
+# Preferred compositions [wt%]. Oxides not reported ("-") or below detection
+# ("<0.02") are entered as 0 so that two materials can be mixed; Springwater
+# Cr2O3 (0.02) is left out. Lake County Fe2O3 (0.34) is folded into FeO
+# (FeO* = FeO + 0.8998 Fe2O3); the hand calculation does the same.
 SAN_CARLOS = {"SiO2": 40.81, "FeO": 9.55, "MnO": 0.14, "MgO": 49.42, "NiO": 0.37}
 SPRINGWATER = {"SiO2": 38.95, "FeO": 16.62, "MnO": 0.30, "MgO": 43.58, "NiO": 0.0}
 GREAT_SITKIN = {"SiO2": 44.00, "TiO2": 0.03, "Al2O3": 36.03, "FeO": 0.62, "MgO": 0.0,
