@@ -638,6 +638,7 @@ def _map_columns(header: list[str], source: str, user_map: dict[str, str],
 _BELOW_RE = re.compile(_BELOW_DETECTION_RE)
 _COMMA_RE = re.compile(_COMMA_DECIMAL_RE)
 _POINT_RE = re.compile(_POINT_DECIMAL_RE)
+_PLAIN_NUMBER_RE = re.compile(r"^[+-]?\d+(?:[eE][+-]?\d+)?$")
 
 
 def _classify(cell: str, decimal: str) -> tuple[float, str]:
@@ -647,6 +648,8 @@ def _classify(cell: str, decimal: str) -> tuple[float, str]:
     number written with the other decimal separator), "below", "missing",
     "naninf" or "bad".
     """
+    if "\u2212" in cell:  # typographic minus sign, e.g. from a word processor
+        return _classify(cell.replace("\u2212", "-"), decimal)
     low = cell.lower()
     if low in _MISSING_TOKENS:
         return np.nan, "missing"
@@ -659,6 +662,8 @@ def _classify(cell: str, decimal: str) -> tuple[float, str]:
             "num" if decimal == "," else "minority"
     if _POINT_RE.match(cell):
         return float(cell.replace(",", "")), "num" if decimal == "." else "minority"
+    if _PLAIN_NUMBER_RE.match(cell):
+        return float(cell), "num"
     return np.nan, "bad"
 
 

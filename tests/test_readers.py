@@ -652,3 +652,12 @@ def test_space_separated_export_gets_a_specific_error(tmp_path):
                     encoding="utf-8")
     with pytest.raises(ProfileFormatError, match="separated by spaces"):
         read_export(path)
+
+
+def test_typographic_minus_sign_is_read_as_minus(tmp_path):
+    path = tmp_path / "m.csv"
+    path.write_text("Point,SiO2,FeO,MgO,K2O,Distance\n1,40.81,9.55,49.42,\u22120.02,\u22125\n",
+                    encoding="utf-8")
+    t = only(read_export(path))
+    assert t.data["K2O"].tolist() == [-0.02]
+    assert t.data["distance_um"].tolist() == [-5.0]
