@@ -170,6 +170,18 @@ def read_traverses(
 
     Notes
     -----
+    Positions: with stage X/Y (and no distance column) ``position_um`` is
+    measured along the best-fit line from the first spot; with a distance
+    column the file's own values are kept (the column also gives the
+    position when X/Y are present, which are then used only to check the
+    off-line scatter). A distance header that says "from core" or "from rim"
+    fixes the orientation unless ``orientation``/``core_position_um`` are
+    given; otherwise it is decided from the profile (see
+    :func:`zoning.orientation.locate_core`), and the basis is in the notes.
+
+    The analytical total is the file's total column where given, else the
+    sum of the oxides read.
+
     A traverse with a single spot or with every spot flagged is returned
     (so that it can be inspected) with a note starting "cannot be fitted";
     fitting refuses it.
