@@ -55,6 +55,7 @@ from zoning import kernels as _kernels
 from zoning.exceptions import ModelDomainError
 from zoning.partitioning import (
     ASSEMBLAGE_D_DEFAULTS,
+    ATOMIC_WEIGHT,
     EXCHANGE_LAWS,
     OXIDE_MOLAR_MASS,
     TraceLaw,
@@ -70,7 +71,7 @@ __all__ = ["ParameterSpec", "CrystallizationModel", "ConstantPartitionModel", "M
 DEFAULT_BEAM_UM = 2.0
 
 #: Fe2O3 -> FeO conversion factor (2 M_FeO / M_Fe2O3).
-_FEO_PER_FE2O3 = 2 * OXIDE_MOLAR_MASS["FeO"] / (2 * OXIDE_MOLAR_MASS["FeO"] + 15.999)
+_FEO_PER_FE2O3 = 2 * OXIDE_MOLAR_MASS["FeO"] / (2 * OXIDE_MOLAR_MASS["FeO"] + ATOMIC_WEIGHT["O"])
 
 
 @dataclass(frozen=True, slots=True)
@@ -332,8 +333,9 @@ class CrystallizationModel(_ModelBase):
         up to about 5.5 for water-rich melts at 200 MPa, Sisson & Grove 1993,
         from memory). Sets the default of parameter ``kd``.
     fe3_fraction : float, optional
-        Melt Fe3+/FeT (olivine), default 0.10, typical of basalts near QFM.
-        Fe3+ is inert and stays in the melt.
+        Melt Fe3+/FeT (olivine), default 0.10, typical of basalts near QFM
+        (compute it for a given fO2 with :mod:`zoning.redox`). Fe3+ is
+        inert and stays in the melt. Not used for plagioclase.
     traces : sequence of str, optional
         Trace elements to record: "Ni" (olivine, Hart & Davis 1978), "Sr",
         "Mg" (plagioclase, needs ``temperature_c``), or labels given in
@@ -363,8 +365,10 @@ class CrystallizationModel(_ModelBase):
     section_offset_um : float, optional
         Distance of the section plane from the crystal centre [µm].
     temperature_c : float, optional
-        Temperature for the plagioclase trace laws [°C]; reported as
-        ``temperature_c`` for plagioclase.
+        Temperature for the plagioclase trace laws [°C], taken as constant
+        along the path and reported as ``temperature_c`` for plagioclase.
+        Olivine paths report the Helz & Thornber (1987) melt temperature
+        instead.
 
     Attributes
     ----------
@@ -429,11 +433,6 @@ class CrystallizationModel(_ModelBase):
         law = self.law = EXCHANGE_LAWS[mineral]
         self.melt = _check_melt(melt, law)
         self.fe3_fraction = _check_scalar("fe3_fraction", fe3_fraction, 0.0, 0.9, "[fraction]")
-        if mineral != "olivine" and fe3_fraction != 0.10 and fe3_fraction != 0.0:
-            raise ModelDomainError(
-                f"fe3_fraction applies to olivine only; got {fe3_fraction!r} for {mineral}. "
-                "Leave it at its default."
-            )
         if temperature_c is not None:
             self.temperature_c = _check_scalar("temperature_c", temperature_c, 500.0, 2000.0,
                                                "[°C]")
