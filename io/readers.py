@@ -508,11 +508,21 @@ def _find_header(lines_or_cells, source: str, user_map: dict[str, str], *,
     i, _, cells = best_fallback
     shown = [c for c in cells if c][:30]
     if wanted:
-        missing = sorted(set(user_map.values()) - {c for c in cells})
+        try:
+            j, d = _find_header(lines_or_cells, source, {}, delimiter_known=delimiter_known,
+                                line_numbers=line_numbers)
+        except ProfileFormatError:
+            pass
+        else:
+            item = lines_or_cells[j]
+            cells = [c.strip() for c in (item if delimiter_known else _split_line(item, d))]
+            i, shown = j, [c for c in cells if c][:40]
+        lower = {c.lower() for c in cells}
+        missing = [h for h in user_map.values() if h.lower() not in lower]
         raise ProfileFormatError(
-            f"{source}: headers {missing} named in column_map not found on any line; the "
-            f"line that looks most like a header (line {line_numbers[i]}) has {shown}. "
-            "Use the header texts exactly as in the file."
+            f"{source}: headers {missing} named in column_map not found on the header line; "
+            f"the header (line {line_numbers[i]}) has {shown}. Use the header texts exactly "
+            "as in the file."
         )
     if not delimiter_known:
         for j, line in enumerate(lines_or_cells[:_HEADER_SEARCH_LINES]):
