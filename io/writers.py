@@ -144,13 +144,14 @@ def _neutralise_cell(value: Any) -> Any:
 def _neutralise_frame(df: pd.DataFrame) -> pd.DataFrame:
     """Return a copy of ``df`` with formula-like text cells and headers neutralised."""
     out = df.copy()
-    for col in out.columns:
-        series = out[col]
+    out.columns = range(out.shape[1])  # positional: duplicate headers are allowed
+    for j in range(out.shape[1]):
+        series = out[j]
         if series.dtype == object or isinstance(series.dtype, pd.StringDtype):
-            out[col] = series.map(_neutralise_cell)
+            out[j] = series.astype(object).map(_neutralise_cell)
         elif isinstance(series.dtype, pd.CategoricalDtype):
-            out[col] = series.astype(object).map(_neutralise_cell)
-    out.columns = [_neutralise_cell(str(c)) for c in out.columns]
+            out[j] = series.astype(object).map(_neutralise_cell)
+    out.columns = [_neutralise_cell(str(c)) for c in df.columns]
     return out
 
 

@@ -58,6 +58,13 @@ def test_write_csv_roundtrips_floats_exactly_and_is_reproducible(tmp_path):
     np.testing.assert_array_equal(back["x"].to_numpy(), df["x"].to_numpy())
 
 
+def test_write_csv_header_cells_and_duplicate_columns(tmp_path):
+    df = pd.DataFrame([["=x", 1.0]], columns=["=SUM(A1)", "a"])
+    df2 = pd.concat([df, df], axis=1)  # duplicated column names
+    rows = _rows(write_csv(df2, tmp_path / "d.csv"))
+    assert rows == [["'=SUM(A1)", "a", "'=SUM(A1)", "a"], ["'=x", "1.0", "'=x", "1.0"]]
+
+
 def test_write_csv_metadata_header(tmp_path):
     df = pd.DataFrame({"a": [1]})
     out = write_csv(df, tmp_path / "m.csv", metadata={"content": "spots\nsecond line", "k": 3})
