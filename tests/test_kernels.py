@@ -206,3 +206,17 @@ def test_swap_symmetry_k_above_one():
     b = kernels.exchange_path(fs, col(0.7), col(0.4), col(0.3), col(0.4), 1, 262.2, 278.2)
     assert_allclose(a["y"], 1 - b["y"], atol=1e-13)
     assert_allclose(a["t"], b["t"], atol=1e-13)
+
+
+@pytest.mark.parametrize("d,r,f", [(0.1, 0.3, 0.9), (2.0, 0.5, 0.5), (10.0, 0.75, 0.6),
+                                   (0.5, 1.0, 0.8), (3.0, 0.0, 0.7)])
+def test_closed_form_mass_balance(d, r, f):
+    # (1-F) C_L + r F D C_L + (1-r) int_0^F D C_L dF' = C0 (science reference sec. 1)
+    from scipy.integrate import quad
+
+    def cl(x):
+        return float(kernels.retention_closed_form(x, d, r))
+
+    iso = (1 - r) * d * quad(cl, 0, f, epsabs=1e-14, epsrel=1e-13)[0]
+    total = (1 - f) * cl(f) + r * f * d * cl(f) + iso
+    assert_allclose(total, 1.0, rtol=ATOL_MASS_BALANCE)
