@@ -191,6 +191,12 @@ def test_check_spots_flags_planted_olivine_problems():
     assert "Cr2O3 0.9 wt% > 0.5" in r[5]
 
 
+def test_check_spots_flags_undefined_fo():
+    out = _checked([SAN_CARLOS, dict(SAN_CARLOS, MgO=0.0, FeO=0.0)], "olivine")
+    assert out["reason"].iloc[0] == ""
+    assert "cannot compute Fo: Mg+Fe not positive" in out["reason"].iloc[1]
+
+
 def test_check_spots_cation_sum_window():
     # Springwater: 3.0077 cations, inside 3 +/- 0.02 but outside 3 +/- 0.005
     out = _checked([SPRINGWATER], "olivine", olivine_cation_tolerance=0.005)

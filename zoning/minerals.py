@@ -395,6 +395,7 @@ def check_spots(
             reasons.append(np.where(infinite, f"non-finite {name} value", ""))
 
     record = "Fo" if mineral == "olivine" else "An"
+    any_missing = np.zeros(n, dtype=bool)
     for name in ESSENTIAL_OXIDES[mineral]:
         if name in spots.columns:
             vals = spots[name].to_numpy(dtype=float)
@@ -403,7 +404,13 @@ def check_spots(
             missing = np.isnan(vals)
         else:
             missing = np.ones(n, dtype=bool)
+        any_missing |= missing
         reasons.append(np.where(missing, f"cannot compute {record}: {name} missing", ""))
+    major = record.lower()
+    if major in spots.columns:
+        undefined = ~np.isfinite(spots[major].to_numpy(dtype=float)) & ~any_missing
+        pair = "Mg+Fe" if mineral == "olivine" else "Ca+Na+K"
+        reasons.append(np.where(undefined, f"cannot compute {record}: {pair} not positive", ""))
 
     total = spots["total_wt"].to_numpy(dtype=float) if "total_wt" in spots else np.full(n, np.nan)
     lo, hi = settings.total_min_wt, settings.total_max_wt
