@@ -455,3 +455,23 @@ def test_trace_mass_balance_closes(mineral, melt, trace, kw):
     total = c_l * (100 * (1 - f) + d * m_ret) + iso
     c0 = model.defaults()[tr.parameter]
     assert_allclose(total, 100 * c0, rtol=RTOL_TRACE)
+
+
+def test_batch_rows_equal_single_evaluations_near_exhaustion():
+    # Rows of a batch must not influence each other, also when one row's grid
+    # runs far past the exhaustion of its melt (regression: found by fuzzing).
+    model = CrystallizationModel("olivine", {"MgO": 9.0, "FeO": 10.0}, traces=("Ni",))
+    p = {"melt_mg_number": np.array([0.85, 0.31, 0.62, 0.45]),
+         "retention": np.array([0.97, 0.01, 0.5, 0.2]),
+         "kd": np.array([0.2, 0.38, 0.3, 0.45]),
+         "melt0_ni_ppm": np.array([500.0, 1900.0, 300.0, 800.0])}
+    fmax = model.max_fraction(**p)
+    f = np.linspace(0, 0.9 * fmax.min(), 25)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", CalibrationRangeWarning)
+        batch = model.path(f, **p)
+        for i in range(4):
+            single = model.path(f, **{k: v[i] for k, v in p.items()})
+            for key in single:
+                assert np.all(np.isfinite(batch[key][i])), key
+                assert_allclose(batch[key][i], single[key], rtol=1e-12, atol=0)

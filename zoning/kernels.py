@@ -394,9 +394,12 @@ def _hermite_w(f, grid, quintic=False):
     """Cubic (or quintic) Hermite inverse interpolation of w(F) on the grid nodes."""
     fn = grid["f"]
     m, n1 = fn.shape
-    # one searchsorted over all rows: row i is shifted by 2 i (F lies in [0, 1))
+    # one searchsorted over all rows: row i is shifted by 2 i. Requested F lie
+    # in [0, 1); grid nodes past the exhaustion of the melt (F may exceed 1
+    # there, or be NaN) are capped at 1.5 so that the rows stay separated.
     shift = 2.0 * np.arange(m)[:, None]
-    inner = (fn[:, 1:-1] + shift).ravel()
+    key = np.maximum.accumulate(np.fmin(fn[:, 1:-1], 1.5), axis=1)
+    inner = (key + shift).ravel()
     pos = np.searchsorted(inner, (f + shift).ravel(), side="right").reshape(f.shape)
     j = pos - (n1 - 2) * np.arange(m)[:, None]
     flat = j + (np.arange(m) * n1)[:, None]
