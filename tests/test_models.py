@@ -474,4 +474,5 @@ def test_batch_rows_equal_single_evaluations_near_exhaustion():
             single = model.path(f, **{k: v[i] for k, v in p.items()})
             for key in single:
                 assert np.all(np.isfinite(batch[key][i])), key
-                assert_allclose(batch[key][i], single[key], rtol=1e-12, atol=0)
+                # identical up to BLAS summation order
+                assert_allclose(batch[key][i], single[key], rtol=1e-9, atol=0)
