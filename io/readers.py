@@ -1004,10 +1004,9 @@ def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
     else:
         block_text = np.full(n, "", dtype=object)
     if "sample" in used:
-        samp, note = _sample_groups(pd.Series(S[:, used["sample"][0]], dtype=object),
-                                    hdr_rows | is_summary, used["sample"][1].header)
+        samp, note = _sample_groups(S[:, used["sample"][0]], hdr_rows | is_summary,
+                                    used["sample"][1].header)
         split_notes.append(note)
-        samp = samp.to_numpy(dtype=object)
     else:
         samp = np.full(n, "", dtype=object)
     keys = pd.Series(block_text + "\x00" + samp, dtype=object)
@@ -1038,40 +1037,45 @@ def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
     return tables
 
 
-def _sample_groups(values: pd.Series, skip: np.ndarray, header: str) -> tuple[pd.Series, str]:
+def _sample_groups(values: np.ndarray, skip: np.ndarray, header: str) -> tuple[np.ndarray, str]:
     """Group key per row from a sample/traverse/crystal column, and a note.
 
     Rows whose cell is empty (and summary or repeated-header rows) join the
-    group of the row above. Values are used as they are when each value
-    covers at least two rows; otherwise a trailing spot number is stripped
-    (``FRL-07a_03`` → ``FRL-07a``) and the prefixes are used when each
-    covers at least two rows; otherwise the file is not split.
+    group of the row above (the first rows join the first group). Values are
+    used as they are when each value covers at least two rows; otherwise a
+    trailing spot number is stripped (``FRL-07a_03`` → ``FRL-07a``) and the
+    prefixes are used when each covers at least two rows; otherwise the file
+    is not split.
     """
-    v = values.where(~pd.Series(skip, index=values.index), "")
-    v = v.replace("", np.nan).ffill().bfill().fillna("").astype(object)
-    n_unique = v[v != ""].nunique()
-    none = pd.Series([""] * len(v), dtype=object)
-    if n_unique == 0:
+    n = len(values)
+    vals = np.where(skip, "", values).astype(object)
+    has = vals != ""
+    none = np.full(n, "", dtype=object)
+    if not has.any():
         return none, f"sample column '{header}' is empty; file not split"
-    if n_unique == 1:
-        return none, f"sample column '{header}' holds one value {v.iloc[0]!r}; file not split"
-    sizes = v.value_counts()
+    last = np.maximum.accumulate(np.where(has, np.arange(n), -1))
+    last[last < 0] = int(np.argmax(has))
+    v = vals[last]
+    uniq, counts = np.unique(v.astype(str), return_counts=True)
+    if len(uniq) == 1:
+        return none, f"sample column '{header}' holds one value {str(uniq[0])!r}; file not split"
     how = "its values"
-    if (sizes < 2).any():
-        prefix = v.str.replace(r"[\s_\-.:/#]*\d+$", "", regex=True).astype(object)
-        psizes = prefix.value_counts()
-        if 1 < len(psizes) < n_unique and (psizes >= 2).all() and (prefix != "").all():
-            v, sizes = prefix, psizes
+    n_groups = len(uniq)
+    if (counts < 2).any():
+        prefix = np.array([re.sub(r"[\s_\-.:/#]*\d+$", "", x) for x in v], dtype=object)
+        puniq, pcounts = np.unique(prefix.astype(str), return_counts=True)
+        if 1 < len(puniq) < len(uniq) and (pcounts >= 2).all() and (prefix != "").all():
+            v, n_groups = prefix, len(puniq)
             how = "the value prefixes before a trailing spot number"
         else:
             return none, (
-                f"sample column '{header}' has {n_unique} different values, some on one row "
+                f"sample column '{header}' has {len(uniq)} different values, some on one row "
                 "only; file not split (name the traverse column with column_map, or fix the "
                 "column, to split it)"
             )
-    runs = int((v != v.shift()).sum())
-    note = f"split on sample column '{header}' by {how} into {len(sizes)} traverses"
-    if runs != len(sizes):
+    runs = int(1 + (v[1:] != v[:-1]).sum())
+    note = f"split on sample column '{header}' by {how} into {n_groups} traverses"
+    if runs != n_groups:
         note += (f" (values not contiguous: {runs} runs; the rows of each value are gathered "
                  "in file order)")
     return v, note
