@@ -92,6 +92,10 @@ def test_rerun_skips_unchanged_samples_and_redoes_changed_ones(tmp_path):
     path.write_text(text, encoding="utf-8")
     third = run_batch(read_project(path), out, workers=1, progress=False)
     assert [o.status for o in third.outcomes] == ["unchanged", "unchanged", "fitted"]
+    # A sample whose outputs were deleted is refitted even if nothing else changed.
+    (out / "S1" / "fit.json").unlink()
+    fourth = run_batch(read_project(path), out, workers=1, progress=False)
+    assert [o.status for o in fourth.outcomes] == ["fitted", "unchanged", "unchanged"]
 
 
 def test_forced_rerun_refits_and_gives_identical_numbers(tmp_path):

@@ -763,6 +763,16 @@ def _move_into_place(tmp: Path, folder: Path) -> None:
         shutil.rmtree(old, ignore_errors=True)
 
 
+def _outputs_present(job: SampleJob, folder: Path) -> bool:
+    names = ["fit.json", "profile.csv"]
+    if job.figures:
+        names += [f"{n}.{ext}" for n in ("profile", "melt_path", "posterior")
+                  for ext in ("png", "pdf")]
+    if job.report:
+        names.append("report.pdf")
+    return all((folder / n).is_file() for n in names)
+
+
 def _stored(folder: Path) -> dict[str, Any] | None:
     try:
         return json.loads((folder / _FINGERPRINT_FILE).read_text(encoding="utf-8"))
@@ -915,7 +925,7 @@ def run_batch(
         fp = fingerprint(job)
         stored = _stored(folders[job.name])
         if (not force and fp and stored and stored.get("fingerprint") == fp
-                and stored.get("status") == "fitted"):
+                and stored.get("status") == "fitted" and _outputs_present(job, folders[job.name])):
             outcomes[job.name] = SampleOutcome(
                 job.name, "unchanged", stored.get("row", {}), "", str(folders[job.name]), 0.0
             )
