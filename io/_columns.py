@@ -128,11 +128,13 @@ def normalise_header(header: str) -> str:
 
 _UNIT_WORDS = (
     r"µm|um|micron|microns|micrometers?|micrometres?|mm|nm|"
-    r"wt\s*\.?\s*%|wt\s*\.?\s*pct|wt\.?|%|mass\s*%|ppm|mol\s*%|apfu|cations?|cat\.?"
+    r"wt\s*\.?\s*%|wt\s*\.?\s*pct|wt\.?|ox(?:ide)?\s*%|%|mass\s*%|ppm|mol\s*%|apfu|cations?|"
+    r"cat\.?"
 )
 _BRACKET_UNIT = re.compile(r"^(?P<base>.*?)\s*[\(\[]\s*(?P<unit>[^\)\]]*?)\s*[\)\]]\s*$")
 _SUFFIX_UNIT = re.compile(rf"^(?P<base>.*?)[\s/]+(?P<unit>{_UNIT_WORDS})$")
 _JOINED_UNIT = re.compile(r"^(?P<base>.*?[a-z0-9*])(?P<unit>wt%|%)$")
+_LEADING_PERCENT = re.compile(r"^(?P<unit>%)\s*(?P<base>[a-z].*)$")
 _PREFIX_UNIT = re.compile(rf"^(?P<unit>wt\s*\.?\s*%|{_UNIT_WORDS})\s+(?P<base>.+)$")
 
 
@@ -147,7 +149,8 @@ def _canonical_unit(unit: str) -> str:
         return "mm"
     if u == "nm":
         return "nm"
-    if u in ("wt%", "wt.%", "wt", "wt.", "%", "mass%", "wtpct", "wt.pct", "oxidewt%"):
+    if u in ("wt%", "wt.%", "wt", "wt.", "%", "mass%", "wtpct", "wt.pct", "oxidewt%", "ox%",
+             "oxide%"):
         return "wt%"
     if u == "ppm":
         return "ppm"
@@ -187,6 +190,9 @@ def split_unit(normalised: str) -> tuple[str, str]:
     m = _JOINED_UNIT.match(h)
     if m:
         return m.group("base").strip(), _canonical_unit(m.group("unit"))
+    m = _LEADING_PERCENT.match(h)
+    if m:
+        return m.group("base").strip(), "wt%"
     return h, ""
 
 
