@@ -284,15 +284,19 @@ def _w_lower_bound(f_end, y0, k, c, ma, mb, tol=1e-12):
     w = np.maximum((target - h0) / slope0,
                    (target + l1y0 / (1.0 - k) + np.log(cb)) * (1.0 - k) / k)
     w = np.maximum(w, 0.0)
+    # Entries stop moving once converged, so that every parameter set gets
+    # the same result whatever the other sets in the batch.
+    done = np.zeros(w.shape, dtype=bool)
     for _ in range(40):
         y = y0 * np.exp(-w)
         one_y = 1.0 - y
         mix = cb + ca * y
         resid = (-(w + (np.log(one_y) - l1y0) * ik) * qk - np.log(mix)) - target
-        if np.all(np.abs(resid) <= tol):
+        done |= np.abs(resid) <= tol
+        if done.all():
             break
         slope = ca * y / mix - (1.0 + y * ik / one_y) * qk
-        w = np.maximum(w - resid / slope, 0.5 * w)
+        w = np.where(done, w, np.maximum(w - resid / slope, 0.5 * w))
     # Slight overshoot so that the grid surely covers f_end.
     return w * (1.0 + 1e-9) + 1e-12
 
