@@ -537,12 +537,13 @@ def _find_header(lines_or_cells, source: str, user_map: dict[str, str], *,
         f"{source}: no header line found (no line in the first {_HEADER_SEARCH_LINES} has "
         f"{MIN_RECOGNISED} or more recognised column names such as SiO2, MgO, FeO, Point, "
         f"Distance); the line that looks most like a header (line {line_numbers[i]}) has "
-        f"{shown}. Pass column_map={{'SiO2': '<header>', ...}} to say which column is which."
+        f"{shown}. Say which column is which with a column map (column_map={{'SiO2': "
+        "'<header>', ...}}; on the command line --column-map SiO2='<header>')."
     )
 
 
 def _map_columns(header: list[str], source: str, user_map: dict[str, str],
-                 header_line: int):
+                 header_line: int, row_word: str = "line"):
     """Return (canonical -> (column index, ColumnMatch), notes)."""
     stripped = [h.strip().lstrip("\ufeff") for h in header]
     notes: list[str] = []
@@ -557,7 +558,7 @@ def _map_columns(header: list[str], source: str, user_map: dict[str, str],
         if not idx:
             raise ProfileFormatError(
                 f"{source}: column_map[{key!r}] = {header_text!r} is not a header of the "
-                f"file; headers found on line {header_line}: {[h for h in stripped if h]}."
+                f"file; headers found on {row_word} {header_line}: {[h for h in stripped if h]}."
             )
         if len(idx) > 1:
             raise ProfileFormatError(
@@ -593,9 +594,9 @@ def _map_columns(header: list[str], source: str, user_map: dict[str, str],
         if any(matches.get(j) is not None and matches[j].canonical for j in idx):
             names = [stripped[j] for j in idx]
             raise ProfileFormatError(
-                f"{source}: duplicated header {names[0]!r} on line {header_line} (columns "
+                f"{source}: duplicated header {names[0]!r} on {row_word} {header_line} (columns "
                 f"{[j + 1 for j in idx]}); rename the duplicates so each header is unique, "
-                "or pick one with column_map."
+                "or pick one with a column map (column_map / --column-map)."
             )
     ignored_other, ignored_elements, ignored_reported = [], [], []
     for canonical, idx in by_canonical.items():
@@ -607,9 +608,10 @@ def _map_columns(header: list[str], source: str, user_map: dict[str, str],
         if len(idx) > 1:
             names = [stripped[j] for j in idx]
             raise ProfileFormatError(
-                f"{source}: columns {names} on line {header_line} all look like "
-                f"{canonical}; pass column_map={{'{canonical}': '{names[0]}'}} (or the other "
-                "one) to choose."
+                f"{source}: columns {names} on {row_word} {header_line} all look like "
+                f"{canonical}; choose one with column_map={{'{canonical}': '{names[0]}'}} "
+                f"(command line: --column-map {canonical}='{names[0]}') or name the other "
+                "one."
             )
         j = idx[0]
         used[canonical] = (j, matches[j])
@@ -635,9 +637,10 @@ def _map_columns(header: list[str], source: str, user_map: dict[str, str],
         notes.append(f"columns not used: {ignored_other}")
     if not any(k in OXIDES for k in used):
         raise ProfileFormatError(
-            f"{source}: no oxide columns recognised on header line {header_line}; headers "
+            f"{source}: no oxide columns recognised on header {row_word} {header_line}; headers "
             f"found: {[h for h in stripped if h]}. Expected oxide wt% columns such as SiO2, "
-            "FeO, MgO, CaO; pass column_map={'MgO': '<header>', ...} to name them."
+            "FeO, MgO, CaO; name them with column_map={'MgO': '<header>', ...} (command "
+            "line: --column-map MgO='<header>')."
         )
     return used, notes
 
@@ -782,7 +785,7 @@ class _Flags:
 def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
                   header_line: int, line_before: list[str], row_word: str, delimiter: str):
     header_cells = [c.strip().lstrip("\ufeff") for c in records[0][1]]
-    used, col_notes = _map_columns(header_cells, source, user_map, header_line)
+    used, col_notes = _map_columns(header_cells, source, user_map, header_line, row_word)
     if header_line > 2:
         notes.append(f"header on {row_word} {header_line}; {row_word}s 1-{header_line - 1} "
                      "above it skipped as title/metadata")
