@@ -654,24 +654,9 @@ class CrystallizationModel(_ModelBase):
         path = _kernels.exchange_path(f, y0, k, r, s0, law.sites, law.molar_mass_a,
                                       law.molar_mass_b)
         y, t = path["y"], path["t"]
-        x = equilibrium_crystal(y, k)
-        melt_mass = 100.0 * (1.0 - f)
         cations_melt = s0 * (1.0 - t)
         a_l = y * cations_melt
-        b_l = cations_melt - a_l
-        ox_a = a_l / law.cations_per_oxide_a * OXIDE_MOLAR_MASS[law.compatible_oxide]
-        ox_b = b_l / law.cations_per_oxide_b * OXIDE_MOLAR_MASS[law.other_oxide]
-        out = {
-            "f": f.copy(),
-            "crystal": 100.0 * x,
-            "melt_ratio": y,
-            f"melt_{law.compatible_oxide.lower()}_wt": 100.0 * ox_a / melt_mass,
-            f"melt_{law.other_oxide.lower()}_wt": 100.0 * ox_b / melt_mass,
-        }
-        if self.mineral == "olivine":
-            out["temperature_c"] = 20.1 * out["melt_mgo_wt"] + 1014.0
-        else:
-            out["temperature_c"] = np.full_like(f, self.temperature_c)
+        out = self._outputs(f, y, k, a_l, cations_melt - a_l, 100.0 * (1.0 - f))
         if self.traces:
             self._traces(out, path, p, s0, r, f, stacklevel + 1)
         if np.any(beyond):
