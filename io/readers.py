@@ -824,9 +824,12 @@ def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
     # a units line directly below the header
     units_row: dict[int, str] = {}
     if n_nonempty[0] >= 2 and all(_columns.is_unit_token(c) for c in grid[0] if c):
-        units_row = {j: _columns.unit_of_token(c) for j, c in enumerate(grid[0]) if c}
-        kind[0] = "units"
-        notes.append(f"{row_word} {line_no[0]} read as a units line")
+        units = {j: _columns.unit_of_token(c) for j, c in enumerate(grid[0]) if c}
+        # "nm" alone may mean "not measured" as well as nanometres: not a units line
+        if any(u != "nm" for u in units.values()):
+            units_row = units
+            kind[0] = "units"
+            notes.append(f"{row_word} {line_no[0]} read as a units line")
 
     # repeated header lines
     hdr = np.array(header_cells + pad[n_header:], dtype=object)
