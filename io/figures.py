@@ -124,18 +124,38 @@ def _short(text: str, n: int = 48) -> str:
     return text if len(text) <= n else text[: n - 1] + "…"
 
 
+def _sides(result, spots: pd.DataFrame) -> pd.Series:
+    """Half-profile ("A"/"B", "" for one half) of each spot, from the traverse."""
+    t = getattr(result, "traverse", None)
+    tsp = getattr(t, "spots", None)
+    if tsp is None or "side" not in tsp or "row" not in tsp or "row" not in spots:
+        return pd.Series("", index=spots.index)
+    side = dict(zip(tsp["row"].tolist(), tsp["side"].fillna("").astype(str), strict=True))
+    return spots["row"].map(side).fillna("").astype(str)
+
+
 def _draw_spots(ax, spots: pd.DataFrame, x: str, y: str, sig: str | None, mineral_color: str,
-                flag_labels: bool = True):
+                flag_labels: bool = True, sides: pd.Series | None = None):
     used = spots[spots["used"].astype(bool)]
-    xs = used[x].to_numpy(float)
-    ys = used[y].to_numpy(float)
-    es = used[sig].to_numpy(float) if sig and sig in used else None
-    if es is not None and not np.isfinite(es).any():
-        es = None
-    ax.errorbar(
-        xs, ys, yerr=es, fmt="o", ms=4, color=mineral_color, ecolor=mineral_color,
-        elinewidth=0.8, capsize=0, label=f"measured ({len(used)} spots used)", zorder=4,
-    )
+    side = (sides if sides is not None else pd.Series("", index=spots.index)).loc[used.index]
+    halves = sorted(v for v in side.unique() if v)
+    groups = [("", used)] if len(halves) < 2 else [(h, used[side == h]) for h in halves]
+    styles = {"": ("o", mineral_color), halves[0] if halves else "A": ("o", mineral_color)}
+    if len(halves) >= 2:
+        styles[halves[1]] = ("D", PALETTE["purple"])
+    for half, grp in groups:
+        xs = grp[x].to_numpy(float)
+        ys = grp[y].to_numpy(float)
+        es = grp[sig].to_numpy(float) if sig and sig in grp else None
+        if es is not None and not np.isfinite(es).any():
+            es = None
+        marker, colour = styles.get(half, ("o", mineral_color))
+        label = (f"measured ({len(grp)} spots used)" if not half
+                 else f"measured, half {half} ({len(grp)} spots used)")
+        ax.errorbar(
+            xs, ys, yerr=es, fmt=marker, ms=4, color=colour, ecolor=colour,
+            elinewidth=0.8, capsize=0, label=label, zorder=4,
+        )
     for k, (why, grp) in enumerate(_flag_groups(spots)):
         gx = grp[x].to_numpy(float)
         gy = grp[y].to_numpy(float)
@@ -222,7 +242,8 @@ def _profile_main(ax, result) -> None:
                 label="pure equilibrium (r = 1)", zorder=2)
     if "best" in curve:
         ax.plot(d, curve["best"], color=PALETTE["blue"], lw=1.8, label="best fit", zorder=3)
-    _draw_spots(ax, spots, "distance_um", "observed", "sigma", PALETTE["black"])
+    _draw_spots(ax, spots, "distance_um", "observed", "sigma", PALETTE["black"],
+                sides=_sides(result, spots))
     ax.set_ylabel(_major_label(result.mineral))
     ax.set_xlabel("Distance from core [µm]")
 
@@ -238,7 +259,7 @@ def _profile_trace(ax, result, oxide: str) -> None:
         ax.plot(d, curve[f"{oxide}_best"], color=PALETTE["blue"], lw=1.8, label="best fit")
     sig = f"{oxide}_sigma" if f"{oxide}_sigma" in spots else None
     _draw_spots(ax, spots, "distance_um", f"{oxide}_observed", sig, PALETTE["black"],
-                flag_labels=False)
+                flag_labels=False, sides=_sides(result, spots))
     ax.set_ylabel(f"{oxide} [wt%]")
     ax.legend(fontsize="x-small", loc="best")
 

@@ -155,3 +155,11 @@ def test_figures_are_reproducible(olivine, tmp_path):
     b = figures.save_figure(figures.corner_figure(olivine), tmp_path / "b")
     assert a["png"].read_bytes() == b["png"].read_bytes()
     assert np.array_equal(a["pdf"].read_bytes(), b["pdf"].read_bytes())
+
+
+def test_rim_to_rim_traverse_shows_both_halves():
+    result = _fit("FRL-07_ol3.txt", "olivine", {"FeO": 9.8})
+    main = figures.profile_figure(result).axes[0]
+    halves = [c for c in main.containers if c.get_label().startswith("measured, half")]
+    assert len(halves) == 2
+    assert sum(len(c.lines[0].get_xdata()) for c in halves) == result.n_used
