@@ -457,7 +457,8 @@ def _xlsx_cell(v) -> str:
 
 
 def _score(cells: list[str]) -> tuple[int, int]:
-    found = {_columns.recognise(c).canonical for c in cells if c.strip()}
+    found = {_columns.recognise(c).canonical for c in cells
+             if c.strip() and not _NUMERIC_CELL_RE.match(c.strip())}
     found.discard("")
     return len(found), len(cells)
 
