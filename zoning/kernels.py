@@ -222,22 +222,6 @@ def _dtdw(t, y, k, r):
     return (1.0 + t * (r * fp - 1.0)) * den / ((1.0 - k) * (1.0 - y))
 
 
-def _d2tdw2(t, tw, y, k, r):
-    """Second derivative of t in w, from differentiating :func:`_dtdw`.
-
-    With :math:`t_w = A(1 + tB)`, :math:`A = (K + (1-K)y)/((1-K)(1-y))`,
-    :math:`B = r f'(y) - 1` and :math:`dy/dw = -y`:
-    :math:`dA/dy = 1/((1-K)(1-y)^2)`, :math:`dB/dy = -2rK(1-K)/(K + (1-K)y)^3`.
-    """
-    one_k = 1.0 - k
-    den = k + one_k * y
-    one_y = 1.0 - y
-    a = den / (one_k * one_y)
-    b = r * k / (den * den) - 1.0
-    db = -2.0 * r * k * one_k / (den * den * den)
-    return -y / (one_k * one_y * one_y) * (1.0 + t * b) + a * (tw * b - t * y * db)
-
-
 def _quintic(v0, v1, d0, d1, s0, s1, h, u):
     """Quintic Hermite interpolation on [0, h] at u = x/h (values, slopes, curvatures)."""
     u2 = u * u
@@ -253,11 +237,6 @@ def _quintic(v0, v1, d0, d1, s0, s1, h, u):
     hh = h * h
     return (v0 * h00 + h * d0 * h10 + hh * s0 * h20 + hh * s1 * h21 + h * d1 * h11
             + v1 * h01)
-
-
-def _dfdw(t, tw, y, c, ma, mb):
-    """dF/dw at given t, dt/dw and y."""
-    return c * (mb * tw + (ma - mb) * y * (tw + 1.0 - t))
 
 
 def _w_lower_bound(f_end, y0, k, c, ma, mb, tol=1e-12):
@@ -350,26 +329,30 @@ def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS
     n = w.shape[1] - 1
     hi = np.diff(w, axis=1)  # (m, N) interval widths
     y = y0 * np.exp(-w)
-    p = (r - k) / (1.0 - k)
-    q = (1.0 - r * k) / (1.0 - k)
-    l1y = np.log1p(-y)
-    lden = np.log(k + (1.0 - k) * y)
+    one_k = 1.0 - k
+    p = (r - k) / one_k
+    q = (1.0 - r * k) / one_k
+    one_y = 1.0 - y
+    den = k + one_k * y
+    l1y = np.log(one_y)
+    lden = np.log(den)
     # ln mu at nodes (relative to an arbitrary constant)
-    lmu = -p * w + q * l1y - r * lden
-    # Gauss-Legendre nodes inside each interval, shape (m, N, G)
+    lmu = q * l1y - p * w - r * lden
+    # Gauss-Legendre points inside each interval, measured back from its right
+    # node: w_g = w_{i+1} - dw_right, shape (m, N, G)
     xi, om = _gauss01(n_gauss)
-    dw_right = hi[:, :, None] * (1.0 - xi)  # (m, N, G)
-    # w at the GL points measured back from the right node: w_g = w_{i+1} - dw_right
+    dw_right = hi[:, :, None] * (1.0 - xi)
     eta = y[:, 1:, None] * np.exp(dw_right)
-    l1eta = np.log1p(-eta)
-    den_eta = k[:, :, None] + (1.0 - k[:, :, None]) * eta
-    delta = (
+    one_eta = 1.0 - eta
+    kk = k[:, :, None]
+    den_eta = kk + one_k[:, :, None] * eta
+    # mu(eta)/mu(y_{i+1}) * den(eta)/(1 - eta); the 1/(1-K) factor is applied below
+    integrand = np.exp(
         p[:, :, None] * dw_right
-        + q[:, :, None] * (l1eta - l1y[:, 1:, None])
-        - r[:, :, None] * (np.log(den_eta) - lden[:, 1:, None])
-    )
-    integrand = np.exp(delta) * den_eta / ((1.0 - k[:, :, None]) * (1.0 - eta))
-    interval = hi * (integrand @ om)  # (m, N): int over interval of mu/mu(right) * (-eta/g) dw
+        + (q[:, :, None] - 1.0) * np.log(one_eta / one_y[:, 1:, None])
+        + (1.0 - r[:, :, None]) * np.log(den_eta / den[:, 1:, None])
+    ) * (den[:, 1:] / one_y[:, 1:])[:, :, None]
+    interval = hi / one_k * (integrand @ om)  # (m, N)
     # t_j = sum_{i<j} I_i exp(L_{i+1} - L_j)
     shift = np.max(lmu[:, 1:], axis=1, keepdims=True)
     with np.errstate(over="ignore", invalid="ignore"):
@@ -383,13 +366,22 @@ def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS
             prev = prev * np.exp(lmu[:, j] - lmu[:, j + 1]) + interval[:, j]
             t_in[:, j] = prev
     t = np.concatenate([np.zeros_like(y[:, :1]), t_in], axis=1)
-    f = _f_of_t(t, y, y0, c, ma, mb)
-    tw = _dtdw(t, y, k, r)
-    dfdw = _dfdw(t, tw, y, c, ma, mb)
-    tww = _d2tdw2(t, tw, y, k, r)
-    # inverse derivatives for quintic Hermite interpolation of w(F):
+    # derivatives from the ODE: t_w = A (1 + t B), A = den/((1-K)(1-y)),
+    # B = r f'(y) - 1, f' = K/den^2; dA/dy = 1/((1-K)(1-y)^2),
+    # dB/dy = -2 r K (1-K)/den^3, dy/dw = -y
+    a_fac = den / (one_k * one_y)
+    fp = k / (den * den)
+    b_fac = r * fp - 1.0
+    g1 = 1.0 + t * b_fac
+    tw = a_fac * g1
+    tww = -y * g1 / (one_k * one_y * one_y) + a_fac * (tw * b_fac + 2.0 * t * y * r * fp
+                                                        * one_k / den)
+    cm = c * (ma - mb)
+    cb = c * mb
+    f = cb * t + cm * (y0 - (1.0 - t) * y)
+    dfdw = cb * tw + cm * y * (tw + 1.0 - t)
     # F_ww = c [M_B t_ww + (M_A - M_B) y (t_ww - 2 t_w - 1 + t)]
-    d2fdw2 = c * (mb * tww + (ma - mb) * y * (tww - 2.0 * tw - 1.0 + t))
+    d2fdw2 = cb * tww + cm * y * (tww - 2.0 * tw - 1.0 + t)
     dwdf = 1.0 / dfdw
     d2wdf2 = -d2fdw2 * dwdf**3
     h = np.concatenate([hi, hi[:, -1:]], axis=1)  # padded to N+1 for node indexing
