@@ -476,3 +476,27 @@ def test_batch_rows_equal_single_evaluations_near_exhaustion():
                 assert np.all(np.isfinite(batch[key][i])), key
                 # identical up to BLAS summation order
                 assert_allclose(batch[key][i], single[key], rtol=1e-12, atol=0)
+
+
+def test_initial_guess_plagioclase_with_trace_mapping():
+    model = CrystallizationModel("plagioclase", {"CaO": 9.0, "Na2O": 3.5}, traces=("Sr",),
+                                 temperature_c=1150.0)
+    x = np.linspace(0, 300, 30)
+    truth = dict(melt_ca_number=0.6, f_rim=0.3, retention=0.2, melt0_sr_ppm=400.0)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", CalibrationRangeWarning)
+        prof = model.profile(x, 300.0, **truth)
+        major = prof["crystal"].copy()
+        major[5] = np.nan  # a flagged spot
+        order = np.random.default_rng(0).permutation(30)  # any spot order
+        guess = model.initial_guess(x[order], major[order],
+                                    trace={"Sr": prof["crystal_sro_wt"][order]})
+    assert guess["melt_ca_number"] == pytest.approx(0.6, abs=0.01)
+    assert guess["melt0_sr_ppm"] == pytest.approx(400.0, rel=0.1)
+    assert 0.05 < guess["f_rim"] < 0.6
+
+
+def test_initial_guess_needs_two_spots():
+    model = CrystallizationModel("olivine", BASALT)
+    with pytest.raises(ModelDomainError, match="at least two"):
+        model.initial_guess([0.0, 1.0], [np.nan, 85.0])
