@@ -47,10 +47,10 @@ TRUTH = {
                        n=29, seed=301, recharge_um=170.0, recharge_mg_number=0.74),
     "FRL-12 pl1": dict(mineral="plagioclase", melt={"Na2O": 3.1}, kd=2.0,
                        melt_ca_number=0.62, f_rim=0.35, retention=0.30, radius_um=500.0,
-                       melt0_sr_ppm=420.0, n=36, seed=1201),
+                       melt0_sr_ppm=420.0, melt0_mgo_wt=4.0, n=36, seed=1201),
     "FRL-12 pl2": dict(mineral="plagioclase", melt={"Na2O": 3.1}, kd=2.0,
                        melt_ca_number=0.58, f_rim=0.30, retention=0.0, radius_um=360.0,
-                       melt0_sr_ppm=450.0, n=30, seed=1202),
+                       melt0_sr_ppm=450.0, melt0_mgo_wt=3.8, n=30, seed=1202),
 }
 
 
@@ -61,7 +61,7 @@ PLAG_TEMPERATURE_C = 1150.0
 def _model(t: dict) -> CrystallizationModel:
     if t["mineral"] == "olivine":
         return CrystallizationModel("olivine", t["melt"], kd=t["kd"], traces=("Ni",))
-    return CrystallizationModel("plagioclase", t["melt"], kd=t["kd"], traces=("Sr",),
+    return CrystallizationModel("plagioclase", t["melt"], kd=t["kd"], traces=("Sr", "Mg"),
                                 temperature_c=PLAG_TEMPERATURE_C)
 
 
@@ -70,6 +70,8 @@ def _profile(t: dict, distance_um: np.ndarray, **override) -> dict:
     trace = "melt0_ni_ppm" if t["mineral"] == "olivine" else "melt0_sr_ppm"
     params = {ratio: t[ratio], "f_rim": t["f_rim"], "retention": t["retention"],
               trace: t[trace]}
+    if t["mineral"] == "plagioclase":
+        params["melt0_mgo_wt"] = t["melt0_mgo_wt"]
     params.update(override)
     return _model(t).profile(distance_um, t["radius_um"], **params)
 
@@ -103,8 +105,9 @@ def olivine_oxides(fo: np.ndarray, nio: np.ndarray, rng: np.random.Generator) ->
     return wt
 
 
-def plagioclase_oxides(an: np.ndarray, sro: np.ndarray, rng: np.random.Generator) -> pd.DataFrame:
-    """Oxide wt% of plagioclase spots from An [mol%] and SrO [wt%], with noise and totals."""
+def plagioclase_oxides(an: np.ndarray, sro: np.ndarray, mgo: np.ndarray,
+                       rng: np.random.Generator) -> pd.DataFrame:
+    """Oxide wt% of plagioclase spots from An [mol%], SrO and MgO [wt%], with noise."""
     n = len(an)
     orth = rng.uniform(0.005, 0.015, n)
     ca = an / 100.0 * (1.0 - orth)
@@ -113,7 +116,7 @@ def plagioclase_oxides(an: np.ndarray, sro: np.ndarray, rng: np.random.Generator
         "SiO2": (3.0 - ca) * molar_mass("SiO2"),
         "Al2O3": (1.0 + ca) / 2.0 * molar_mass("Al2O3"),
         "FeO": rng.normal(0.45, 0.04, n),
-        "MgO": rng.normal(0.12, 0.02, n),
+        "MgO": mgo,
         "CaO": ca * molar_mass("CaO"),
         "Na2O": na / 2.0 * molar_mass("Na2O"),
         "K2O": orth / 2.0 * molar_mass("K2O"),
@@ -126,7 +129,7 @@ def plagioclase_oxides(an: np.ndarray, sro: np.ndarray, rng: np.random.Generator
     total = rng.normal(99.8, 0.3, n)
     wt = wt.mul(total / 100.0, axis=0)
     for ox, rel in (("SiO2", 0.004), ("Al2O3", 0.005), ("CaO", 0.006), ("Na2O", 0.012),
-                    ("K2O", 0.05), ("SrO", 0.06)):
+                    ("K2O", 0.05), ("SrO", 0.06), ("MgO", 0.05)):
         wt[ox] = wt[ox] * (1.0 + rng.normal(0.0, rel, n))
     return wt
 
@@ -234,7 +237,7 @@ def make_pl1() -> pd.DataFrame:
     d = np.round(np.linspace(0.0, t["radius_um"] - 6.0, t["n"]), 1)
     prof = _profile(t, d)
     an = prof["crystal"] + rng.normal(0.0, 0.3, len(d))
-    wt = _round(plagioclase_oxides(an, prof["crystal_sro_wt"], rng))
+    wt = _round(plagioclase_oxides(an, prof["crystal_sro_wt"], prof["crystal_mgo_wt"], rng))
     df = pd.DataFrame({"Point": np.arange(1, len(d) + 1), "Comment": "FRL-12 pl1",
                        "Distance (um)": d})
     df = pd.concat([df, wt], axis=1)
@@ -270,7 +273,7 @@ def make_pl2() -> pd.DataFrame:
     d = np.round(np.linspace(0.0, t["radius_um"] - 5.0, t["n"]), 1)
     prof = _profile(t, d)
     an = prof["crystal"] + rng.normal(0.0, 0.3, len(d))
-    wt = _round(plagioclase_oxides(an, prof["crystal_sro_wt"], rng))
+    wt = _round(plagioclase_oxides(an, prof["crystal_sro_wt"], prof["crystal_mgo_wt"], rng))
     # planted: spot 18 partly on the groundmass glass (Fe, Mg, K up; Al, Ca down)
     wt.loc[17, ["SiO2", "Al2O3", "FeO", "MgO", "CaO", "Na2O", "K2O"]] = [
         55.84, 21.10, 4.12, 2.05, 8.95, 4.21, 1.38]
@@ -329,6 +332,7 @@ mineral = "plagioclase"
 melt = {{ Na2O = 3.1 }}
 kd = 2.0
 kd_sd = 0.3
+temperature_c = {plag_t:.0f}
 
 [samples."FRL-12 pl2"]
 file = "FRL-12_pl2.csv"
@@ -336,6 +340,7 @@ mineral = "plagioclase"
 melt = {{ Na2O = 3.1 }}
 kd = 2.0
 kd_sd = 0.3
+temperature_c = {plag_t:.0f}
 """
 
 #: Sampler lengths written into the demo project (short: the demo must be fast).
@@ -353,7 +358,8 @@ def main(argv: list[str] | None = None) -> int:
     for make in (make_ol1, make_ol2, make_ol3, make_frl03, make_pl1, make_pl2):
         make()
     (OUT / "project.toml").write_text(
-        PROJECT.format(walkers=DEMO_WALKERS, steps=DEMO_STEPS), encoding="utf-8")
+        PROJECT.format(walkers=DEMO_WALKERS, steps=DEMO_STEPS, plag_t=PLAG_TEMPERATURE_C),
+        encoding="utf-8")
     print(f"wrote the Ferrolyn demo data to {OUT}")
     return 0
 

@@ -182,6 +182,7 @@ FIT_OPTIONS: dict[str, tuple[str, Callable[[str, Any], Any]]] = {
     "robust": ("robust", _as_bool),
     "include_flagged": ("include_flagged", _as_bool),
     "free": ("free", _as_names),
+    "temperature_c": ("temperature_c", _as_float),
     "seed": ("seed", _as_int),
     "walkers": ("n_walkers", _as_int),
     "steps": ("n_steps", _as_int),

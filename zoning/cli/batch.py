@@ -69,6 +69,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="also fit spots flagged by the checks")
     g.add_argument("--free", metavar="NAMES",
                    help="extra free parameters, comma-separated")
+    g.add_argument("--temperature-c", type=float,
+                   help="temperature [°C] of the plagioclase Sr/Mg partitioning laws")
     g.add_argument("--walkers", type=int, help="sampler walkers")
     g.add_argument("--steps", type=int, help="sampler steps")
     g.add_argument("--seed", type=int, help="random seed")
@@ -77,7 +79,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 
 _FIT_ARGS = ("mineral", "kd", "kd_sd", "fe3", "geometry", "range", "radius_um", "sigma",
-             "robust", "include_flagged", "free", "walkers", "steps", "seed")
+             "robust", "include_flagged", "free", "temperature_c", "walkers", "steps",
+             "seed")
 
 
 def options_from_args(args: argparse.Namespace) -> dict:
