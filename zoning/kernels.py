@@ -200,11 +200,6 @@ def batch_exchange_t(y, y0, k):
     return (y0 - y) / (fy - y)
 
 
-def _gather(values, flat):
-    """values[i, j[i, :]] given flat indices i * ncol + j."""
-    return values.ravel()[flat]
-
-
 def _f_of_t(t, y, y0, c, ma, mb):
     """Crystallized fraction from t and y (explicit mass balance)."""
     return c * (mb * t + (ma - mb) * (y0 - (1.0 - t) * y))
@@ -222,21 +217,28 @@ def _dtdw(t, y, k, r):
     return (1.0 + t * (r * fp - 1.0)) * den / ((1.0 - k) * (1.0 - y))
 
 
-def _quintic(v0, v1, d0, d1, s0, s1, h, u):
-    """Quintic Hermite interpolation on [0, h] at u = x/h (values, slopes, curvatures)."""
-    u2 = u * u
-    u3 = u2 * u
-    u4 = u3 * u
-    u5 = u4 * u
-    h00 = 1 - 10 * u3 + 15 * u4 - 6 * u5
-    h10 = u - 6 * u3 + 8 * u4 - 3 * u5
-    h20 = 0.5 * (u2 - 3 * u3 + 3 * u4 - u5)
-    h21 = 0.5 * (u3 - 2 * u4 + u5)
-    h11 = -4 * u3 + 7 * u4 - 3 * u5
-    h01 = 10 * u3 - 15 * u4 + 6 * u5
-    hh = h * h
-    return (v0 * h00 + h * d0 * h10 + hh * s0 * h20 + hh * s1 * h21 + h * d1 * h11
-            + v1 * h01)
+def _quintic_coefficients(v0, v1, d0, d1, a0, a1):
+    """Power-series coefficients of the quintic Hermite on u in [0, 1].
+
+    ``d0, d1`` are the end slopes times the interval width h and ``a0, a1``
+    the end curvatures times h^2. Returns an array with the six coefficients
+    c0..c5 on a new last axis.
+    """
+    dv = v1 - v0
+    return np.stack([
+        v0, d0, 0.5 * a0,
+        10.0 * dv - 6.0 * d0 - 4.0 * d1 - 1.5 * a0 + 0.5 * a1,
+        -15.0 * dv + 8.0 * d0 + 7.0 * d1 + 1.5 * a0 - a1,
+        6.0 * dv - 3.0 * (d0 + d1) - 0.5 * (a0 - a1),
+    ], axis=-1)
+
+
+def _horner(c, u):
+    """Evaluate the polynomial with coefficients on the last axis of ``c`` at u."""
+    out = c[..., -1]
+    for i in range(c.shape[-1] - 2, -1, -1):
+        out = out * u + c[..., i]
+    return out
 
 
 def _w_lower_bound(f_end, y0, k, c, ma, mb, tol=1e-12):
@@ -385,47 +387,42 @@ def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS
     dwdf = 1.0 / dfdw
     d2wdf2 = -d2fdw2 * dwdf**3
     h = np.concatenate([hi, hi[:, -1:]], axis=1)  # padded to N+1 for node indexing
+    # per interval: [F_j, 1/dF, quintic coefficients of w(u)], u = (F - F_j)/dF,
+    # padded to N+1 rows so that node indices address it
+    dfi = np.diff(f, axis=1)
+    wcoef = _quintic_coefficients(w[:, :-1], w[:, 1:], dfi * dwdf[:, :-1], dfi * dwdf[:, 1:],
+                                  dfi * dfi * d2wdf2[:, :-1], dfi * dfi * d2wdf2[:, 1:])
+    wtab = np.concatenate([f[:, :-1, None], (1.0 / dfi)[:, :, None], wcoef], axis=2)
+    wtab = np.concatenate([wtab, wtab[:, -1:]], axis=1)
+    # per interval: quintic coefficients of t(u), u = (w - w_j)/h
+    tcoef = _quintic_coefficients(t[:, :-1], t[:, 1:], hi * tw[:, :-1], hi * tw[:, 1:],
+                                  hi * hi * tww[:, :-1], hi * hi * tww[:, 1:])
     return {"w": w, "y": y, "t": t, "f": f, "dfdw": dfdw, "dtdw": tw, "d2tdw2": tww,
-            "dwdf": dwdf, "d2wdf2": d2wdf2, "h": h}
+            "dwdf": dwdf, "d2wdf2": d2wdf2, "h": h, "wtab": wtab, "tcoef": tcoef}
 
 
-def _hermite_w(f, grid, quintic=False):
-    """Cubic (or quintic) Hermite inverse interpolation of w(F) on the grid nodes."""
+def _invert_w(f, grid):
+    """Quintic Hermite inverse interpolation of w(F) on the grid (error O(h^6)).
+
+    Uses the exact dw/dF and d2w/dF2 at the nodes. Returns w and the flat
+    index of the node at the left of each point.
+    """
     fn = grid["f"]
     m, n1 = fn.shape
     # one searchsorted over all rows: row i is shifted by 2 i. Requested F lie
     # in [0, 1); grid nodes past the exhaustion of the melt (F may exceed 1
     # there, or be NaN) are capped at 1.5 so that the rows stay separated.
-    shift = 2.0 * np.arange(m)[:, None]
+    rows = np.arange(m)[:, None]
+    shift = 2.0 * rows
     key = np.maximum.accumulate(np.fmin(fn[:, 1:-1], 1.5), axis=1)
-    inner = (key + shift).ravel()
-    pos = np.searchsorted(inner, (f + shift).ravel(), side="right").reshape(f.shape)
-    j = pos - (n1 - 2) * np.arange(m)[:, None]
-    flat = j + (np.arange(m) * n1)[:, None]
-    f_a = _gather(fn, flat)
-    f_b = _gather(fn, flat + 1)
-    w_a = _gather(grid["w"], flat)
-    w_b = _gather(grid["w"], flat + 1)
-    s_a = _gather(grid["dwdf"], flat)
-    s_b = _gather(grid["dwdf"], flat + 1)
-    df = f_b - f_a
-    u = (f - f_a) / df
-    if quintic:
-        w = _quintic(w_a, w_b, s_a, s_b, _gather(grid["d2wdf2"], flat),
-                     _gather(grid["d2wdf2"], flat + 1), df, u)
-        return w, (flat, w_a)
-    u2 = u * u
-    u3 = u2 * u
-    w = (
-        (2 * u3 - 3 * u2 + 1) * w_a
-        + (u3 - 2 * u2 + u) * df * s_a
-        + (-2 * u3 + 3 * u2) * w_b
-        + (u3 - u2) * df * s_b
-    )
-    return w, (flat, w_a)
+    pos = np.searchsorted((key + shift).ravel(), (f + shift).ravel(), side="right")
+    flat = pos.reshape(f.shape) + 2 * rows  # = j + i (N+1), j = pos - i (N-1)
+    tab = grid["wtab"].reshape(m * n1, -1)[flat]
+    w = _horner(tab[..., 2:], (f - tab[..., 0]) * tab[..., 1])
+    return w, flat
 
 
-def exchange_invert(f, grid, y0, k, r, s0, sites, ma, mb, *, n_gauss=N_GAUSS, polish=True):
+def exchange_invert(f, grid, y0, s0, sites, ma, mb):
     """Melt ratio y and cation fraction t at requested crystallized fractions.
 
     Parameters
@@ -434,16 +431,12 @@ def exchange_invert(f, grid, y0, k, r, s0, sites, ma, mb, *, n_gauss=N_GAUSS, po
         Crystallized fractions [fraction], each row within the row's grid.
     grid : dict
         Output of :func:`exchange_grid`.
-    y0, k, r, s0 : ndarray, shape (m, 1)
+    y0, s0 : ndarray, shape (m, 1)
         As in :func:`exchange_grid` (swapped so that K < 1).
     sites : int
         Exchange cations per formula unit.
     ma, mb : ndarray or float
         End-member molar masses [g/mol].
-    n_gauss : int
-        Gauss-Legendre nodes of the polishing quadrature.
-    polish : bool
-        Quintic rather than cubic Hermite inversion.
 
     Returns
     -------
@@ -453,16 +446,14 @@ def exchange_invert(f, grid, y0, k, r, s0, sites, ma, mb, *, n_gauss=N_GAUSS, po
         Flat index of the grid node at the left of each point.
     """
     c = s0 / (100.0 * sites)
-    # quintic Hermite of w(F) with the exact dw/dF and d2w/dF2 at the nodes
-    # (error O(h^6)); cubic Hermite (O(h^4)) when polish is False
-    w, (flat, w_a) = _hermite_w(f, grid, quintic=polish)
+    w, flat = _invert_w(f, grid)
     y = y0 * np.exp(-w)
     t = _t_of_f(f, y, y0, c, ma, mb)
     return y, t, w, flat
 
 
 def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS,
-                  n_gauss=N_GAUSS, polish=True):
+                  n_gauss=N_GAUSS):
     """Melt ratio and cation fraction along a retention crystallization path.
 
     Handles any K > 0 by swapping the pair where K > 1 and clamping
@@ -487,8 +478,6 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
         End-member molar masses [g/mol] (A = compatible-cation end-member for K < 1).
     n_intervals, n_gauss : int
         Grid resolution.
-    polish : bool
-        One Newton step on the exact F(y) after interpolation.
 
     Returns
     -------
@@ -531,8 +520,7 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
         w_nodes[:, -1:] = np.where(short, np.maximum(w_safe, w_nodes[:, -1:]), w_nodes[:, -1:])
         grid = exchange_grid(f_end, y0s, ks, r, s0, sites, mas, mbs, n_gauss=n_gauss,
                              w_nodes=w_nodes)
-    ys, t, w_pt, flat = exchange_invert(f, grid, y0s, ks, r, s0, sites, mas, mbs,
-                               n_gauss=n_gauss, polish=polish)
+    ys, t, w_pt, flat = exchange_invert(f, grid, y0s, s0, sites, mas, mbs)
     y = ys if swap is None else np.where(swap, 1.0 - ys, ys)
     return {"y": y, "t": t, "ys": ys, "w": w_pt, "flat": flat, "grid": grid, "swap": swap,
             "y0s": y0s, "ks": ks, "mas": mas, "mbs": mbs}
@@ -630,10 +618,9 @@ def trace_log_ratio(path, law, s0, sites, r, f, *, n_gauss=N_GAUSS_TRACE):
         # Hermite of the exact node values, flattened to (m, N*G)
         xi, om = _gauss01(n_gauss)
         hi = g["h"][:, :-1, None]
-        t, tw, tww = g["t"], g["dtdw"], g["d2tdw2"]
+        t, tw = g["t"], g["dtdw"]
         w_q = (g["w"][:, :-1, None] + hi * xi).reshape(m, -1)
-        t_q = _quintic(t[:, :-1, None], t[:, 1:, None], tw[:, :-1, None], tw[:, 1:, None],
-                       tww[:, :-1, None], tww[:, 1:, None], hi, xi).reshape(m, -1)
+        t_q = _horner(g["tcoef"][:, :, None, :], xi).reshape(m, -1)
         c = s0 / (100.0 * sites)
         y_q = y0s * np.exp(-w_q)
         f_q = _f_of_t(t_q, y_q, y0s, c, mas, mbs)
@@ -650,18 +637,16 @@ def trace_log_ratio(path, law, s0, sites, r, f, *, n_gauss=N_GAUSS_TRACE):
                                        law, f)
         parts = g["h"][:, :-1] * (integrand_q @ om)  # (m, N)
         cum = np.concatenate([np.zeros_like(parts[:, :1]), np.cumsum(parts, axis=1)], axis=1)
-        # cubic Hermite interpolation of the integral to the points
-        flat = path["flat"]
-        h = _gather(g["h"], flat)
-        u = (path["w"] - _gather(g["w"], flat)) / h
-        u2 = u * u
-        u3 = u2 * u
-        integral = (
-            (2 * u3 - 3 * u2 + 1) * _gather(cum, flat)
-            + (u3 - 2 * u2 + u) * h * _gather(integrand_nodes, flat)
-            + (-2 * u3 + 3 * u2) * _gather(cum, flat + 1)
-            + (u3 - u2) * h * _gather(integrand_nodes, flat + 1)
-        )
+        # cubic Hermite interpolation of the integral to the points, from a
+        # per-interval table [w_j, 1/h, c0..c3]
+        hh = g["h"][:, :-1]
+        d0 = hh * integrand_nodes[:, :-1]
+        d1 = hh * integrand_nodes[:, 1:]
+        dv = cum[:, 1:] - cum[:, :-1]
+        tab = np.stack([g["w"][:, :-1], 1.0 / hh, cum[:, :-1], d0, 3.0 * dv - 2.0 * d0 - d1,
+                        d0 + d1 - 2.0 * dv], axis=-1)
+        tab = np.concatenate([tab, tab[:, -1:]], axis=1).reshape(m * n1, -1)[path["flat"]]
+        integral = _horner(tab[..., 2:], (path["w"] - tab[..., 0]) * tab[..., 1])
         out = -np.log(wgt_pt / 100.0) - integral
     return out, d_pt
 
