@@ -390,8 +390,9 @@ class CrystallizationModel(_ModelBase):
     ``"crystal_mgo_wt"``/``"melt_mgo_wt"`` (plagioclase),
     ``"crystal_<x>_ppm"``/``"melt_<x>_ppm"`` (constant D).
 
-    Integration error of the fast path is below 1e-6 mol% Fo against a
-    fine reference (``benchmarks/forward.py`` prints it).
+    Integration error of the fast path is below 1e-5 mol% Fo (typically
+    1e-8) and about 1e-5 relative for traces, against a fine reference
+    (``benchmarks/forward.py`` prints it).
 
     References
     ----------
