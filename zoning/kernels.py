@@ -289,6 +289,50 @@ def _w_lower_bound(f_end, y0, k, c, ma, mb, tol=1e-12):
     return w * (1.0 + 1e-9) + 1e-12
 
 
+#: Points of the fractional-path table used to place the grid nodes.
+N_PLACEMENT = 48
+
+
+def _node_positions(f_targets, y0, k, c, ma, mb):
+    r"""Return w where the fractional path reaches ``f_targets`` (m, J), from a table.
+
+    With :math:`H(w) = -\ln(F_{max} - F_0(w))` of the explicit r = 0 path
+    (see :func:`_w_lower_bound`), H is concave with slope decreasing to
+    :math:`K/(1-K)`, so :math:`H(w) \ge H(0) + wK/(1-K)` bounds the range,
+    and linear interpolation of H between table points (a chord, below the
+    concave H) never places a node before the point it aims at: the last
+    node covers the last target.
+    """
+    cb = c * mb
+    ca = c * (ma - mb)
+    ik = 1.0 / k
+    slope_inf = k / (1.0 - k)
+    l1y0 = np.log(1.0 - y0)
+    h0 = -np.log(cb + ca * y0)
+    target = -np.log(cb + ca * y0 - f_targets)  # (m, J)
+    w_hi = (target[:, -1:] - h0) / slope_inf * (1.0 + 1e-9) + 1e-300
+    wg = w_hi * _placement_grid()
+    y = y0 * np.exp(-wg)
+    hg = (wg + (np.log(1.0 - y) - l1y0) * ik) * slope_inf - np.log(cb + ca * y)
+    # table interval of each target, then linear interpolation
+    idx = np.clip(np.sum(hg[:, None, 1:-1] <= target[:, :, None], axis=2), 0, wg.shape[1] - 2)
+    h_a = np.take_along_axis(hg, idx, axis=1)
+    h_b = np.take_along_axis(hg, idx + 1, axis=1)
+    w_a = np.take_along_axis(wg, idx, axis=1)
+    w_b = np.take_along_axis(wg, idx + 1, axis=1)
+    frac = np.clip((target - h_a) / (h_b - h_a), 0.0, 1.0)
+    return w_a + frac * (w_b - w_a)
+
+
+@lru_cache(maxsize=4)
+def _placement_grid_cached(n: int) -> np.ndarray:
+    return np.linspace(0.0, 1.0, n)
+
+
+def _placement_grid() -> np.ndarray:
+    return _placement_grid_cached(N_PLACEMENT)
+
+
 def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS,
                   n_gauss=N_GAUSS, w_end=None, w_nodes=None):
     r"""Integrate t on a grid uniform in w = ln(y0/y) up to F = ``f_end``.
@@ -514,7 +558,7 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
     gap_ratio = (f_cap - f_last) / f_cap
     f_targets = 0.5 * (f_last * frac + f_cap * (1.0 - gap_ratio**frac))
     # node placement needs no precision; coverage of f_end is checked below
-    w_nodes = _w_lower_bound(f_targets, y0s, ks, c, mas, mbs, tol=1e-4)
+    w_nodes = _node_positions(f_targets, y0s, ks, c, mas, mbs)
     w_nodes[:, 0] = 0.0
     grid = exchange_grid(f_end, y0s, ks, r, s0, sites, mas, mbs, n_gauss=n_gauss,
                          w_nodes=w_nodes)
