@@ -297,11 +297,11 @@ def _node_positions(f_targets, y0, k, c, ma, mb):
     r"""Return w where the fractional path reaches ``f_targets`` (m, J), from a table.
 
     With :math:`H(w) = -\ln(F_{max} - F_0(w))` of the explicit r = 0 path
-    (see :func:`_w_lower_bound`), H is concave with slope decreasing to
-    :math:`K/(1-K)`, so :math:`H(w) \ge H(0) + wK/(1-K)` bounds the range,
-    and linear interpolation of H between table points (a chord, below the
-    concave H) never places a node before the point it aims at: the last
-    node covers the last target.
+    (see :func:`_w_lower_bound`), the slope of H never falls below its limit
+    :math:`K/(1-K)`, so :math:`H(w) \ge H(0) + wK/(1-K)` bounds the table
+    range; linear interpolation in the table then places the nodes (H is
+    nearly linear in w). :func:`exchange_path` checks that the last node
+    covers the largest requested F and moves it if not.
     """
     cb = c * mb
     ca = c * (ma - mb)
