@@ -220,3 +220,23 @@ def test_closed_form_mass_balance(d, r, f):
     iso = (1 - r) * d * quad(cl, 0, f, epsabs=1e-14, epsrel=1e-13)[0]
     total = (1 - f) * cl(f) + r * f * d * cl(f) + iso
     assert_allclose(total, 1.0, rtol=ATOL_MASS_BALANCE)
+
+
+def test_short_grid_is_extended_to_cover_the_last_fraction(monkeypatch):
+    # If the placed nodes fall short of the largest requested F, the last node
+    # is moved to the precise fractional-path bound (fallback branch).
+    y0, k, r = 0.6, 0.3, 0.5
+    s0 = _olivine_s0(y0)
+    fs = np.linspace(0, 0.15, 20)
+    ref = kernels.exchange_path(fs[None, :], col(y0), col(k), col(r), col(s0), 2,
+                                OL.molar_mass_a, OL.molar_mass_b)["y"]
+    original = kernels._node_positions
+    monkeypatch.setattr(kernels, "_node_positions", lambda *a: 0.3 * original(*a))
+    got = kernels.exchange_path(fs[None, :], col(y0), col(k), col(r), col(s0), 2,
+                                OL.molar_mass_a, OL.molar_mass_b)
+
+    def fo(y):
+        return 100 * y / (y + k * (1 - y))
+
+    assert got["grid"]["f"][0, -1] >= fs[-1]
+    assert_allclose(fo(got["y"]), fo(ref), atol=ATOL_INTEGRATION_FO)

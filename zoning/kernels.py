@@ -563,9 +563,10 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
     grid = exchange_grid(f_end, y0s, ks, r, s0, sites, mas, mbs, n_gauss=n_gauss,
                          w_nodes=w_nodes)
     short = grid["f"][:, -1:] < f_end
-    if np.any(short):  # last node short of f_end: move it to the precise r = 0 bound
+    if np.any(short):  # nodes short of f_end: stretch them to the precise r = 0 bound
         w_safe = _w_lower_bound(f_last, y0s, ks, c, mas, mbs) * (1.0 + 1e-6)
-        w_nodes[:, -1:] = np.where(short, np.maximum(w_safe, w_nodes[:, -1:]), w_nodes[:, -1:])
+        scale = np.maximum(w_safe / w_nodes[:, -1:], 1.0)
+        w_nodes = np.where(short, w_nodes * scale, w_nodes)
         grid = exchange_grid(f_end, y0s, ks, r, s0, sites, mas, mbs, n_gauss=n_gauss,
                              w_nodes=w_nodes)
     ys, t, w_pt, flat = exchange_invert(f, grid, y0s, s0, sites, mas, mbs)
