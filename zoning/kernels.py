@@ -221,20 +221,23 @@ def _dtdw(t, y, k, r):
     return (1.0 + t * (r * fp - 1.0)) * den / ((1.0 - k) * (1.0 - y))
 
 
-def _quintic_coefficients(v0, v1, d0, d1, a0, a1):
+def _quintic_coefficients(v0, v1, d0, d1, a0, a1, out=None):
     """Power-series coefficients of the quintic Hermite on u in [0, 1].
 
     ``d0, d1`` are the end slopes times the interval width h and ``a0, a1``
-    the end curvatures times h^2. Returns an array with the six coefficients
-    c0..c5 on a new last axis.
+    the end curvatures times h^2. Returns (or fills ``out``, whose last axis
+    has length 6) the coefficients c0..c5 on the last axis.
     """
+    if out is None:
+        out = np.empty(np.shape(v0) + (6,))
     dv = v1 - v0
-    return np.stack([
-        v0, d0, 0.5 * a0,
-        10.0 * dv - 6.0 * d0 - 4.0 * d1 - 1.5 * a0 + 0.5 * a1,
-        -15.0 * dv + 8.0 * d0 + 7.0 * d1 + 1.5 * a0 - a1,
-        6.0 * dv - 3.0 * (d0 + d1) - 0.5 * (a0 - a1),
-    ], axis=-1)
+    out[..., 0] = v0
+    out[..., 1] = d0
+    out[..., 2] = 0.5 * a0
+    out[..., 3] = 10.0 * dv - 6.0 * d0 - 4.0 * d1 - 1.5 * a0 + 0.5 * a1
+    out[..., 4] = -15.0 * dv + 8.0 * d0 + 7.0 * d1 + 1.5 * a0 - a1
+    out[..., 5] = 6.0 * dv - 3.0 * (d0 + d1) - 0.5 * (a0 - a1)
+    return out
 
 
 def _horner(c, u):
@@ -438,13 +441,17 @@ def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS
     # per interval: [F_j, 1/dF, quintic coefficients of w(u)], u = (F - F_j)/dF,
     # padded to N+1 rows so that node indices address it
     dfi = np.diff(f, axis=1)
-    wcoef = _quintic_coefficients(w[:, :-1], w[:, 1:], dfi * dwdf[:, :-1], dfi * dwdf[:, 1:],
-                                  dfi * dfi * d2wdf2[:, :-1], dfi * dfi * d2wdf2[:, 1:])
-    wtab = np.concatenate([f[:, :-1, None], (1.0 / dfi)[:, :, None], wcoef], axis=2)
-    wtab = np.concatenate([wtab, wtab[:, -1:]], axis=1)
+    wtab = np.empty((w.shape[0], n + 1, 8))
+    wtab[:, :-1, 0] = f[:, :-1]
+    wtab[:, :-1, 1] = 1.0 / dfi
+    dfi2 = dfi * dfi
+    _quintic_coefficients(w[:, :-1], w[:, 1:], dfi * dwdf[:, :-1], dfi * dwdf[:, 1:],
+                          dfi2 * d2wdf2[:, :-1], dfi2 * d2wdf2[:, 1:], out=wtab[:, :-1, 2:])
+    wtab[:, -1] = wtab[:, -2]
     # per interval: quintic coefficients of t(u), u = (w - w_j)/h
+    hi2 = hi * hi
     tcoef = _quintic_coefficients(t[:, :-1], t[:, 1:], hi * tw[:, :-1], hi * tw[:, 1:],
-                                  hi * hi * tww[:, :-1], hi * hi * tww[:, 1:])
+                                  hi2 * tww[:, :-1], hi2 * tww[:, 1:])
     return {"w": w, "y": y, "t": t, "f": f, "dfdw": dfdw, "dtdw": tw, "d2tdw2": tww,
             "dwdf": dwdf, "d2wdf2": d2wdf2, "h": h, "wtab": wtab, "tcoef": tcoef}
 
@@ -692,9 +699,15 @@ def trace_log_ratio(path, law, s0, sites, r, f, *, n_gauss=N_GAUSS_TRACE):
         d0 = hh * integrand_nodes[:, :-1]
         d1 = hh * integrand_nodes[:, 1:]
         dv = cum[:, 1:] - cum[:, :-1]
-        tab = np.stack([g["w"][:, :-1], 1.0 / hh, cum[:, :-1], d0, 3.0 * dv - 2.0 * d0 - d1,
-                        d0 + d1 - 2.0 * dv], axis=-1)
-        tab = np.concatenate([tab, tab[:, -1:]], axis=1).reshape(m * n1, -1)[path["flat"]]
+        tab = np.empty((m, n1, 6))
+        tab[:, :-1, 0] = g["w"][:, :-1]
+        tab[:, :-1, 1] = 1.0 / hh
+        tab[:, :-1, 2] = cum[:, :-1]
+        tab[:, :-1, 3] = d0
+        tab[:, :-1, 4] = 3.0 * dv - 2.0 * d0 - d1
+        tab[:, :-1, 5] = d0 + d1 - 2.0 * dv
+        tab[:, -1] = tab[:, -2]
+        tab = tab.reshape(m * n1, -1)[path["flat"]]
         integral = _horner(tab[..., 2:], (path["w"] - tab[..., 0]) * tab[..., 1])
         out = -np.log(wgt_pt / 100.0) - integral
     return out, d_pt
