@@ -63,7 +63,13 @@ from zoning.partitioning import (
     make_trace_law,
 )
 
-__all__ = ["ParameterSpec", "CrystallizationModel", "ConstantPartitionModel", "MODELS"]
+__all__ = [
+    "ParameterSpec",
+    "CrystallizationModel",
+    "ConstantPartitionModel",
+    "MODELS",
+    "DEFAULT_BEAM_UM",
+]
 
 #: Default width of the beam/interaction volume, full width at half maximum,
 #: used when a convolution is asked for without a value [µm]. Typical
