@@ -180,6 +180,44 @@ def _shade_reversals(ax, result) -> None:
         )
 
 
+def _zoom_to_used(ax, spots: pd.DataFrame, y: str, sig: str | None,
+                  curves: list[np.ndarray]) -> None:
+    """Scale the y axis to the used spots and the model; pin far-off spots at the edge.
+
+    A flagged spot far from the rest (e.g. a glass hit) would otherwise
+    squash the profile; it is drawn at the edge of the panel with a note.
+    """
+    used = spots[spots["used"].astype(bool)]
+    vals = [used[y].to_numpy(float)]
+    if sig and sig in used:
+        e = np.nan_to_num(used[sig].to_numpy(float))
+        vals += [vals[0] - e, vals[0] + e]
+    vals += [np.asarray(c, float) for c in curves]
+    allv = np.concatenate([v.ravel() for v in vals]) if vals else np.array([])
+    allv = allv[np.isfinite(allv)]
+    if allv.size == 0:
+        return
+    lo, hi = float(allv.min()), float(allv.max())
+    pad = 0.08 * (hi - lo) if hi > lo else max(abs(hi) * 0.05, 1e-3)
+    lo, hi = lo - pad, hi + pad
+    ax.set_ylim(lo, hi)
+    for line in ax.lines:
+        if not line.get_label().startswith("not used") and line.get_markerfacecolor() != "none":
+            continue
+        ys = np.asarray(line.get_ydata(), float)
+        off = (ys < lo) | (ys > hi)
+        if not off.any() or line.get_linestyle() not in ("None", "none", ""):
+            continue
+        xs = np.asarray(line.get_xdata(), float)
+        clipped = np.clip(ys, lo, hi)
+        line.set_ydata(clipped)
+        line.set_clip_on(False)
+        for xv, yv, orig in zip(xs[off], clipped[off], ys[off], strict=True):
+            ax.annotate(f"{orig:.3g} (off scale)", (xv, yv), xytext=(5, -10 if yv >= hi else 4),
+                        textcoords="offset points", fontsize="xx-small",
+                        color=PALETTE["vermillion"], zorder=10)
+
+
 def profile_figure(result, *, ax=None, fig: Figure | None = None) -> Figure:
     """Measured profile, best fit, 95% band and the two limiting models.
 
@@ -244,6 +282,9 @@ def _profile_main(ax, result) -> None:
         ax.plot(d, curve["best"], color=PALETTE["blue"], lw=1.8, label="best fit", zorder=3)
     _draw_spots(ax, spots, "distance_um", "observed", "sigma", PALETTE["black"],
                 sides=_sides(result, spots))
+    _zoom_to_used(ax, spots, "observed", "sigma",
+                  [curve[c].to_numpy(float) for c in ("best", "lo95", "hi95", "fractional",
+                                                      "equilibrium") if c in curve])
     ax.set_ylabel(_major_label(result.mineral))
     ax.set_xlabel("Distance from core [µm]")
 
@@ -260,6 +301,9 @@ def _profile_trace(ax, result, oxide: str) -> None:
     sig = f"{oxide}_sigma" if f"{oxide}_sigma" in spots else None
     _draw_spots(ax, spots, "distance_um", f"{oxide}_observed", sig, PALETTE["black"],
                 flag_labels=False, sides=_sides(result, spots))
+    _zoom_to_used(ax, spots, f"{oxide}_observed", sig,
+                  [curve[c].to_numpy(float) for c in (f"{oxide}_best", f"{oxide}_lo95",
+                                                      f"{oxide}_hi95") if c in curve])
     ax.set_ylabel(f"{oxide} [wt%]")
     ax.legend(fontsize="x-small", loc="best")
 

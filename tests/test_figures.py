@@ -163,3 +163,13 @@ def test_rim_to_rim_traverse_shows_both_halves():
     halves = [c for c in main.containers if c.get_label().startswith("measured, half")]
     assert len(halves) == 2
     assert sum(len(c.lines[0].get_xdata()) for c in halves) == result.n_used
+
+
+def test_far_off_flagged_spot_does_not_squash_the_profile():
+    result = _fit("FRL-12_pl2.csv", "plagioclase", {"Na2O": 3.1})
+    main = figures.profile_figure(result).axes[0]
+    lo, hi = main.get_ylim()
+    used = result.spots[result.spots["used"]]["observed"]
+    assert lo > result.spots["observed"].min()  # the glass hit (An ~49) is off scale
+    assert (hi - lo) < 2 * (used.max() - used.min()) + 2
+    assert any("off scale" in t.get_text() for t in main.texts)
