@@ -500,3 +500,15 @@ def test_initial_guess_needs_two_spots():
     model = CrystallizationModel("olivine", BASALT)
     with pytest.raises(ModelDomainError, match="at least two"):
         model.initial_guess([0.0, 1.0], [np.nan, 85.0])
+
+
+def test_initial_guess_is_silent_and_checks_trace_length():
+    # no calibration warning from the internal exploration (pytest turns warnings
+    # into errors), and a trace record of the wrong length is an error
+    model = CrystallizationModel("olivine", BASALT, traces=("Ni",))
+    x = np.linspace(0, 100, 12)
+    fo = np.linspace(85, 80, 12)
+    guess = model.initial_guess(x, fo)
+    assert guess["retention"] == 0.5
+    with pytest.raises(ModelDomainError, match="one value per spot"):
+        model.initial_guess(x, fo, trace=np.ones(5))

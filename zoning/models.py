@@ -45,6 +45,7 @@ References
 from __future__ import annotations
 
 import math
+import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
@@ -52,7 +53,7 @@ import numpy as np
 
 from zoning import geometry as _geometry
 from zoning import kernels as _kernels
-from zoning.exceptions import ModelDomainError
+from zoning.exceptions import CalibrationRangeWarning, ModelDomainError
 from zoning.partitioning import (
     ASSEMBLAGE_D_DEFAULTS,
     ATOMIC_WEIGHT,
@@ -800,19 +801,25 @@ class CrystallizationModel(_ModelBase):
         guess["retention"] = 0.5
         fmax = float(self.max_fraction(**{self.law.ratio_name: y0}))
         grid = np.linspace(0.0, min(0.95, 0.9 * fmax), 200)
-        path = self.path(grid, strict=False, **{self.law.ratio_name: y0, "retention": 0.5})
+        with warnings.catch_warnings():
+            # internal exploration far along the path: no calibration warnings
+            warnings.simplefilter("ignore", CalibrationRangeWarning)
+            path = self.path(grid, strict=False, **{self.law.ratio_name: y0, "retention": 0.5})
+            core_path = self.path(np.array([0.0]), **{self.law.ratio_name: y0})
         rec = path["crystal"] / 100.0
         idx = int(np.nanargmin(np.abs(rec - rim)))
         guess["f_rim"] = float(np.clip(grid[idx], 0.005, specs["f_rim"].upper))
         if trace is not None and self.traces:
             traces = trace if isinstance(trace, Mapping) else {self.traces[0].element: trace}
-            core_path = self.path(np.array([0.0]), **{self.law.ratio_name: y0})
             for tr in self.traces:
                 if tr.element not in traces:
                     continue
                 vals = np.asarray(traces[tr.element], dtype=float)
                 if vals.shape != c.shape:
-                    continue
+                    raise ModelDomainError(
+                        f"initial_guess: the {tr.element} record has shape {vals.shape} but "
+                        f"major has {c.shape}; give one value per spot (NaN where missing)."
+                    )
                 v = vals[ok][order][:n_edge]
                 v = v[np.isfinite(v)]
                 if v.size == 0:
