@@ -87,8 +87,10 @@ def test_rerun_skips_unchanged_samples_and_redoes_changed_ones(tmp_path):
     first = run_batch(read_project(path), out, workers=1, progress=False)
     assert first.n_fitted == 3
     stamp = (out / "S2" / "fit.json").stat().st_mtime_ns
+    summary_first = (out / "summary.csv").read_bytes()
     again = run_batch(read_project(path), out, workers=1, progress=False)
     assert [o.status for o in again.outcomes] == ["unchanged"] * 3
+    assert (out / "summary.csv").read_bytes() == summary_first  # rows rebuilt exactly
     assert (out / "S2" / "fit.json").stat().st_mtime_ns == stamp
     assert _read_summary(out)["sample"].tolist() == ["S1", "S2", "S3"]
     # A changed setting for one sample refits that sample only.

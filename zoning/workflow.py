@@ -319,8 +319,6 @@ def _jsonable(obj: Any) -> Any:
         return {str(k): _jsonable(v) for k, v in sorted(obj.items(), key=lambda kv: str(kv[0]))}
     if isinstance(obj, (list, tuple)):
         return [_jsonable(v) for v in obj]
-    if isinstance(obj, float) and not math.isfinite(obj):
-        return str(obj)
     if isinstance(obj, (np.floating, np.integer)):
         return _jsonable(obj.item())
     return obj
@@ -696,7 +694,7 @@ def run_sample(
             "status": "fitted",
             "settings": job.settings(),
             "file": job.file,
-            "row": _jsonable(row),
+            "row": row,
         }
         from zoning.io.writers import write_json
 

@@ -89,6 +89,8 @@ def run(args: argparse.Namespace) -> int:
             print(f"  failed: {o.name}: {o.error}")
         else:
             print(f"  {o.name}: {Path(o.folder) / 'report.pdf'}")
+    print("note: the demo uses short sampler chains so that it runs in about a minute; its "
+          "bands are rough and its reports warn so. Use longer chains for real work.")
     print(f"summary table: {out / 'summary.csv'}")
     print(f"overview figure: {out / 'overview.pdf'}")
     return 1 if result.n_failed else 0
