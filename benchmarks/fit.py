@@ -16,8 +16,9 @@ Two parts, in one run:
 The synthetic data are invented (the "Ferrolyn" scenario's noise levels), and
 the truths are drawn from ranges typical of basaltic systems:
 olivine melt Mg# 0.66-0.80 with FeO 9.5 wt%, plagioclase melt Ca# 0.50-0.75
-with Na2O 3.1 wt%, Kd from its prior (0.30 +/- 0.03; 2.0 +/- 0.5), F at the
-rim between 15% and 80% of the largest F the parent melt can reach.
+with Na2O 3.1 wt%, Kd from its prior (0.30 +/- 0.03; 2.0 +/- 0.5), and (melt
+ratio, F at the rim) uniform over the region the parent melt can reach, like
+the fit's flat priors.
 
 Usage::
 
@@ -65,11 +66,16 @@ def draw_case(k: int, seed: int, *, force_olivine_ni: bool = False) -> dict:
     traces = ("Ni",) if with_ni else ()
     model = CrystallizationModel(mineral, MELT[mineral], traces=traces)
     lo, hi = (0.66, 0.80) if mineral == "olivine" else (0.50, 0.75)
-    ratio = float(rng.uniform(lo, hi))
     mean, sd = KD_PRIOR[mineral]
     kd = float(np.clip(rng.normal(mean, sd), mean - 3 * sd, mean + 3 * sd))
-    fmax = float(model.max_fraction(**{RATIO[mineral]: ratio}))
-    f_rim = float(rng.uniform(0.15, 0.8) * min(fmax, 0.95))
+    # (ratio, F at the rim) uniform over the region the melt can reach, as
+    # the fit's flat priors are (F above its reachable limit has no prior
+    # mass); F is kept off the last 2% before exhaustion.
+    while True:
+        ratio = float(rng.uniform(lo, hi))
+        f_rim = float(rng.uniform(0.0, 0.95))
+        if f_rim < 0.98 * float(model.max_fraction(**{RATIO[mineral]: ratio})):
+            break
     u = rng.uniform()
     retention = 0.0 if u < 0.25 else (1.0 if u < 0.5 else float(rng.uniform()))
     truth = {RATIO[mineral]: ratio, "f_rim": f_rim, "retention": retention, "kd": kd}
@@ -151,6 +157,7 @@ def main() -> None:
     parser.add_argument("--n-coverage", type=int, default=120)
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--seed", type=int, default=2026)
+    parser.add_argument("--table", help="also write the per-traverse coverage table (CSV)")
     args = parser.parse_args()
 
     print(f"part 1: full pipeline on {args.n_timing} olivine traverses, {N_SPOTS} spots + NiO, "
@@ -179,6 +186,8 @@ def main() -> None:
     else:
         rows = [run_case(c) for c in cases]
     table = pd.DataFrame(rows)
+    if args.table:
+        table.to_csv(args.table, index=False)
     print(f"  done in {time.perf_counter() - t0:.0f} s; "
           f"{int(table['mineral'].eq('olivine').sum())} olivine, "
           f"{int(table['mineral'].eq('plagioclase').sum())} plagioclase, "

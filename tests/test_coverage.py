@@ -27,11 +27,15 @@ def _case(k, seed):
     mineral = ("olivine", "plagioclase")[k % 2]
     model = CrystallizationModel(mineral, MELT[mineral])
     lo, hi = (0.66, 0.80) if mineral == "olivine" else (0.50, 0.75)
-    ratio = float(rng.uniform(lo, hi))
     mean, sd = KD_PRIOR[mineral]
     kd = float(np.clip(rng.normal(mean, sd), mean - 3 * sd, mean + 3 * sd))
-    fmax = float(model.max_fraction(**{RATIO[mineral]: ratio}))
-    f_rim = float(rng.uniform(0.15, 0.8) * min(fmax, 0.95))
+    # (ratio, F at the rim) uniform over the reachable region, like the fit's
+    # flat priors.
+    while True:
+        ratio = float(rng.uniform(lo, hi))
+        f_rim = float(rng.uniform(0.0, 0.95))
+        if f_rim < 0.98 * float(model.max_fraction(**{RATIO[mineral]: ratio})):
+            break
     retention = (0.0, 1.0, float(rng.uniform()))[k % 3]
     truth = {RATIO[mineral]: ratio, "f_rim": f_rim, "retention": retention, "kd": kd}
     sigma = 0.2 if mineral == "olivine" else 0.5
