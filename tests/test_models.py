@@ -512,3 +512,16 @@ def test_initial_guess_is_silent_and_checks_trace_length():
     assert guess["retention"] == 0.5
     with pytest.raises(ModelDomainError, match="one value per spot"):
         model.initial_guess(x, fo, trace=np.ones(5))
+
+
+def test_profile_section_and_core_offsets():
+    # Off-centre section at h: the apparent core samples the zone at r = h
+    # (science reference sec. 10: h = R/2 misses the inner 12.5 % of the volume).
+    a = 86.6025  # apparent radius for R = 100, h = 50
+    model = CrystallizationModel("olivine", BASALT, section_offset_um=50.0)
+    out = model.profile([0.0, a], a, f_rim=0.1)
+    assert_allclose(out["f"], [0.0125, 0.1], rtol=1e-5)
+    # a core offset shifts the zone centre along the traverse
+    plain = CrystallizationModel("olivine", BASALT)
+    shifted = plain.profile([10.0, 60.0], 100.0, f_rim=0.1, core_offset_um=10.0)
+    assert_allclose(shifted["f"], [0.0, 0.1 * 0.5**3], rtol=1e-12)
