@@ -225,26 +225,26 @@ def _quintic_coefficients(v0, v1, d0, d1, a0, a1, out=None):
     """Power-series coefficients of the quintic Hermite on u in [0, 1].
 
     ``d0, d1`` are the end slopes times the interval width h and ``a0, a1``
-    the end curvatures times h^2. Returns (or fills ``out``, whose last axis
-    has length 6) the coefficients c0..c5 on the last axis.
+    the end curvatures times h^2. Returns (or fills ``out``, whose first axis
+    has length 6) the coefficients c0..c5 on the first axis.
     """
     if out is None:
-        out = np.empty(np.shape(v0) + (6,))
+        out = np.empty((6,) + np.shape(v0))
     dv = v1 - v0
-    out[..., 0] = v0
-    out[..., 1] = d0
-    out[..., 2] = 0.5 * a0
-    out[..., 3] = 10.0 * dv - 6.0 * d0 - 4.0 * d1 - 1.5 * a0 + 0.5 * a1
-    out[..., 4] = -15.0 * dv + 8.0 * d0 + 7.0 * d1 + 1.5 * a0 - a1
-    out[..., 5] = 6.0 * dv - 3.0 * (d0 + d1) - 0.5 * (a0 - a1)
+    out[0] = v0
+    out[1] = d0
+    out[2] = 0.5 * a0
+    out[3] = 10.0 * dv - 6.0 * d0 - 4.0 * d1 - 1.5 * a0 + 0.5 * a1
+    out[4] = -15.0 * dv + 8.0 * d0 + 7.0 * d1 + 1.5 * a0 - a1
+    out[5] = 6.0 * dv - 3.0 * (d0 + d1) - 0.5 * (a0 - a1)
     return out
 
 
 def _horner(c, u):
-    """Evaluate the polynomial with coefficients on the last axis of ``c`` at u."""
-    out = c[..., -1]
-    for i in range(c.shape[-1] - 2, -1, -1):
-        out = out * u + c[..., i]
+    """Evaluate the polynomial with coefficients on the first axis of ``c`` at u."""
+    out = c[-1]
+    for i in range(c.shape[0] - 2, -1, -1):
+        out = out * u + c[i]
     return out
 
 
@@ -441,13 +441,14 @@ def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS
     # per interval: [F_j, 1/dF, quintic coefficients of w(u)], u = (F - F_j)/dF,
     # padded to N+1 rows so that node indices address it
     dfi = np.diff(f, axis=1)
-    wtab = np.empty((w.shape[0], n + 1, 8))
-    wtab[:, :-1, 0] = f[:, :-1]
-    wtab[:, :-1, 1] = 1.0 / dfi
+    # table layout (8, m, N+1): one np.take gathers every column for all points
+    wtab = np.empty((8, w.shape[0], n + 1))
+    wtab[0, :, :-1] = f[:, :-1]
+    wtab[1, :, :-1] = 1.0 / dfi
     dfi2 = dfi * dfi
     _quintic_coefficients(w[:, :-1], w[:, 1:], dfi * dwdf[:, :-1], dfi * dwdf[:, 1:],
-                          dfi2 * d2wdf2[:, :-1], dfi2 * d2wdf2[:, 1:], out=wtab[:, :-1, 2:])
-    wtab[:, -1] = wtab[:, -2]
+                          dfi2 * d2wdf2[:, :-1], dfi2 * d2wdf2[:, 1:], out=wtab[2:, :, :-1])
+    wtab[:, :, -1] = wtab[:, :, -2]
     # per interval: quintic coefficients of t(u), u = (w - w_j)/h
     hi2 = hi * hi
     tcoef = _quintic_coefficients(t[:, :-1], t[:, 1:], hi * tw[:, :-1], hi * tw[:, 1:],
@@ -472,8 +473,9 @@ def _invert_w(f, grid):
     key = np.maximum.accumulate(np.fmin(fn[:, 1:-1], 1.5), axis=1)
     pos = np.searchsorted((key + shift).ravel(), (f + shift).ravel(), side="right")
     flat = pos.reshape(f.shape) + 2 * rows  # = j + i (N+1), j = pos - i (N-1)
-    tab = grid["wtab"].reshape(m * n1, -1)[flat]
-    w = _horner(tab[..., 2:], (f - tab[..., 0]) * tab[..., 1])
+    wtab = grid["wtab"]
+    tab = np.take(wtab.reshape(wtab.shape[0], -1), flat, axis=1)
+    w = _horner(tab[2:], (f - tab[0]) * tab[1])
     return w, flat
 
 
@@ -676,7 +678,8 @@ def trace_log_ratio(path, law, s0, sites, r, f, *, n_gauss=N_GAUSS_TRACE):
         hi = g["h"][:, :-1, None]
         t, tw = g["t"], g["dtdw"]
         w_q = (g["w"][:, :-1, None] + hi * xi).reshape(m, -1)
-        t_q = _horner(g["tcoef"][:, :, None, :], xi).reshape(m, -1)
+        powers = xi[None, :] ** np.arange(6)[:, None]  # (6, G)
+        t_q = (g["tcoef"].reshape(6, -1).T @ powers).reshape(m, -1)
         c = s0 / (100.0 * sites)
         y_q = y0s * np.exp(-w_q)
         f_q = _f_of_t(t_q, y_q, y0s, c, mas, mbs)
@@ -699,16 +702,16 @@ def trace_log_ratio(path, law, s0, sites, r, f, *, n_gauss=N_GAUSS_TRACE):
         d0 = hh * integrand_nodes[:, :-1]
         d1 = hh * integrand_nodes[:, 1:]
         dv = cum[:, 1:] - cum[:, :-1]
-        tab = np.empty((m, n1, 6))
-        tab[:, :-1, 0] = g["w"][:, :-1]
-        tab[:, :-1, 1] = 1.0 / hh
-        tab[:, :-1, 2] = cum[:, :-1]
-        tab[:, :-1, 3] = d0
-        tab[:, :-1, 4] = 3.0 * dv - 2.0 * d0 - d1
-        tab[:, :-1, 5] = d0 + d1 - 2.0 * dv
-        tab[:, -1] = tab[:, -2]
-        tab = tab.reshape(m * n1, -1)[path["flat"]]
-        integral = _horner(tab[..., 2:], (path["w"] - tab[..., 0]) * tab[..., 1])
+        tab = np.empty((6, m, n1))
+        tab[0, :, :-1] = g["w"][:, :-1]
+        tab[1, :, :-1] = 1.0 / hh
+        tab[2, :, :-1] = cum[:, :-1]
+        tab[3, :, :-1] = d0
+        tab[4, :, :-1] = 3.0 * dv - 2.0 * d0 - d1
+        tab[5, :, :-1] = d0 + d1 - 2.0 * dv
+        tab[:, :, -1] = tab[:, :, -2]
+        tab = np.take(tab.reshape(6, -1), path["flat"], axis=1)
+        integral = _horner(tab[2:], (path["w"] - tab[0]) * tab[1])
         out = -np.log(wgt_pt / 100.0) - integral
     return out, d_pt
 
