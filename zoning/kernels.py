@@ -317,14 +317,22 @@ def _node_positions(f_targets, y0, k, c, ma, mb):
     wg = w_hi * _placement_grid()
     y = y0 * np.exp(-wg)
     hg = (wg + (np.log(1.0 - y) - l1y0) * ik) * slope_inf - np.log(cb + ca * y)
-    # table interval of each target, then linear interpolation
-    idx = np.clip(np.sum(hg[:, None, 1:-1] <= target[:, :, None], axis=2), 0, wg.shape[1] - 2)
-    h_a = np.take_along_axis(hg, idx, axis=1)
-    h_b = np.take_along_axis(hg, idx + 1, axis=1)
-    w_a = np.take_along_axis(wg, idx, axis=1)
-    w_b = np.take_along_axis(wg, idx + 1, axis=1)
+    # table interval of each target (one searchsorted over all rows, H scaled
+    # to [0, 1] over the targets, capped at 1.5, row i shifted by 2 i), then
+    # linear interpolation
+    m, npl = wg.shape
+    scale = 1.0 / (target[:, -1:] - h0)
+    rows = np.arange(m)[:, None]
+    key = np.fmin((hg[:, 1:-1] - h0) * scale, 1.5) + 2.0 * rows
+    pos = np.searchsorted(key.ravel(), ((target - h0) * scale + 2.0 * rows).ravel(), side="right")
+    idx = pos.reshape(target.shape) - (npl - 2) * rows  # interval within the row
+    flat = idx + npl * rows
+    hflat = hg.ravel()
+    h_a = hflat[flat]
+    h_b = hflat[flat + 1]
+    step = w_hi / (npl - 1)
     frac = np.clip((target - h_a) / (h_b - h_a), 0.0, 1.0)
-    return w_a + frac * (w_b - w_a)
+    return step * (idx + frac)
 
 
 @lru_cache(maxsize=4)
