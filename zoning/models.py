@@ -332,7 +332,9 @@ class CrystallizationModel(_ModelBase):
     melt : mapping of str to float
         Reference melt analysis [wt%]. Olivine needs ``FeO`` (total iron as
         FeO; ``Fe2O3`` if given is folded in), plagioclase ``Na2O``. ``MgO``
-        (``CaO``) if given sets the default melt ratio.
+        (``CaO``) if given sets the default melt ratio. Trace elements given
+        by symbol, in ppm (e.g. ``"Ni": 250``), set the default initial trace
+        contents.
     kd : float, optional
         Exchange coefficient: olivine K_D(Fe-Mg) = (Fe/Mg)ol/(Fe/Mg)melt,
         default 0.30 (Roeder & Emslie 1970); plagioclase K_D(Ca-Na) =
