@@ -94,11 +94,9 @@ def test_demo_finds_the_planted_answers(demo_run):
     assert int(row["n_used"]) == int(row["n_spots"]) - 3  # the three planted bad spots
     # The recharge crystal is reported as such, not fitted with a confident answer.
     assert "recharge" in s.loc["FRL-03 ol1", "warnings"]
-    # FRL-12 pl1: parent Ca# 0.62 and F 0.35 (invented truth); the short,
-    # low-contrast profile leaves retention unconstrained.
+    # FRL-12 pl1: parent Ca# 0.62, F 0.35 and r 0.30 (invented truth).
     pl1 = s.loc["FRL-12 pl1"]
-    for name, truth in (("melt_ca_number", 0.62), ("f_rim", 0.35)):
+    for name, truth in (("melt_ca_number", 0.62), ("f_rim", 0.35), ("retention", 0.30)):
         assert float(pl1[f"{name}_lo95"]) <= truth <= float(pl1[f"{name}_hi95"]), name
-    assert str(pl1["retention_constrained"]) == "False"
     # Glass hit and the two summary rows of FRL-12 pl2 are not used.
     assert int(s.loc["FRL-12 pl2", "n_spots"]) - int(s.loc["FRL-12 pl2", "n_used"]) == 3

@@ -947,6 +947,7 @@ def run_batch(
                 record(run_sample(job, out, fp, folders[job.name].name))
         except KeyboardInterrupt:
             _clean_partials(out)
+            _recover_finished(todo, folders, outcomes)
             _write_summary(project, out, outcomes, inputs)
             raise
     elif todo:
@@ -971,6 +972,7 @@ def run_batch(
             if own:
                 _terminate(pool)
             _clean_partials(out)
+            _recover_finished(todo, folders, outcomes)
             _write_summary(project, out, outcomes, inputs)
             raise
         finally:
@@ -980,6 +982,17 @@ def run_batch(
     summary = _write_summary(project, out, outcomes, inputs)
     ordered = tuple(outcomes[j.name] for j in project.jobs if j.name in outcomes)
     return BatchResult(str(out), summary, ordered, time.perf_counter() - t0)
+
+
+def _recover_finished(todo, folders, outcomes: dict) -> None:
+    """Add samples that finished on disk but whose result never reached us (Ctrl-C)."""
+    for job, fp in todo:
+        if job.name in outcomes:
+            continue
+        stored = _stored(folders[job.name])
+        if fp and stored and stored.get("fingerprint") == fp and stored.get("status") == "fitted":
+            outcomes[job.name] = SampleOutcome(job.name, "fitted", stored.get("row", {}), "",
+                                               str(folders[job.name]))
 
 
 def _summary_frame(project: Project, outcomes: Mapping[str, SampleOutcome]) -> pd.DataFrame:
