@@ -834,18 +834,25 @@ def fit_traverse(
     burn_in = int(n_steps * BURN_FRACTION)
     u_best = prob.to_sampler(theta_best)[0]
     u_lower, u_upper = prob.sampler_bounds()
-    chain = run_ensemble(
-        prob.log_prob_sampler,
-        u_best,
-        u_lower,
-        u_upper,
-        n_walkers=n_walkers,
-        n_steps=n_steps,
-        burn_in=burn_in,
-        seed=seed,
-        covariance=_laplace_covariance(prob, u_best),
-        progress=progress,
-    )
+    try:
+        chain = run_ensemble(
+            prob.log_prob_sampler,
+            u_best,
+            u_lower,
+            u_upper,
+            n_walkers=n_walkers,
+            n_steps=n_steps,
+            burn_in=burn_in,
+            seed=seed,
+            covariance=_laplace_covariance(prob, u_best),
+            progress=progress,
+        )
+    except (ValueError, np.linalg.LinAlgError) as exc:
+        raise FitError(
+            f"posterior sampling of traverse {traverse.name!r} failed ({exc}); the best "
+            "fit may sit at the edge of what the melt can reach. Check --melt and --range, "
+            "or try another --seed or more --walkers."
+        ) from exc
     samples = prob.from_sampler(chain.thinned)
     flat = prob.from_sampler(chain.flat)
     short = [
@@ -1073,16 +1080,32 @@ def fit_traverse(
     )
 
 
-def _laplace_covariance(prob: _Problem, u: np.ndarray) -> np.ndarray:
-    """Covariance (J^T J)^-1 at the best fit, in sampler coordinates ``u``."""
+def _laplace_covariance(prob: _Problem, u: np.ndarray) -> np.ndarray | None:
+    """Covariance (J^T J)^-1 at the best fit, in sampler coordinates ``u``.
+
+    Forward and backward differences come from one batched call; each
+    column uses whichever is finite (the best fit may sit on a bound or next
+    to the largest reachable F). Returns None when no usable approximation
+    exists; the sampler then starts from a small sphere instead.
+    """
     lo, hi = prob.sampler_bounds()
-    steps = 1e-6 * (hi - lo)
-    direction = np.where(u + steps <= hi, 1.0, -1.0)
-    h = steps * direction
-    batch = prob.from_sampler(np.vstack([u, u + np.diag(h)]))
-    z = prob.residuals(prob.params(batch), batch.shape[0])
-    jac = (z[1:] - z[0]) / h[:, None]
-    return np.linalg.pinv(jac @ jac.T)
+    h = 1e-6 * (hi - lo)
+    p = u.size
+    batch = prob.from_sampler(np.vstack([u, u + np.diag(h), u - np.diag(h)]))
+    inside = np.all((batch >= prob.lower) & (batch <= prob.upper), axis=1)
+    z = np.full((batch.shape[0], prob.n_data + 1), np.nan)
+    if inside[0]:
+        z[inside] = prob.residuals(prob.params(batch[inside]), int(inside.sum()))
+    forward = (z[1 : p + 1] - z[0]) / h[:, None]
+    backward = (z[0] - z[p + 1 :]) / h[:, None]
+    ok_f = np.all(np.isfinite(forward), axis=1)
+    jac = np.where(ok_f[:, None], forward, backward)
+    if not np.all(np.isfinite(jac)):
+        return None
+    try:
+        return np.linalg.pinv(jac @ jac.T)
+    except np.linalg.LinAlgError:
+        return None
 
 
 def _replace(e: Estimate, **changes) -> Estimate:

@@ -175,7 +175,13 @@ def run_ensemble(
         n_walkers, n_par, log_prob, vectorize=True,
         moves=[(emcee.moves.DEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)],
     ))
-    state = burn.run_mcmc(start, burn_in, progress=progress) if burn_in > 0 else start
+    # The starting ball may be very thin along well-determined directions;
+    # emcee's check for linearly dependent walkers would then refuse it.
+    state = (
+        burn.run_mcmc(start, burn_in, progress=progress, skip_initial_state_check=True)
+        if burn_in > 0
+        else start
+    )
     # Production: Metropolis steps with a Gaussian proposal shaped by the
     # covariance of the second half of the burn-in (scaled by 2.38^2/p,
     # Gelman, Roberts & Gilks 1996), mixed with differential-evolution steps.
@@ -197,11 +203,14 @@ def run_ensemble(
     sampler = seeded(emcee.EnsembleSampler(
         n_walkers, n_par, log_prob, vectorize=True, moves=moves
     ))
-    sampler.run_mcmc(state, n_steps - burn_in, progress=progress)
+    sampler.run_mcmc(state, n_steps - burn_in, progress=progress, skip_initial_state_check=True)
     chain = sampler.get_chain()  # (steps, walkers, p)
     tau = emcee.autocorr.integrated_time(chain, c=5, tol=0, quiet=True)
-    tau = np.maximum(np.asarray(tau, dtype=float), 1.0)
     n_kept = chain.shape[0]
+    # A parameter whose walkers never moved has no finite tau: count it as
+    # not converged (tau = chain length, so the ESS is tiny and a warning follows).
+    tau = np.asarray(tau, dtype=float)
+    tau = np.maximum(np.where(np.isfinite(tau), tau, float(n_kept)), 1.0)
     ess = n_kept * n_walkers / tau
     thin = max(1, int(0.5 * float(np.min(tau))))
     flat = chain.reshape(-1, n_par)
