@@ -26,6 +26,7 @@ import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
+from matplotlib.ticker import MaxNLocator
 from scipy.ndimage import gaussian_filter
 
 __all__ = [
@@ -76,6 +77,21 @@ _LABELS = {
     "melt_mgo_wt": "parent melt MgO [wt%]",
     "melt_cao_wt": "parent melt CaO [wt%]",
     "temperature_c": "parent temperature [°C]",
+}
+
+
+#: Short labels for the crowded axes of the corner plot.
+_SHORT = {
+    "melt_mg_number": "parent Mg#",
+    "melt_ca_number": "parent Ca#",
+    "f_rim": "F rim",
+    "f_core": "F core",
+    "retention": "r",
+    "growth_exponent": "n",
+    "core_offset_um": "offset [µm]",
+    "melt0_ni_ppm": "Ni [ppm]",
+    "melt0_sr_ppm": "Sr [ppm]",
+    "melt0_mgo_wt": "MgO [wt%]",
 }
 
 
@@ -602,14 +618,17 @@ def corner_figure(
                     ax.contour(xc, yc, h.T, levels=levels, colors=[PALETTE["blue"]],
                                linewidths=0.9)
             if i == p - 1:
-                ax.set_xlabel(quantity_label(names[j]), fontsize="small")
+                ax.set_xlabel(_SHORT.get(names[j], quantity_label(names[j])), fontsize="small")
             else:
                 ax.set_xticklabels([])
             if j == 0 and i > 0:
-                ax.set_ylabel(quantity_label(names[i]), fontsize="small")
+                ax.set_ylabel(_SHORT.get(names[i], quantity_label(names[i])), fontsize="small")
             elif i != j:
                 ax.set_yticklabels([])
             ax.tick_params(labelsize="x-small")
+            ax.xaxis.set_major_locator(MaxNLocator(3))
+            if i != j:
+                ax.yaxis.set_major_locator(MaxNLocator(3))
     fig.suptitle(f"{result.sample}: posterior ({len(x)} draws)", fontsize="medium")
     return fig
 

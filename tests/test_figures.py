@@ -118,7 +118,8 @@ def test_corner_plot_has_marginals_and_pairs(olivine):
     assert len(fig.axes) == p * p and len(visible) == p * (p + 1) // 2
     diag = [fig.axes[i * p + i] for i in range(p)]
     assert all(len(ax.patches) > 0 for ax in diag)  # histograms
-    assert fig.axes[(p - 1) * p].get_xlabel() == "parent melt Mg#"
+    assert fig.axes[(p - 1) * p].get_xlabel() == "parent Mg#"
+    assert fig.axes[p].get_ylabel() == "F rim"
     pair = fig.axes[1 * p + 0]
     assert len(pair.lines[0].get_xdata()) == min(3000, olivine.samples.shape[0])
 
