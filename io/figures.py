@@ -434,7 +434,13 @@ def _oxide_name(key: str) -> str:
 def _temperature_panel(ax, result) -> None:
     curve = result.curve
     t = curve["temperature_c"].to_numpy(float) if "temperature_c" in curve else np.array([])
-    if t.size and np.isfinite(t).any():
+    if t.size and np.isfinite(t).any() and np.nanmax(t) - np.nanmin(t) < 1e-9:
+        ax.plot(curve["f"], t, color=PALETTE["grey"], lw=1.2, ls="--")
+        ax.text(0.5, 0.6, f"temperature fixed at {np.nanmax(t):.0f} °C\n(given, not modelled)",
+                transform=ax.transAxes, ha="center", va="center", color=PALETTE["grey"],
+                fontsize="small")
+        ax.set_ylabel("melt temperature [°C]")
+    elif t.size and np.isfinite(t).any():
         ax.plot(curve["f"], t, color=PALETTE["vermillion"], lw=1.6)
         ax.set_ylabel("melt temperature [°C]")
     else:

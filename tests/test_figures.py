@@ -18,14 +18,15 @@ matplotlib.use("Agg")
 FERROLYN = DEMO_DIR / "ferrolyn"
 
 
-def _fit(name, mineral, melt, **kw):
+def _fit(name, mineral, melt, temperature_c=None, **kw):
     traverse = read_traverses(FERROLYN / name, mineral=mineral, **kw)[0]
+    fit_kw = {} if temperature_c is None else {"temperature_c": temperature_c}
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", ZoningWarning)  # short chains warn, on purpose
         # numpy 'invalid value' from the fit's start grid on NaN model rows; the
         # figures and reports under test are not affected.
         warnings.simplefilter("ignore", RuntimeWarning)
-        return fit_traverse(traverse, melt=melt, n_walkers=16, n_steps=150, seed=2)
+        return fit_traverse(traverse, melt=melt, n_walkers=16, n_steps=150, seed=2, **fit_kw)
 
 
 @pytest.fixture(scope="module")
@@ -174,3 +175,9 @@ def test_far_off_flagged_spot_does_not_squash_the_profile():
     assert lo > result.spots["observed"].min()  # the glass hit (An ~49) is off scale
     assert (hi - lo) < 2 * (used.max() - used.min()) + 2
     assert any("off scale" in t.get_text() for t in main.texts)
+
+
+def test_fixed_temperature_is_not_drawn_as_a_modelled_path():
+    result = _fit("FRL-12_pl1.xlsx", "plagioclase", {"Na2O": 3.1}, temperature_c=1150.0)
+    temp = figures.melt_path_figure(result).axes[2]
+    assert any("fixed at 1150" in t.get_text() for t in temp.texts)
