@@ -157,6 +157,13 @@ def test_batch_refuses_to_overwrite_input_files(tmp_path):
     assert (data / "summary.csv").read_bytes() == before
 
 
+def test_batch_refuses_to_replace_a_folder_that_holds_inputs(tmp_path):
+    path = _project(tmp_path, ["data"])
+    with pytest.raises(ProjectError, match="would overwrite an input file"):
+        run_batch(read_project(path), tmp_path, workers=1, progress=False)
+    assert (tmp_path / "data" / "ol.csv").is_file()
+
+
 def test_folder_batch_fits_every_export(tmp_path, capsys):
     folder = tmp_path / "exports"
     folder.mkdir()

@@ -908,6 +908,8 @@ def run_batch(
     batch_files = [out / n for n in ("summary.csv", "summary.xlsx", "overview.png",
                                      "overview.pdf")]
     clash = [str(f) for f in [*folders.values(), *batch_files] if str(f) in inputs]
+    clash += [str(f) for f in folders.values()
+              if any(f in Path(i).parents for i in inputs)]
     if clash:
         raise ProjectError(
             f"output {clash[0]!r} would overwrite an input file of the project. "
