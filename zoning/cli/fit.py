@@ -124,8 +124,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="extra free parameters, comma-separated: f_core,growth_exponent,"
                         "core_offset_um")
     p.add_argument("--walkers", type=int, default=64, help="sampler walkers (default 64)")
-    p.add_argument("--steps", type=int, default=600,
-                   help="sampler steps including burn-in (default 600)")
+    p.add_argument("--steps", type=int,
+                   help="sampler steps including burn-in (default 600 olivine, "
+                        "2000 plagioclase)")
     p.add_argument("--out", help="output folder (default: <file name>_fit)")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     p.set_defaults(run=run)
