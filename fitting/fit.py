@@ -1107,10 +1107,19 @@ def _laplace_covariance(prob: _Problem, u: np.ndarray) -> np.ndarray | None:
     jac = np.where(ok_f[:, None], forward, backward)
     if not np.all(np.isfinite(jac)):
         return None
+    # Invert the Fisher matrix in range-normalised coordinates. A direction
+    # the data do not inform (e.g. retention when F at the rim is ~0) has a
+    # near-zero eigenvalue: give it a variance of the whole prior range, never
+    # the zero variance a pseudo-inverse would give (the walkers would then
+    # start, and stay, on one value and the band would look precise).
+    span = hi - lo
+    scaled = jac * span[:, None]
     try:
-        return np.linalg.pinv(jac @ jac.T)
+        eigval, eigvec = np.linalg.eigh(scaled @ scaled.T)
     except np.linalg.LinAlgError:
         return None
+    variance = 1.0 / np.maximum(eigval, 1.0)
+    return (eigvec * variance) @ eigvec.T * np.outer(span, span)
 
 
 def _replace(e: Estimate, **changes) -> Estimate:

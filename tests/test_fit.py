@@ -279,3 +279,20 @@ def test_robust_loss_resists_a_stray_spot_and_says_so():
     assert r.diagnostics["sigma_scale"] == 1.0
     for name in ("melt_mg_number", "f_rim", "kd"):
         assert _inside(r, name, truth[name]), (name, r.estimates[name])
+
+
+def test_uninformed_direction_is_sampled_across_its_prior_not_pinned():
+    # Regression: with F at the rim driven to ~0 (reversed demo crystal), the
+    # data carry no information on retention; the posterior band must span
+    # most of 0-1 instead of a precise-looking sliver around the start point.
+    from zoning.demo_data import DEMO_DIR
+    from zoning.io import read_traverses
+
+    path = DEMO_DIR / "ferrolyn" / "FRL-03_ol1.csv"
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        traverse = read_traverses(path, mineral="olivine", orientation="core-to-rim")[0]
+        result = fit_traverse(traverse, melt={"FeO": 10.4}, n_walkers=16, n_steps=300, seed=7)
+    r = result.estimates["retention"]
+    assert r.hi95 - r.lo95 > 0.75
+    assert not r.constrained
