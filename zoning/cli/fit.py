@@ -92,7 +92,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
         description=(
             "Fit a crystallization model (retention r between fractional, r = 0, and "
             "equilibrium, r = 1) to every traverse in FILE and report the parent melt, "
-            "the crystallized fraction at the rim and r with 95%% bands."
+            "the crystallized fraction at the rim and r with 95% bands."
         ),
     )
     p.add_argument("file", help="microprobe export (CSV, TXT or XLSX)")
