@@ -221,31 +221,45 @@ def _dtdw(t, y, k, r):
     return (1.0 + t * (r * fp - 1.0)) * den / ((1.0 - k) * (1.0 - y))
 
 
-def _quintic_coefficients(v0, v1, d0, d1, a0, a1, out=None):
-    """Power-series coefficients of the quintic Hermite on u in [0, 1].
-
-    ``d0, d1`` are the end slopes times the interval width h and ``a0, a1``
-    the end curvatures times h^2. Returns (or fills ``out``, whose first axis
-    has length 6) the coefficients c0..c5 on the first axis.
-    """
-    if out is None:
-        out = np.empty((6,) + np.shape(v0))
-    dv = v1 - v0
-    out[0] = v0
-    out[1] = d0
-    out[2] = 0.5 * a0
-    out[3] = 10.0 * dv - 6.0 * d0 - 4.0 * d1 - 1.5 * a0 + 0.5 * a1
-    out[4] = -15.0 * dv + 8.0 * d0 + 7.0 * d1 + 1.5 * a0 - a1
-    out[5] = 6.0 * dv - 3.0 * (d0 + d1) - 0.5 * (a0 - a1)
-    return out
+#: Quintic Hermite interpolation on u in [0, 1] as a matrix: the power-series
+#: coefficients c0..c5 are ``[v0, v1 - v0, d0, d1, a0, a1] @ _QUINTIC``, with
+#: ``d0, d1`` the end slopes times the interval width and ``a0, a1`` the end
+#: curvatures times its square.
+_QUINTIC = np.array([
+    # c0   c1   c2    c3     c4    c5
+    [1.0, 0.0, 0.0, 0.0, 0.0, 0.0],  # v0
+    [0.0, 0.0, 0.0, 10.0, -15.0, 6.0],  # v1 - v0
+    [0.0, 1.0, 0.0, -6.0, 8.0, -3.0],  # d0
+    [0.0, 0.0, 0.0, -4.0, 7.0, -3.0],  # d1
+    [0.0, 0.0, 0.5, -1.5, 1.5, -0.5],  # a0
+    [0.0, 0.0, 0.0, 0.5, -1.0, 0.5],  # a1
+])
 
 
-def _horner(c, u):
-    """Evaluate the polynomial with coefficients on the first axis of ``c`` at u."""
-    out = c[-1]
-    for i in range(c.shape[0] - 2, -1, -1):
-        out = out * u + c[i]
-    return out
+@lru_cache(maxsize=16)
+def _prefix_matrix(n: int) -> np.ndarray:
+    """(n, n+1) matrix U with U[i, j] = 1 for i < j: ``x @ U`` is the running sum from 0."""
+    return np.triu(np.ones((n, n + 1)), k=1)
+
+
+@lru_cache(maxsize=16)
+def _gauss_powers(q: int) -> np.ndarray:
+    """(6, q) powers xi^0..xi^5 of the Gauss-Legendre nodes on [0, 1]."""
+    xi, _ = _gauss01(q)
+    return xi[None, :] ** np.arange(6)[:, None]
+
+
+@lru_cache(maxsize=16)
+def _gauss_shift(q: int) -> np.ndarray:
+    """(2, q) rows [1, xi] of the Gauss-Legendre nodes on [0, 1]."""
+    xi, _ = _gauss01(q)
+    return np.stack([np.ones_like(xi), xi])
+
+
+@lru_cache(maxsize=16)
+def _fractions(n: int) -> np.ndarray:
+    """Return j / n for j = 0..n."""
+    return np.arange(n + 1) / n
 
 
 def _w_lower_bound(f_end, y0, k, c, ma, mb, tol=1e-12):
@@ -292,56 +306,39 @@ def _w_lower_bound(f_end, y0, k, c, ma, mb, tol=1e-12):
     return w * (1.0 + 1e-9) + 1e-12
 
 
-#: Points of the fractional-path table used to place the grid nodes.
-N_PLACEMENT = 48
+#: Newton steps placing the grid nodes (placement needs no precision).
+N_PLACEMENT_NEWTON = 2
 
 
 def _node_positions(f_targets, y0, k, c, ma, mb):
-    r"""Return w where the fractional path reaches ``f_targets`` (m, J), from a table.
+    r"""Return w where the fractional path reaches ``f_targets`` (m, J), approximately.
 
     With :math:`H(w) = -\ln(F_{max} - F_0(w))` of the explicit r = 0 path
-    (see :func:`_w_lower_bound`), the slope of H never falls below its limit
-    :math:`K/(1-K)`, so :math:`H(w) \ge H(0) + wK/(1-K)` bounds the table
-    range; linear interpolation in the table then places the nodes (H is
-    nearly linear in w). :func:`exchange_path` checks that the last node
-    covers the largest requested F and moves it if not.
+    (see :func:`_w_lower_bound`), H is concave and lies below its tangent at
+    0 and below its asymptote (slope :math:`K/(1-K)`); Newton steps from the
+    larger root of the two lines approach the node from below and keep the
+    nodes increasing. A fixed number of steps (no precision is needed here)
+    keeps every parameter set independent of the others in the batch;
+    :func:`exchange_path` checks that the last node covers the largest
+    requested F and moves it if not.
     """
     cb = c * mb
     ca = c * (ma - mb)
     ik = 1.0 / k
     slope_inf = k / (1.0 - k)
     l1y0 = np.log(1.0 - y0)
-    h0 = -np.log(cb + ca * y0)
-    target = -np.log(cb + ca * y0 - f_targets)  # (m, J)
-    w_hi = (target[:, -1:] - h0) / slope_inf * (1.0 + 1e-9) + 1e-300
-    wg = w_hi * _placement_grid()
-    y = y0 * np.exp(-wg)
-    hg = (wg + (np.log(1.0 - y) - l1y0) * ik) * slope_inf - np.log(cb + ca * y)
-    # table interval of each target (one searchsorted over all rows, H scaled
-    # to [0, 1] over the targets, capped at 1.5, row i shifted by 2 i), then
-    # linear interpolation
-    m, npl = wg.shape
-    scale = 1.0 / (target[:, -1:] - h0)
-    rows = np.arange(m)[:, None]
-    key = np.fmin((hg[:, 1:-1] - h0) * scale, 1.5) + 2.0 * rows
-    pos = np.searchsorted(key.ravel(), ((target - h0) * scale + 2.0 * rows).ravel(), side="right")
-    idx = pos.reshape(target.shape) - (npl - 2) * rows  # interval within the row
-    flat = idx + npl * rows
-    hflat = hg.ravel()
-    h_a = hflat[flat]
-    h_b = hflat[flat + 1]
-    step = w_hi / (npl - 1)
-    frac = np.clip((target - h_a) / (h_b - h_a), 0.0, 1.0)
-    return step * (idx + frac)
-
-
-@lru_cache(maxsize=4)
-def _placement_grid_cached(n: int) -> np.ndarray:
-    return np.linspace(0.0, 1.0, n)
-
-
-def _placement_grid() -> np.ndarray:
-    return _placement_grid_cached(N_PLACEMENT)
+    mix0 = cb + ca * y0
+    target = -np.log(mix0 - f_targets)  # (m, J)
+    slope0 = ca * y0 / mix0 + (1.0 + y0 * ik / (1.0 - y0)) * slope_inf
+    w = np.maximum((target + np.log(mix0)) / slope0,
+                   (target + np.log(cb)) / slope_inf + l1y0 * ik)
+    for _ in range(N_PLACEMENT_NEWTON):
+        y = y0 * np.exp(-w)
+        one_y = 1.0 - y
+        mix = cb + ca * y
+        resid = (w + (np.log(one_y) - l1y0) * ik) * slope_inf - np.log(mix) - target
+        w = w - resid / (ca * y / mix + (1.0 + y * ik / one_y) * slope_inf)
+    return w
 
 
 def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS,
@@ -376,115 +373,147 @@ def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS
     Returns
     -------
     dict
-        ``w`` (m, N+1), ``y``, ``t``, ``f``, ``dfdw``, ``dtdw`` at the nodes and
-        ``h`` (m, N+1), the width of the interval to the right of each node
-        (last column repeated).
+        ``w``, ``y``, ``t``, ``f``, ``dtdw`` (dt/dw), ``dwdf`` (dw/dF) at the
+        nodes, shape (m, N+1); ``df`` (m, N), the F width of each interval;
+        ``tab`` (m N, 8), per interval (row ``i N + j``) its left F, 1/dF
+        and the quintic Hermite coefficients of w(u), u = (F - F_j)/dF.
     """
     c = s0 / (100.0 * sites)
     if w_nodes is None:
         if w_end is None:
             w_end = _w_lower_bound(f_end, y0, k, c, ma, mb)
-        w = w_end * (np.arange(n_intervals + 1) / n_intervals)  # (m, N+1)
+        w = w_end * _fractions(n_intervals)  # (m, N+1)
     else:
         w = w_nodes
-    n = w.shape[1] - 1
-    hi = np.diff(w, axis=1)  # (m, N) interval widths
-    y = y0 * np.exp(-w)
-    one_k = 1.0 - k
-    p = (r - k) / one_k
-    q = (1.0 - r * k) / one_k
-    one_y = 1.0 - y
-    den = k + one_k * y
-    l1y = np.log(one_y)
-    lden = np.log(den)
-    # ln mu at nodes (relative to an arbitrary constant)
-    lmu = q * l1y - p * w - r * lden
-    # Gauss-Legendre points inside each interval, measured back from its right
-    # node: w_g = w_{i+1} - dw_right, shape (m, N, G)
-    xi, om = _gauss01(n_gauss)
-    dw_right = hi[:, :, None] * (1.0 - xi)
-    eta = y[:, 1:, None] * np.exp(dw_right)
-    one_eta = 1.0 - eta
-    kk = k[:, :, None]
-    den_eta = kk + one_k[:, :, None] * eta
-    # mu(eta)/mu(y_{i+1}) * den(eta)/(1 - eta); the 1/(1-K) factor is applied below
-    integrand = np.exp(
-        p[:, :, None] * dw_right
-        + (q[:, :, None] - 1.0) * np.log(one_eta / one_y[:, 1:, None])
-        + (1.0 - r[:, :, None]) * np.log(den_eta / den[:, 1:, None])
-    ) * (den[:, 1:] / one_y[:, 1:])[:, :, None]
-    interval = hi / one_k * (integrand @ om)  # (m, N)
-    # t_j = sum_{i<j} I_i exp(L_{i+1} - L_j)
-    shift = np.max(lmu[:, 1:], axis=1, keepdims=True)
-    with np.errstate(over="ignore", invalid="ignore"):
-        acc = np.cumsum(interval * np.exp(lmu[:, 1:] - shift), axis=1)
-        t_in = acc * np.exp(shift - lmu[:, 1:])
-    if not np.all(np.isfinite(t_in)):
-        # Very wide range of mu: fall back to the sequential recurrence.
-        t_in = np.empty_like(interval)
-        prev = np.zeros_like(interval[:, 0])
-        for j in range(n):
-            prev = prev * np.exp(lmu[:, j] - lmu[:, j + 1]) + interval[:, j]
-            t_in[:, j] = prev
-    t = np.concatenate([np.zeros_like(y[:, :1]), t_in], axis=1)
-    # derivatives from the ODE: t_w = A (1 + t B), A = den/((1-K)(1-y)),
-    # B = r f'(y) - 1, f' = K/den^2; dA/dy = 1/((1-K)(1-y)^2),
-    # dB/dy = -2 r K (1-K)/den^3, dy/dw = -y
-    a_fac = den / (one_k * one_y)
-    fp = k / (den * den)
-    b_fac = r * fp - 1.0
-    g1 = 1.0 + t * b_fac
-    tw = a_fac * g1
-    tww = -y * g1 / (one_k * one_y * one_y) + a_fac * (tw * b_fac + 2.0 * t * y * r * fp
-                                                        * one_k / den)
-    cm = c * (ma - mb)
-    cb = c * mb
-    f = cb * t + cm * (y0 - (1.0 - t) * y)
-    dfdw = cb * tw + cm * y * (tw + 1.0 - t)
-    # F_ww = c [M_B t_ww + (M_A - M_B) y (t_ww - 2 t_w - 1 + t)]
-    d2fdw2 = cb * tww + cm * y * (tww - 2.0 * tw - 1.0 + t)
-    dwdf = 1.0 / dfdw
-    d2wdf2 = -d2fdw2 * dwdf**3
-    h = np.concatenate([hi, hi[:, -1:]], axis=1)  # padded to N+1 for node indexing
-    # per interval: [F_j, 1/dF, quintic coefficients of w(u)], u = (F - F_j)/dF,
-    # padded to N+1 rows so that node indices address it
-    dfi = np.diff(f, axis=1)
-    # table layout (8, m, N+1): one np.take gathers every column for all points
-    wtab = np.empty((8, w.shape[0], n + 1))
-    wtab[0, :, :-1] = f[:, :-1]
-    wtab[1, :, :-1] = 1.0 / dfi
-    dfi2 = dfi * dfi
-    _quintic_coefficients(w[:, :-1], w[:, 1:], dfi * dwdf[:, :-1], dfi * dwdf[:, 1:],
-                          dfi2 * d2wdf2[:, :-1], dfi2 * d2wdf2[:, 1:], out=wtab[2:, :, :-1])
-    wtab[:, :, -1] = wtab[:, :, -2]
-    # per interval: quintic coefficients of t(u), u = (w - w_j)/h
-    hi2 = hi * hi
-    tcoef = _quintic_coefficients(t[:, :-1], t[:, 1:], hi * tw[:, :-1], hi * tw[:, 1:],
-                                  hi2 * tww[:, :-1], hi2 * tww[:, 1:])
-    return {"w": w, "y": y, "t": t, "f": f, "dfdw": dfdw, "dtdw": tw, "d2tdw2": tww,
-            "dwdf": dwdf, "d2wdf2": d2wdf2, "h": h, "wtab": wtab, "tcoef": tcoef}
+    m, n1 = w.shape
+    n = n1 - 1
+    with np.errstate(all="ignore"):
+        hi = w[:, 1:] - w[:, :-1]  # (m, N) interval widths
+        y = y0 * np.exp(-w)
+        one_k = 1.0 - k
+        p = (r - k) / one_k
+        q = (1.0 - r * k) / one_k
+        one_y = 1.0 - y
+        den = k + one_k * y
+        l1y = np.log(one_y)
+        lden = np.log(den)
+        # ln mu at nodes (relative to an arbitrary constant)
+        lmu = q * l1y - p * w - r * lden
+        # Gauss-Legendre points inside each interval, measured back from its
+        # right node: w_g = w_{i+1} - dw_right, shape (m, N, G)
+        xi, om = _gauss01(n_gauss)
+        # (G, m, N): with eta = y_{i+1} e^dw, (1 - eta)/(1 - y_{i+1}) =
+        # 1 - a (e^dw - 1) and den(eta)/den(y_{i+1}) = 1 + b (e^dw - 1)
+        back = (1.0 - xi)[:, None, None]
+        em1 = np.expm1(back * hi)
+        y1 = y[:, 1:]
+        one_y1 = one_y[:, 1:]
+        den1 = den[:, 1:]
+        # mu(eta)/mu(y_{i+1}) * den(eta)/(1 - eta); the 1/(1-K) factor is applied below
+        integrand = np.exp(
+            back * (p * hi)
+            + (q - 1.0) * np.log1p((-y1 / one_y1) * em1)
+            + (1.0 - r) * np.log1p((one_k * y1 / den1) * em1)
+        )
+        gl_sum = (om @ integrand.reshape(n_gauss, -1)).reshape(m, n)
+        interval = hi * (den1 / (one_k * one_y1)) * gl_sum
+        # t_j = sum_{i<j} I_i exp(L_{i+1} - L_j), the running sum as a product
+        # with a triangular matrix
+        shift = lmu[:, 1:].max(axis=1, keepdims=True)
+        t = ((interval * np.exp(lmu[:, 1:] - shift)) @ _prefix_matrix(n)) * np.exp(shift - lmu)
+        if not np.isfinite(t).all():
+            # Very wide range of mu: fall back to the sequential recurrence.
+            t = np.zeros_like(w)
+            for j in range(n):
+                t[:, j + 1] = t[:, j] * np.exp(lmu[:, j] - lmu[:, j + 1]) + interval[:, j]
+        # derivatives from the ODE: t_w = A (1 + t B), A = den/((1-K)(1-y)),
+        # B = r f'(y) - 1, f' = K/den^2; dA/dy = 1/((1-K)(1-y)^2),
+        # dB/dy = -2 r K (1-K)/den^3, dy/dw = -y
+        a_fac = den / (one_k * one_y)
+        fp = k / (den * den)
+        b_fac = r * fp - 1.0
+        g1 = 1.0 + t * b_fac
+        tw = a_fac * g1
+        tww = a_fac * (tw * b_fac + (y / den) * ((2.0 * r * one_k) * fp * t - g1 / one_y))
+        cm = c * (ma - mb)
+        cb = c * mb
+        cmy = cm * y
+        f = cb * t + cm * y0 - cmy * (1.0 - t)
+        dfdw = cb * tw + cmy * (tw + 1.0 - t)
+        # F_ww = c [M_B t_ww + (M_A - M_B) y (t_ww - 2 t_w - 1 + t)]
+        d2fdw2 = cb * tww + cmy * (tww - 2.0 * tw - 1.0 + t)
+        dwdf = 1.0 / dfdw
+        d2wdf2 = -d2fdw2 * (dwdf * dwdf * dwdf)
+        # per interval (column i N + j): [F_j, dF, quintic coefficients of
+        # w(u)], u = (F - F_j)/dF, from [F_j, dF, w_j, w_{j+1} - w_j,
+        # dF w_F, dF w_F (right), dF^2 w_FF, dF^2 w_FF (right)]
+        dfi = f[:, 1:] - f[:, :-1]
+        dfi2 = dfi * dfi
+        tab = np.empty((8, m, n))
+        tab[0] = f[:, :-1]
+        tab[1] = dfi
+        tab[2] = w[:, :-1]
+        tab[3] = hi
+        np.multiply(dwdf[:, :-1], dfi, out=tab[4])
+        np.multiply(dwdf[:, 1:], dfi, out=tab[5])
+        np.multiply(d2wdf2[:, :-1], dfi2, out=tab[6])
+        np.multiply(d2wdf2[:, 1:], dfi2, out=tab[7])
+        tab = tab.reshape(8, m * n)
+        tab[2:] = _QUINTIC.T @ tab[2:]
+    return {"w": w, "y": y, "t": t, "f": f, "dtdw": tw, "dwdf": dwdf, "df": dfi, "tab": tab}
+
+
+def _horner(c, u):
+    """Evaluate the polynomial with coefficients ``c[0], c[1], ...`` (first axis) at u."""
+    out = c[-1] * u
+    for i in range(c.shape[0] - 2, 0, -1):
+        out += c[i]
+        out *= u
+    out += c[0]
+    return out
+
+
+def _interval_index(f, key):
+    """Flat position ``i (N-1) + j`` of each F among the row-shifted ``key`` (side right)."""
+    m = f.shape[0]
+    shift = 2.0 * np.arange(m)[:, None]
+    pts = (f + shift).ravel()
+    key = key + shift
+    key = key.ravel()
+    if (pts[1:] >= pts[:-1]).all():
+        # rows sorted (the usual case): place the few nodes among the many
+        # points and count; the same result as the general search below
+        first = np.searchsorted(pts, key, side="left")
+        return np.cumsum(np.bincount(first, minlength=pts.size + 1)[:-1]).reshape(f.shape)
+    return np.searchsorted(key, pts, side="right").reshape(f.shape)
+
+
+def _locate(f, grid):
+    """Interval of each requested F and its local coordinate u in [0, 1].
+
+    Returns the gathered table columns (8, m, n) of :func:`exchange_grid`,
+    u and the flat index ``i N + j`` of the interval.
+    """
+    fn = grid["f"]
+    m, n1 = fn.shape
+    # one search over all rows: row i is shifted by 2 i. Requested F lie in
+    # [0, 1); grid nodes past the exhaustion of the melt (F may exceed 1
+    # there, or be NaN) are capped at 1.5 so that the rows stay separated.
+    key = np.maximum.accumulate(np.fmin(fn[:, 1:-1], 1.5), axis=1)
+    flat = _interval_index(f, key) + np.arange(m)[:, None]  # = j + i N
+    g = np.take(grid["tab"], flat, axis=1)
+    u = (f - g[0]) / g[1]
+    return g, u, flat
 
 
 def _invert_w(f, grid):
     """Quintic Hermite inverse interpolation of w(F) on the grid (error O(h^6)).
 
-    Uses the exact dw/dF and d2w/dF2 at the nodes. Returns w and the flat
-    index of the node at the left of each point.
+    Uses the exact dw/dF and d2w/dF2 at the nodes. Returns w, the flat index
+    ``i N + j`` of the interval of each point and its local coordinate u.
     """
-    fn = grid["f"]
-    m, n1 = fn.shape
-    # one searchsorted over all rows: row i is shifted by 2 i. Requested F lie
-    # in [0, 1); grid nodes past the exhaustion of the melt (F may exceed 1
-    # there, or be NaN) are capped at 1.5 so that the rows stay separated.
-    rows = np.arange(m)[:, None]
-    shift = 2.0 * rows
-    key = np.maximum.accumulate(np.fmin(fn[:, 1:-1], 1.5), axis=1)
-    pos = np.searchsorted((key + shift).ravel(), (f + shift).ravel(), side="right")
-    flat = pos.reshape(f.shape) + 2 * rows  # = j + i (N+1), j = pos - i (N-1)
-    wtab = grid["wtab"]
-    tab = np.take(wtab.reshape(wtab.shape[0], -1), flat, axis=1)
-    w = _horner(tab[2:], (f - tab[0]) * tab[1])
-    return w, flat
+    g, u, flat = _locate(f, grid)
+    return _horner(g[2:], u), flat, u
 
 
 def exchange_invert(f, grid, y0, s0, sites, ma, mb):
@@ -508,13 +537,18 @@ def exchange_invert(f, grid, y0, s0, sites, ma, mb):
     y, t, w : ndarray, shape (m, n)
         Melt ratio, cation fraction crystallized and w = ln(y0/y).
     flat : ndarray of int, shape (m, n)
-        Flat index of the grid node at the left of each point.
+        Flat index ``i N + j`` of the grid interval of each point.
     """
+    y, t, w, flat, _ = _invert(f, grid, y0, s0, sites, ma, mb)
+    return y, t, w, flat
+
+
+def _invert(f, grid, y0, s0, sites, ma, mb):
     c = s0 / (100.0 * sites)
-    w, flat = _invert_w(f, grid)
+    w, flat, u = _invert_w(f, grid)
     y = y0 * np.exp(-w)
     t = _t_of_f(f, y, y0, c, ma, mb)
-    return y, t, w, flat
+    return y, t, w, flat, u
 
 
 def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS,
@@ -548,12 +582,14 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
     -------
     dict
         ``y`` and ``t`` (m, n) in the original orientation, plus ``grid``,
-        ``swap`` (m, 1) bool, or None when no row is swapped, and the swapped
-        ``y0s``, ``ks``, ``mas``, ``mbs`` used by :func:`trace_log_ratio`.
+        ``swap`` (m, 1) bool, or None when no row is swapped, the swapped
+        ``y0s``, ``ks``, ``mas``, ``mbs``, and per point ``ys`` (swapped y),
+        ``w``, ``flat`` (grid interval) and ``u`` (position in it), used by
+        :func:`trace_log_ratio`.
     """
     k = np.asarray(kd_kernel, dtype=float)
     swap = k > 1.0
-    if np.any(swap):
+    if swap.any():
         ks = np.minimum(np.where(swap, 1.0 / k, k), 1.0 - K_EPS)
         y0s = np.where(swap, 1.0 - y0, y0)
         mas = np.where(swap, mb, ma)
@@ -562,34 +598,36 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
         swap = None
         ks = np.minimum(k, 1.0 - K_EPS)
         y0s, mas, mbs = y0, ma, mb
-    f_end = np.maximum(np.max(f, axis=1, keepdims=True), 1e-12)
+    f_end = np.maximum(f.max(axis=1, keepdims=True), 1e-12)
     # Grid nodes where the fractional (r = 0) path reaches evenly spaced F:
     # dense in w where the melt changes fast, and covering f_end for every r
     # (retained crystals buffer the melt, so w_r(F) <= w_0(F)).
     c = s0 / (100.0 * sites)
-    f_cap = exhaustion_fraction(y0s, s0, sites, mas, mbs)
+    f_cap = c * (mbs + (mas - mbs) * y0s)  # exhaustion_fraction
     f_last = np.minimum(f_end * 1.001, 0.5 * (f_end + f_cap))
     # targets: mean of even spacing in F and in ln(F_cap - F) (the latter
     # dense where the melt approaches exhaustion and changes fast)
-    frac = np.arange(n_intervals + 1) / n_intervals
-    gap_ratio = (f_cap - f_last) / f_cap
-    f_targets = 0.5 * (f_last * frac + f_cap * (1.0 - gap_ratio**frac))
+    frac = _fractions(n_intervals)
+    with np.errstate(divide="ignore"):
+        log_gap = np.log((f_cap - f_last) / f_cap)
+    f_targets = 0.5 * (f_last * frac + f_cap * (1.0 - np.exp(log_gap * frac)))
     # node placement needs no precision; coverage of f_end is checked below
-    w_nodes = _node_positions(f_targets, y0s, ks, c, mas, mbs)
+    with np.errstate(all="ignore"):
+        w_nodes = _node_positions(f_targets, y0s, ks, c, mas, mbs)
     w_nodes[:, 0] = 0.0
     grid = exchange_grid(f_end, y0s, ks, r, s0, sites, mas, mbs, n_gauss=n_gauss,
                          w_nodes=w_nodes)
     short = grid["f"][:, -1:] < f_end
-    if np.any(short):  # nodes short of f_end: stretch them to the precise r = 0 bound
+    if short.any():  # nodes short of f_end: stretch them to the precise r = 0 bound
         w_safe = _w_lower_bound(f_last, y0s, ks, c, mas, mbs) * (1.0 + 1e-6)
         scale = np.maximum(w_safe / w_nodes[:, -1:], 1.0)
         w_nodes = np.where(short, w_nodes * scale, w_nodes)
         grid = exchange_grid(f_end, y0s, ks, r, s0, sites, mas, mbs, n_gauss=n_gauss,
                              w_nodes=w_nodes)
-    ys, t, w_pt, flat = exchange_invert(f, grid, y0s, s0, sites, mas, mbs)
+    ys, t, w_pt, flat, u = _invert(f, grid, y0s, s0, sites, mas, mbs)
     y = ys if swap is None else np.where(swap, 1.0 - ys, ys)
-    return {"y": y, "t": t, "ys": ys, "w": w_pt, "flat": flat, "grid": grid, "swap": swap,
-            "y0s": y0s, "ks": ks, "mas": mas, "mbs": mbs}
+    return {"y": y, "t": t, "ys": ys, "w": w_pt, "flat": flat, "u": u, "grid": grid,
+            "swap": swap, "y0s": y0s, "ks": ks, "mas": mas, "mbs": mbs}
 
 
 def exhaustion_fraction(y0, s0, sites, ma, mb):
@@ -619,20 +657,20 @@ def exhaustion_fraction(y0, s0, sites, ma, mb):
 def _trace_terms(ys, t, ks, r, s0, sites, mas, mbs, swap, law, f, tw=None):
     r"""Trace-budget terms at points (swapped orientation).
 
-    Returns D, W = M_L + D M_ret and, when ``tw`` (dt/dw) is given,
-    D/W dm_iso/dw with :math:`dm_{iso} = (1-r)(S_0/s) M_f(X)\,dt`.
+    Returns D, W = M_L + D M_ret and, when ``tw`` (dt/dv for any path
+    variable v) is given, D/W dm_iso/dv with
+    :math:`dm_{iso} = (1-r)(S_0/s) M_f(X)\,dt`.
     """
     xs = ys / (ks + (1.0 - ks) * ys)
     mf = mbs + (mas - mbs) * xs  # formula-unit mass of the crystal
     per_site = s0 / sites
-    m_ret = (r * per_site) * t * mf
     if swap is None:
         y_orig, x_orig = ys, xs
     else:
         y_orig = np.where(swap, 1.0 - ys, ys)
         x_orig = np.where(swap, 1.0 - xs, xs)
     d = law(y_orig, t, x_orig, f)
-    wgt = 100.0 * (1.0 - f) + d * m_ret
+    wgt = 100.0 * (1.0 - f) + d * ((r * per_site) * t * mf)
     if tw is None:
         return d, wgt, None
     return d, wgt, d / wgt * ((1.0 - r) * per_site) * mf * tw
@@ -649,10 +687,11 @@ def trace_log_ratio(path, law, s0, sites, r, f, *, n_gauss=N_GAUSS_TRACE):
               \qquad W = M_L + D M_{ret}
 
     D may vary along the path. The integral is accumulated over the grid
-    intervals by Gauss-Legendre quadrature (t at the quadrature points by
-    quintic Hermite interpolation of the exact t, dt/dw, d2t/dw2 at the
-    nodes) and interpolated to the points by cubic Hermite
-    interpolation with its exact derivative; W is evaluated at the points.
+    intervals by Gauss-Legendre quadrature in F (w at the quadrature points
+    from the quintic Hermite of the grid, then y and t explicitly, and
+    :math:`dt/dF = t_w/F_w` from the ODE) and interpolated to the points by
+    cubic Hermite interpolation in F with its exact derivative; W is
+    evaluated at the points.
 
     Parameters
     ----------
@@ -679,47 +718,42 @@ def trace_log_ratio(path, law, s0, sites, r, f, *, n_gauss=N_GAUSS_TRACE):
     g = path["grid"]
     ks, mas, mbs, y0s, swap = path["ks"], path["mas"], path["mbs"], path["y0s"], path["swap"]
     m, n1 = g["w"].shape
+    n = n1 - 1
     with np.errstate(all="ignore"):
-        # quadrature points inside each grid interval, t from the quintic
-        # Hermite of the exact node values, flattened to (m, N*G)
+        # quadrature points inside each grid interval, evenly placed in u
+        # (that is in F); flattened to (m, N*G)
         xi, om = _gauss01(n_gauss)
-        hi = g["h"][:, :-1, None]
-        t, tw = g["t"], g["dtdw"]
-        w_q = (g["w"][:, :-1, None] + hi * xi).reshape(m, -1)
-        powers = xi[None, :] ** np.arange(6)[:, None]  # (6, G)
-        t_q = (g["tcoef"].reshape(6, -1).T @ powers).reshape(m, -1)
+        tab, dfi = g["tab"], g["df"]
+        w_q = (tab[2:].T @ _gauss_powers(n_gauss)).reshape(m, -1)
+        f_q = (tab[:2].T @ _gauss_shift(n_gauss)).reshape(m, -1)
         c = s0 / (100.0 * sites)
         y_q = y0s * np.exp(-w_q)
-        f_q = _f_of_t(t_q, y_q, y0s, c, mas, mbs)
+        t_q = _t_of_f(f_q, y_q, y0s, c, mas, mbs)
         tw_q = _dtdw(t_q, y_q, ks, r)
+        # dt/dF = t_w / F_w, F_w = c [M_B t_w + (M_A - M_B) y (t_w + 1 - t)]
+        tf_q = tw_q / (c * (mbs * tw_q + (mas - mbs) * y_q * (tw_q + 1.0 - t_q)))
         # nodes and quadrature points together
-        y_nq = np.concatenate([g["y"], y_q], axis=1)
-        _, _, integrand_nq = _trace_terms(
-            y_nq, np.concatenate([t, t_q], axis=1), ks, r, s0, sites, mas, mbs, swap, law,
-            np.concatenate([g["f"], f_q], axis=1), tw=np.concatenate([tw, tw_q], axis=1))
-        integrand_nodes = integrand_nq[:, :n1]
-        integrand_q = integrand_nq[:, n1:].reshape(m, n1 - 1, -1)
+        _, _, integrand = _trace_terms(
+            np.concatenate([g["y"], y_q], axis=1), np.concatenate([g["t"], t_q], axis=1),
+            ks, r, s0, sites, mas, mbs, swap, law, np.concatenate([g["f"], f_q], axis=1),
+            tw=np.concatenate([g["dtdw"] * g["dwdf"], tf_q], axis=1))
+        ig_nodes = integrand[:, :n1]  # dI/dF at the nodes
+        parts = dfi * (integrand[:, n1:].reshape(m, n, -1) @ om)  # (m, N)
+        cum = parts @ _prefix_matrix(n)  # integral at the nodes, (m, N+1)
+        # cubic Hermite of the integral in u per interval: [I_j, d0, c2, c3]
+        # with d0, d1 the end slopes times dF
+        d0 = dfi * ig_nodes[:, :-1]
+        d1 = dfi * ig_nodes[:, 1:]
+        tab_i = np.empty((4, m, n))
+        tab_i[0] = cum[:, :-1]
+        tab_i[1] = d0
+        tab_i[2] = 3.0 * parts - 2.0 * d0 - d1
+        tab_i[3] = d0 + d1 - 2.0 * parts
+        gi = np.take(tab_i.reshape(4, m * n), path["flat"], axis=1)
+        integral = _horner(gi, path["u"])
         # the requested points: D and W only
         d_pt, wgt_pt, _ = _trace_terms(path["ys"], path["t"], ks, r, s0, sites, mas, mbs, swap,
                                        law, f)
-        parts = g["h"][:, :-1] * (integrand_q @ om)  # (m, N)
-        cum = np.concatenate([np.zeros_like(parts[:, :1]), np.cumsum(parts, axis=1)], axis=1)
-        # cubic Hermite interpolation of the integral to the points, from a
-        # per-interval table [w_j, 1/h, c0..c3]
-        hh = g["h"][:, :-1]
-        d0 = hh * integrand_nodes[:, :-1]
-        d1 = hh * integrand_nodes[:, 1:]
-        dv = cum[:, 1:] - cum[:, :-1]
-        tab = np.empty((6, m, n1))
-        tab[0, :, :-1] = g["w"][:, :-1]
-        tab[1, :, :-1] = 1.0 / hh
-        tab[2, :, :-1] = cum[:, :-1]
-        tab[3, :, :-1] = d0
-        tab[4, :, :-1] = 3.0 * dv - 2.0 * d0 - d1
-        tab[5, :, :-1] = d0 + d1 - 2.0 * dv
-        tab[:, :, -1] = tab[:, :, -2]
-        tab = np.take(tab.reshape(6, -1), path["flat"], axis=1)
-        integral = _horner(tab[2:], (path["w"] - tab[0]) * tab[1])
         out = -np.log(wgt_pt / 100.0) - integral
     return out, d_pt
 
