@@ -139,7 +139,7 @@ class _ModelBase:
         """Validate keyword parameters; return (m, 1) arrays, m, and scalar flag."""
         specs = self.parameters
         names = self.parameter_names
-        unknown = sorted(set(params) - set(names))
+        unknown = sorted(set(params).difference(names))
         if unknown:
             raise ModelDomainError(
                 f"unknown parameter(s) {unknown} for {type(self).__name__}; expected names "
@@ -269,7 +269,7 @@ class _ModelBase:
             For invalid distances, radius or parameters.
         """
         x = np.asarray(distance_um, dtype=float)
-        if x.ndim != 1 or not np.all(np.isfinite(x)) or np.any(x < 0):
+        if x.ndim != 1 or not np.isfinite(x).all() or (x < 0).any():
             raise ModelDomainError(
                 "distance_um must be a 1-D array of finite distances from the core >= 0 [µm]; "
                 f"got {np.array2string(np.asarray(x).ravel()[:5])}..."
@@ -281,9 +281,16 @@ class _ModelBase:
             xs = np.abs(x[:, None] + off[None, :]).ravel()  # (n*K,), mirrored at the core
         else:
             xs = x
+        # the zone radius depends on the parameter set only through the core
+        # offset and the exponent; when they are shared, map the distances once
+        exponent, offset = p["growth_exponent"], p["core_offset_um"]
+        if (exponent == exponent[0, 0]).all():
+            exponent = exponent[:1]
+        if not offset.any():
+            offset = 0.0
         fm = _geometry.fraction_from_distance(
-            xs[None, :], radius, p["f_core"], p["f_rim"], p["growth_exponent"],
-            p["core_offset_um"], self.section_offset_um,
+            xs[None, :], radius, p["f_core"], p["f_rim"], exponent, offset,
+            self.section_offset_um,
         )
         if self.beam_um > 0:
             centre = _geometry.fraction_from_distance(
@@ -301,7 +308,9 @@ class _ModelBase:
                     out[key] = blurred @ wt
         else:
             out = self._evaluate(fm, p, strict=strict, stacklevel=3)
-        out["distance_um"] = np.broadcast_to(x, out["f"].shape).copy()
+        dist = np.empty(out["f"].shape)
+        dist[...] = x
+        out["distance_um"] = dist
         return _squeeze(out, scalar)
 
     def _evaluate(self, f, p, *, strict, stacklevel):  # pragma: no cover - abstract
@@ -644,14 +653,16 @@ class CrystallizationModel(_ModelBase):
         y0 = p[law.ratio_name]
         r = p["retention"]
         k = law.kernel_k(p["kd"])
-        a0, b0, s0 = self.initial_state(y0)
         if not self._fast:
+            a0, b0, _ = self.initial_state(y0)
             return self._evaluate_assemblage(f, p, y0, k, r, a0, b0, strict=strict,
                                              stacklevel=stacklevel + 1)
+        s0 = self._b0 * y0 / (1.0 - y0) + self._b0  # as initial_state
         fmax = _kernels.exhaustion_fraction(y0, s0, law.sites, law.molar_mass_a, law.molar_mass_b)
         limit = fmax * (1.0 - 1e-9)
         beyond = f >= limit
-        if np.any(beyond):
+        any_beyond = bool(beyond.any())
+        if any_beyond:
             if strict:
                 i, j = np.argwhere(beyond)[0]
                 raise ModelDomainError(
@@ -669,7 +680,7 @@ class CrystallizationModel(_ModelBase):
         out = self._outputs(f, y, k, a_l, cations_melt - a_l, 100.0 * (1.0 - f))
         if self.traces:
             self._traces(out, path, p, s0, r, f, stacklevel + 1)
-        if np.any(beyond):
+        if any_beyond:
             for key in out:
                 if key != "f":
                     out[key] = np.where(beyond, np.nan, out[key])
@@ -678,14 +689,16 @@ class CrystallizationModel(_ModelBase):
 
     def _outputs(self, f, y, k, a_l, b_l, melt_mass):
         law = self.law
-        ox_a = a_l / law.cations_per_oxide_a * OXIDE_MOLAR_MASS[law.compatible_oxide]
-        ox_b = b_l / law.cations_per_oxide_b * OXIDE_MOLAR_MASS[law.other_oxide]
+        # oxide wt% = 100 (cations / cations per oxide) M_oxide / melt mass
+        inv_mass = 100.0 / melt_mass
+        to_a = OXIDE_MOLAR_MASS[law.compatible_oxide] / law.cations_per_oxide_a
+        to_b = OXIDE_MOLAR_MASS[law.other_oxide] / law.cations_per_oxide_b
         out = {
             "f": f.copy(),
             "crystal": 100.0 * equilibrium_crystal(y, k),
             "melt_ratio": y,
-            f"melt_{law.compatible_oxide.lower()}_wt": 100.0 * ox_a / melt_mass,
-            f"melt_{law.other_oxide.lower()}_wt": 100.0 * ox_b / melt_mass,
+            f"melt_{law.compatible_oxide.lower()}_wt": (to_a * a_l) * inv_mass,
+            f"melt_{law.other_oxide.lower()}_wt": (to_b * b_l) * inv_mass,
         }
         if self.mineral == "olivine":
             out["temperature_c"] = 20.1 * out["melt_mgo_wt"] + 1014.0
@@ -747,7 +760,7 @@ class CrystallizationModel(_ModelBase):
 
             lnr, d_pt = _kernels.trace_log_ratio(path, law_fn, s0, law.sites, r, f)
             melt_c = p[tr.parameter] * np.exp(lnr)
-            tr.check_range(mgo_pt, x_pt, stacklevel=stacklevel + 1)
+            tr.check_range(_extremes(mgo_pt), _extremes(x_pt), stacklevel=stacklevel + 1)
             out[tr.melt_key] = melt_c
             out[tr.crystal_key] = d_pt * melt_c * tr.crystal_factor
 
@@ -913,6 +926,13 @@ MODELS = (CrystallizationModel, ConstantPartitionModel)
 
 
 # ---------------------------------------------------------------- helpers
+def _extremes(values):
+    """Smallest and largest finite value (NaN ignored) of an array, or None."""
+    if values is None or values.size == 0:
+        return values
+    return np.array([np.fmin.reduce(values, axis=None), np.fmax.reduce(values, axis=None)])
+
+
 def _squeeze(out: dict, scalar: bool) -> dict:
     if scalar:
         return {k: np.ascontiguousarray(v[0]) for k, v in out.items()}
