@@ -89,6 +89,7 @@ __all__ = [
     "exchange_invert",
     "exchange_path",
     "trace_log_ratio",
+    "trace_integral",
     "exhaustion_fraction",
     "assemblage_path",
     "K_EPS",
@@ -326,18 +327,21 @@ def _node_positions(f_targets, y0, k, c, ma, mb):
     ca = c * (ma - mb)
     ik = 1.0 / k
     slope_inf = k / (1.0 - k)
+    a = 1.0 / (1.0 - k)  # = slope_inf / K
     l1y0 = np.log(1.0 - y0)
     mix0 = cb + ca * y0
     target = -np.log(mix0 - f_targets)  # (m, J)
     slope0 = ca * y0 / mix0 + (1.0 + y0 * ik / (1.0 - y0)) * slope_inf
     w = np.maximum((target + np.log(mix0)) / slope0,
                    (target + np.log(cb)) / slope_inf + l1y0 * ik)
+    # H(w) - target = K/(1-K) w + ln(1 - y)/(1-K) - ln(mix) + const
+    const = -(l1y0 * a + target)
     for _ in range(N_PLACEMENT_NEWTON):
         y = y0 * np.exp(-w)
         one_y = 1.0 - y
         mix = cb + ca * y
-        resid = (w + (np.log(one_y) - l1y0) * ik) * slope_inf - np.log(mix) - target
-        w = w - resid / (ca * y / mix + (1.0 + y * ik / one_y) * slope_inf)
+        resid = slope_inf * w + a * np.log(one_y) - np.log(mix) + const
+        w = w - resid / (ca * y / mix + a * y / one_y + slope_inf)
     return w
 
 
@@ -715,6 +719,22 @@ def trace_log_ratio(path, law, s0, sites, r, f, *, n_gauss=N_GAUSS_TRACE):
     ln_ratio, d : ndarray, shape (m, n)
         ln(C_L/C_0) and D at the points.
     """
+    ks, mas, mbs, swap = path["ks"], path["mas"], path["mbs"], path["swap"]
+    with np.errstate(all="ignore"):
+        integral = trace_integral(path, law, s0, sites, r, n_gauss=n_gauss)
+        # the requested points: D and W
+        d_pt, wgt_pt, _ = _trace_terms(path["ys"], path["t"], ks, r, s0, sites, mas, mbs, swap,
+                                       law, f)
+        out = -np.log(wgt_pt / 100.0) - integral
+    return out, d_pt
+
+
+def trace_integral(path, law, s0, sites, r, *, n_gauss=N_GAUSS_TRACE):
+    r"""Return the integral :math:`\int_0 (D/W)\,dm_{iso}` at the points of ``path``.
+
+    See :func:`trace_log_ratio` (same parameters, without ``f``); returns
+    an array of shape (m, n).
+    """
     g = path["grid"]
     ks, mas, mbs, y0s, swap = path["ks"], path["mas"], path["mbs"], path["y0s"], path["swap"]
     m, n1 = g["w"].shape
@@ -750,12 +770,7 @@ def trace_log_ratio(path, law, s0, sites, r, f, *, n_gauss=N_GAUSS_TRACE):
         tab_i[2] = 3.0 * parts - 2.0 * d0 - d1
         tab_i[3] = d0 + d1 - 2.0 * parts
         gi = np.take(tab_i.reshape(4, m * n), path["flat"], axis=1)
-        integral = _horner(gi, path["u"])
-        # the requested points: D and W only
-        d_pt, wgt_pt, _ = _trace_terms(path["ys"], path["t"], ks, r, s0, sites, mas, mbs, swap,
-                                       law, f)
-        out = -np.log(wgt_pt / 100.0) - integral
-    return out, d_pt
+        return _horner(gi, path["u"])
 
 
 #: Fixed RK4 steps of the assemblage integrator.

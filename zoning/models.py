@@ -754,12 +754,21 @@ class CrystallizationModel(_ModelBase):
         def melt_mgo(y, t, fr):
             return mgo_factor * y * s0 * (1.0 - t) / (1.0 - fr)
 
+        # at the points, W = M_L + D M_ret from the outputs already computed:
+        # M_L = 100 (1 - F), M_ret = r (S_0/s) t M_f(X) (see trace_log_ratio)
+        melt_mass = 100.0 * (1.0 - f)
+        m_ret = (r * s0 / law.sites) * path["t"] * (
+            law.molar_mass_b + (law.molar_mass_a - law.molar_mass_b) * x_pt)
         for tr in self.traces:
             def law_fn(y, t, x, fr, tr=tr):
                 return tr.partition(melt_mgo(y, t, fr) if olivine else None, x, temp)
 
-            lnr, d_pt = _kernels.trace_log_ratio(path, law_fn, s0, law.sites, r, f)
-            melt_c = p[tr.parameter] * np.exp(lnr)
+            integral = _kernels.trace_integral(path, law_fn, s0, law.sites, r)
+            d_pt = tr.partition(mgo_pt if olivine else None, x_pt, temp)
+            if np.ndim(d_pt) == 0:
+                d_pt = np.full(f.shape, d_pt)
+            # ln(C_L/C_0) = -ln(W/W_0) - integral, W_0 = 100
+            melt_c = p[tr.parameter] * (100.0 / (melt_mass + d_pt * m_ret)) * np.exp(-integral)
             tr.check_range(_extremes(mgo_pt), _extremes(x_pt), stacklevel=stacklevel + 1)
             out[tr.melt_key] = melt_c
             out[tr.crystal_key] = d_pt * melt_c * tr.crystal_factor
