@@ -205,21 +205,9 @@ def batch_exchange_t(y, y0, k):
     return (y0 - y) / (fy - y)
 
 
-def _f_of_t(t, y, y0, c, ma, mb):
-    """Crystallized fraction from t and y (explicit mass balance)."""
-    return c * (mb * t + (ma - mb) * (y0 - (1.0 - t) * y))
-
-
 def _t_of_f(f, y, y0, c, ma, mb):
-    """Inverse of :func:`_f_of_t` in t at given y."""
+    """Cation fraction t from F and y: inverse of the explicit mass balance F(t, y)."""
     return (f / c - (ma - mb) * (y0 - y)) / (mb + (ma - mb) * y)
-
-
-def _dtdw(t, y, k, r):
-    """dt/dw with w = ln(y0/y) (from the linear ODE for t(y))."""
-    den = k + (1.0 - k) * y
-    fp = k / (den * den)
-    return (1.0 + t * (r * fp - 1.0)) * den / ((1.0 - k) * (1.0 - y))
 
 
 #: Quintic Hermite interpolation on u in [0, 1] as a matrix: the power-series
@@ -244,10 +232,13 @@ def _prefix_matrix(n: int) -> np.ndarray:
 
 
 @lru_cache(maxsize=16)
-def _gauss_powers(q: int) -> np.ndarray:
-    """(6, q) powers xi^0..xi^5 of the Gauss-Legendre nodes on [0, 1]."""
+def _gauss_powers(q: int, derivative: int = 0) -> np.ndarray:
+    """(6, q): xi^0..xi^5 of the Gauss-Legendre nodes on [0, 1], or their first derivative."""
     xi, _ = _gauss01(q)
-    return xi[None, :] ** np.arange(6)[:, None]
+    k = np.arange(6)[:, None]
+    if derivative:
+        return k * xi[None, :] ** np.maximum(k - 1, 0)
+    return xi[None, :] ** k
 
 
 @lru_cache(maxsize=16)
@@ -745,13 +736,17 @@ def trace_integral(path, law, s0, sites, r, *, n_gauss=N_GAUSS_TRACE):
         xi, om = _gauss01(n_gauss)
         tab, dfi = g["tab"], g["df"]
         w_q = (tab[2:].T @ _gauss_powers(n_gauss)).reshape(m, -1)
+        # dw/dF from the derivative of the same quintic
+        w_f = ((tab[2:].T @ _gauss_powers(n_gauss, 1)) / tab[1][:, None]).reshape(m, -1)
         f_q = (tab[:2].T @ _gauss_shift(n_gauss)).reshape(m, -1)
         c = s0 / (100.0 * sites)
         y_q = y0s * np.exp(-w_q)
-        t_q = _t_of_f(f_q, y_q, y0s, c, mas, mbs)
-        tw_q = _dtdw(t_q, y_q, ks, r)
-        # dt/dF = t_w / F_w, F_w = c [M_B t_w + (M_A - M_B) y (t_w + 1 - t)]
-        tf_q = tw_q / (c * (mbs * tw_q + (mas - mbs) * y_q * (tw_q + 1.0 - t_q)))
+        # t from F and y (explicit mass balance) and its derivative along the
+        # path, dt/dF = (1/c - (M_A - M_B)(1 - t) y dw/dF)/(M_B + (M_A - M_B) y)
+        dm = mas - mbs
+        den_q = mbs + dm * y_q
+        t_q = (f_q / c - dm * (y0s - y_q)) / den_q
+        tf_q = (1.0 / c - dm * (1.0 - t_q) * y_q * w_f) / den_q
         # nodes and quadrature points together
         _, _, integrand = _trace_terms(
             np.concatenate([g["y"], y_q], axis=1), np.concatenate([g["t"], t_q], axis=1),
