@@ -327,12 +327,15 @@ def _node_positions(f_targets, y0, k, c, ma, mb):
                    (target + np.log(cb)) / slope_inf + l1y0 * ik)
     # H(w) - target = K/(1-K) w + ln(1 - y)/(1-K) - ln(mix) + const
     const = -(l1y0 * a + target)
+    # slope H' = C_A y/mix + a y/(1 - y) + K/(1-K) = (K/(1-K) + 1 - a) + a/(1 - y) - C_B/mix
+    s_const = slope_inf + 1.0 - a
+    ln_y0 = np.log(y0)
     for _ in range(N_PLACEMENT_NEWTON):
-        y = y0 * np.exp(-w)
+        y = np.exp(ln_y0 - w)
         one_y = 1.0 - y
         mix = cb + ca * y
         resid = slope_inf * w + a * np.log(one_y) - np.log(mix) + const
-        w = w - resid / (ca * y / mix + a * y / one_y + slope_inf)
+        w = w - resid / (s_const + a / one_y - cb / mix)
     return w
 
 
@@ -405,10 +408,11 @@ def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS
         one_y1 = one_y[:, 1:]
         den1 = den[:, 1:]
         # mu(eta)/mu(y_{i+1}) * den(eta)/(1 - eta); the 1/(1-K) factor is applied below
+        ones = np.ones_like(hi)
         integrand = np.exp(
             back * (p * hi)
-            + (q - 1.0) * np.log1p((-y1 / one_y1) * em1)
-            + (1.0 - r) * np.log1p((one_k * y1 / den1) * em1)
+            + ((q - 1.0) * ones) * np.log1p((-y1 / one_y1) * em1)
+            + ((1.0 - r) * ones) * np.log1p((one_k * y1 / den1) * em1)
         )
         gl_sum = (om @ integrand.reshape(n_gauss, -1)).reshape(m, n)
         interval = hi * (den1 / (one_k * one_y1)) * gl_sum
