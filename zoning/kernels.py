@@ -473,46 +473,66 @@ def _horner(c, u):
 
 
 def _interval_index(f, key):
-    """Flat position ``i (N-1) + j`` of each F among the row-shifted ``key`` (side right)."""
-    m = f.shape[0]
+    """Grid interval of each F among the increasing interior node F ``key`` (m, N-1).
+
+    Returns, when every row of ``f`` is sorted (the usual case), the number
+    of points in each interval, shape (m N,), the points of interval
+    ``i N + j`` following each other; otherwise the flat interval index
+    ``i N + j`` of each point, shape (m, n). Point F equal to a node belongs
+    to the interval on its right.
+    """
+    m, n = f.shape
+    n_int = key.shape[1] + 1
+    # one search over all rows: row i is shifted by 2 i (F < 1.5 everywhere)
     shift = 2.0 * np.arange(m)[:, None]
     pts = (f + shift).ravel()
-    key = key + shift
-    key = key.ravel()
+    key = (key + shift).ravel()
     if (pts[1:] >= pts[:-1]).all():
-        # rows sorted (the usual case): place the few nodes among the many
-        # points and count; the same result as the general search below
-        first = np.searchsorted(pts, key, side="left")
-        return np.cumsum(np.bincount(first, minlength=pts.size + 1)[:-1]).reshape(f.shape)
-    return np.searchsorted(key, pts, side="right").reshape(f.shape)
+        # place the few nodes among the many points: interval j of row i
+        # starts at the first point at or above node j
+        starts = np.empty((m, n_int), dtype=np.intp)
+        starts[:, 0] = np.arange(0, m * n, n)
+        starts[:, 1:] = np.searchsorted(pts, key, side="left").reshape(m, n_int - 1)
+        starts = starts.ravel()
+        ends = np.empty_like(starts)
+        ends[:-1] = starts[1:]
+        ends[-1] = m * n
+        return ends - starts
+    pos = np.searchsorted(key, pts, side="right").reshape(f.shape)  # = j + i (N-1)
+    return pos + np.arange(m)[:, None]
+
+
+def _gather(table, where, shape):
+    """Columns of ``table`` (c, m N) at the intervals ``where`` of :func:`_interval_index`."""
+    if where.ndim == 1:
+        return np.repeat(table, where, axis=1).reshape((table.shape[0],) + shape)
+    return np.take(table, where, axis=1)
 
 
 def _locate(f, grid):
     """Interval of each requested F and its local coordinate u in [0, 1].
 
     Returns the gathered table columns (8, m, n) of :func:`exchange_grid`,
-    u and the flat index ``i N + j`` of the interval.
+    u and the interval locator of :func:`_interval_index`.
     """
     fn = grid["f"]
-    m, n1 = fn.shape
-    # one search over all rows: row i is shifted by 2 i. Requested F lie in
-    # [0, 1); grid nodes past the exhaustion of the melt (F may exceed 1
-    # there, or be NaN) are capped at 1.5 so that the rows stay separated.
+    # grid nodes past the exhaustion of the melt (F may exceed 1 there, or
+    # be NaN) are capped at 1.5 so that the rows stay separated
     key = np.maximum.accumulate(np.fmin(fn[:, 1:-1], 1.5), axis=1)
-    flat = _interval_index(f, key) + np.arange(m)[:, None]  # = j + i N
-    g = np.take(grid["tab"], flat, axis=1)
+    where = _interval_index(f, key)
+    g = _gather(grid["tab"], where, f.shape)
     u = (f - g[0]) / g[1]
-    return g, u, flat
+    return g, u, where
 
 
 def _invert_w(f, grid):
     """Quintic Hermite inverse interpolation of w(F) on the grid (error O(h^6)).
 
-    Uses the exact dw/dF and d2w/dF2 at the nodes. Returns w, the flat index
-    ``i N + j`` of the interval of each point and its local coordinate u.
+    Uses the exact dw/dF and d2w/dF2 at the nodes. Returns w, the interval
+    locator of :func:`_interval_index` and the local coordinate u.
     """
-    g, u, flat = _locate(f, grid)
-    return _horner(g[2:], u), flat, u
+    g, u, where = _locate(f, grid)
+    return _horner(g[2:], u), where, u
 
 
 def exchange_invert(f, grid, y0, s0, sites, ma, mb):
@@ -538,16 +558,18 @@ def exchange_invert(f, grid, y0, s0, sites, ma, mb):
     flat : ndarray of int, shape (m, n)
         Flat index ``i N + j`` of the grid interval of each point.
     """
-    y, t, w, flat, _ = _invert(f, grid, y0, s0, sites, ma, mb)
-    return y, t, w, flat
+    y, t, w, where, _ = _invert(f, grid, y0, s0, sites, ma, mb)
+    if where.ndim == 1:
+        where = np.repeat(np.arange(where.size), where).reshape(f.shape)
+    return y, t, w, where
 
 
 def _invert(f, grid, y0, s0, sites, ma, mb):
     c = s0 / (100.0 * sites)
-    w, flat, u = _invert_w(f, grid)
+    w, where, u = _invert_w(f, grid)
     y = y0 * np.exp(-w)
     t = _t_of_f(f, y, y0, c, ma, mb)
-    return y, t, w, flat, u
+    return y, t, w, where, u
 
 
 def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS,
@@ -583,7 +605,8 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
         ``y`` and ``t`` (m, n) in the original orientation, plus ``grid``,
         ``swap`` (m, 1) bool, or None when no row is swapped, the swapped
         ``y0s``, ``ks``, ``mas``, ``mbs``, and per point ``ys`` (swapped y),
-        ``w``, ``flat`` (grid interval) and ``u`` (position in it), used by
+        ``w``, ``where`` (grid interval locator, see :func:`_interval_index`)
+        and ``u`` (position in the interval), used by
         :func:`trace_log_ratio`.
     """
     k = np.asarray(kd_kernel, dtype=float)
@@ -623,9 +646,9 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
         w_nodes = np.where(short, w_nodes * scale, w_nodes)
         grid = exchange_grid(f_end, y0s, ks, r, s0, sites, mas, mbs, n_gauss=n_gauss,
                              w_nodes=w_nodes)
-    ys, t, w_pt, flat, u = _invert(f, grid, y0s, s0, sites, mas, mbs)
+    ys, t, w_pt, where, u = _invert(f, grid, y0s, s0, sites, mas, mbs)
     y = ys if swap is None else np.where(swap, 1.0 - ys, ys)
-    return {"y": y, "t": t, "ys": ys, "w": w_pt, "flat": flat, "u": u, "grid": grid,
+    return {"y": y, "t": t, "ys": ys, "w": w_pt, "where": where, "u": u, "grid": grid,
             "swap": swap, "y0s": y0s, "ks": ks, "mas": mas, "mbs": mbs}
 
 
@@ -741,7 +764,7 @@ def trace_integral(path, law, s0, sites, r, *, n_gauss=N_GAUSS_TRACE):
         tab, dfi = g["tab"], g["df"]
         w_q = (tab[2:].T @ _gauss_powers(n_gauss)).reshape(m, -1)
         # dw/dF from the derivative of the same quintic
-        w_f = ((tab[2:].T @ _gauss_powers(n_gauss, 1)) / tab[1][:, None]).reshape(m, -1)
+        w_f = ((tab[2:] / tab[1]).T @ _gauss_powers(n_gauss, 1)).reshape(m, -1)
         f_q = (tab[:2].T @ _gauss_shift(n_gauss)).reshape(m, -1)
         c = s0 / (100.0 * sites)
         y_q = y0s * np.exp(-w_q)
@@ -768,7 +791,7 @@ def trace_integral(path, law, s0, sites, r, *, n_gauss=N_GAUSS_TRACE):
         tab_i[1] = d0
         tab_i[2] = 3.0 * parts - 2.0 * d0 - d1
         tab_i[3] = d0 + d1 - 2.0 * parts
-        gi = np.take(tab_i.reshape(4, m * n), path["flat"], axis=1)
+        gi = _gather(tab_i.reshape(4, m * n), path["where"], path["u"].shape)
         return _horner(gi, path["u"])
 
 
