@@ -60,6 +60,7 @@ from zoning.exceptions import (
     FitError,
     ZoningError,
 )
+from zoning.partitioning import equilibrium_crystal
 from zoning.traverse import MINERALS, Traverse
 
 __all__ = ["fit_traverse", "DEFAULT_SIGMA", "DEFAULT_TRACE_SIGMA", "KD_PRIOR", "DEFAULT_N_STEPS"]
@@ -221,7 +222,7 @@ class _Problem:
         u = theta.copy()
         k = self._kernel_k(theta)
         y = theta[:, 0]
-        u[:, 0] = y / (y + k * (1.0 - y))
+        u[:, 0] = equilibrium_crystal(y, k)
         return u
 
     def from_sampler(self, u: np.ndarray) -> np.ndarray:

@@ -81,6 +81,8 @@ from functools import lru_cache
 
 import numpy as np
 
+from zoning.partitioning import equilibrium_crystal
+
 __all__ = [
     "retention_closed_form",
     "rayleigh_exchange_t",
@@ -201,8 +203,7 @@ def batch_exchange_t(y, y0, k):
     .. [1] Shaw, D. M. (1970). Geochim. Cosmochim. Acta 34, 237-243.
     """
     y = np.asarray(y, dtype=float)
-    fy = y / (y + k * (1.0 - y))
-    return (y0 - y) / (fy - y)
+    return (y0 - y) / (equilibrium_crystal(y, k) - y)
 
 
 def _t_of_f(f, y, y0, c, ma, mb):
@@ -683,7 +684,7 @@ def _trace_terms(ys, t, ks, r, s0, sites, mas, mbs, swap, law, f, tw=None):
     variable v) is given, D/W dm_iso/dv with
     :math:`dm_{iso} = (1-r)(S_0/s) M_f(X)\,dt`.
     """
-    xs = ys / (ks + (1.0 - ks) * ys)
+    xs = equilibrium_crystal(ys, ks)
     mf = mbs + (mas - mbs) * xs  # formula-unit mass of the crystal
     per_site = s0 / sites
     if swap is None:
@@ -919,7 +920,7 @@ def assemblage_path(f, y0, k, r, a0, b0, sites, ma, mb, w_an, d_oa, d_ob, *,
             res = (1.0 - yc) * (at - n * xc) * pb - yc * pa * (bt - n * (1.0 - xc))
             step = res.real / (res.imag * 1e30)
             y = np.clip(y - step, 1e-300, 1.0 - 1e-16)
-        x = y / (y + k * (1.0 - y))
+        x = equilibrium_crystal(y, k)
         melt = 100.0 - (1.0 - r) * tau - rho - n * mf_of(x) / sites
         pa = 1.0 + d_oa * rho / melt
         u = (at - n * x) / (y * pa)
@@ -959,7 +960,7 @@ def assemblage_path(f, y0, k, r, a0, b0, sites, ma, mb, w_an, d_oa, d_ob, *,
             if nt:
                 # exchanging trace total divided by its weight = melt concentration
                 for q, law in enumerate(trace_laws):
-                    x = y / (y + k * (1.0 - y))
+                    x = equilibrium_crystal(y, k)
                     d_an = law(y, a, melt, x)
                     n_ret = state[2]
                     wgt = melt + d_an * n_ret * mf_of(x) / sites + d_tr[q] * r * w_o * tau
