@@ -85,13 +85,16 @@ def zone_fraction(distance_um, radius_um, core_offset_um=0.0, section_offset_um=
     ndarray
         Relative zone radius in [0, 1].
     """
-    x = np.maximum(np.abs(distance_um) - core_offset_um, 0.0)
+    x = np.abs(distance_um)
+    if np.any(core_offset_um):
+        x = np.maximum(x - core_offset_um, 0.0)
     h2 = np.square(section_offset_um)
     if np.any(h2 > 0):
         xi = np.sqrt(x * x + h2) / np.sqrt(np.square(radius_um) + h2)
     else:
         xi = x / radius_um
-    return np.clip(xi, 0.0, 1.0)
+    # x >= 0 here, so only the upper bound needs applying
+    return np.minimum(xi, 1.0)
 
 
 def fraction_from_distance(distance_um, radius_um, f_core, f_rim, growth_exponent,
@@ -125,6 +128,8 @@ def fraction_from_distance(distance_um, radius_um, f_core, f_rim, growth_exponen
     .. [1] Pearce, T. H. (1984). Contrib. Mineral. Petrol. 86, 149-154.
     """
     xi = zone_fraction(distance_um, radius_um, core_offset_um, section_offset_um)
+    if np.ndim(f_core) == 0 and f_core == 0.0:
+        return f_rim * xi**growth_exponent
     return f_core + (f_rim - f_core) * xi**growth_exponent
 
 

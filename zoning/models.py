@@ -138,59 +138,58 @@ class _ModelBase:
     def _params(self, params: Mapping[str, object]) -> tuple[dict[str, np.ndarray], int, bool]:
         """Validate keyword parameters; return (m, 1) arrays, m, and scalar flag."""
         specs = self.parameters
-        names = self.parameter_names
-        unknown = sorted(set(params).difference(names))
-        if unknown:
+        names, lower, upper = self._spec_table
+        if not params.keys() <= names.keys():
+            unknown = sorted(set(params).difference(names))
             raise ModelDomainError(
                 f"unknown parameter(s) {unknown} for {type(self).__name__}; expected names "
                 f"from {list(names)}."
             )
-        arrays = []
         m = None
-        scalar = True
-        for spec in specs:
-            value = params.get(spec.name, spec.default)
+        arrays = {}
+        for name, value in params.items():
             arr = np.asarray(value, dtype=float)
             if arr.ndim:
                 if arr.ndim > 1:
                     raise ModelDomainError(
-                        f"parameter {spec.name!r} must be a float or a 1-D array of parameter "
+                        f"parameter {name!r} must be a float or a 1-D array of parameter "
                         f"sets; got an array of shape {arr.shape}."
                     )
-                scalar = False
                 if m is None:
                     m = arr.shape[0]
                 elif arr.shape[0] != m:
                     raise ModelDomainError(
-                        f"parameter {spec.name!r} has {arr.shape[0]} values but other "
+                        f"parameter {name!r} has {arr.shape[0]} values but other "
                         f"parameters have {m}; give every array parameter the same length."
                     )
-            arrays.append(arr)
+            arrays[name] = arr
+        scalar = m is None
         m = 1 if m is None else m
-        table = np.empty((len(specs), m))
-        for i, arr in enumerate(arrays):
-            table[i] = arr
-        lower, upper = self._bounds
+        table = np.empty((len(specs), m, 1))
+        for name, i in names.items():
+            table[i] = arrays[name][..., None] if name in arrays else specs[i].default
         bad = ~((table >= lower) & (table <= upper))  # also catches NaN
         if bad.any():
-            i = int(np.argmax(bad.any(axis=1)))
+            i = int(np.argmax(bad.any(axis=(1, 2))))
             spec = specs[i]
             got = float(table[i][bad[i]][0])
             raise ModelDomainError(
                 f"parameter {spec.name!r} = {got!r} is outside its allowed range "
                 f"[{spec.lower:g}, {spec.upper:g}] {spec.unit}; give a value inside it."
             )
-        out = {spec.name: table[i, :, None] for i, spec in enumerate(specs)}
-        return out, m, scalar
+        return dict(zip(names, table)), m, scalar
 
     @property
-    def _bounds(self) -> tuple[np.ndarray, np.ndarray]:
-        cached = getattr(self, "_bounds_cache", None)
+    def _spec_table(self) -> tuple[dict[str, int], np.ndarray, np.ndarray]:
+        """Parameter positions by name and the (p, 1, 1) lower and upper bounds."""
+        cached = getattr(self, "_spec_cache", None)
         if cached is None or cached[0] is not self.parameters:
-            lower = np.array([[sp.lower] for sp in self.parameters])
-            upper = np.array([[sp.upper] for sp in self.parameters])
-            cached = (self.parameters, (lower, upper))
-            self._bounds_cache = cached
+            specs = self.parameters
+            names = {sp.name: i for i, sp in enumerate(specs)}
+            lower = np.array([sp.lower for sp in specs])[:, None, None]
+            upper = np.array([sp.upper for sp in specs])[:, None, None]
+            cached = (specs, (names, lower, upper))
+            self._spec_cache = cached
         return cached[1]
 
     # ------------------------------------------------------------- evaluation
@@ -288,8 +287,9 @@ class _ModelBase:
             exponent = exponent[:1]
         if not offset.any():
             offset = 0.0
+        f_core = p["f_core"] if p["f_core"].any() else 0.0
         fm = _geometry.fraction_from_distance(
-            xs[None, :], radius, p["f_core"], p["f_rim"], exponent, offset,
+            xs[None, :], radius, f_core, p["f_rim"], exponent, offset,
             self.section_offset_um,
         )
         if self.beam_um > 0:
@@ -657,12 +657,12 @@ class CrystallizationModel(_ModelBase):
             a0, b0, _ = self.initial_state(y0)
             return self._evaluate_assemblage(f, p, y0, k, r, a0, b0, strict=strict,
                                              stacklevel=stacklevel + 1)
-        s0 = self._b0 * y0 / (1.0 - y0) + self._b0  # as initial_state
+        s0 = self._b0 / (1.0 - y0)  # = a0 + b0 of initial_state
         fmax = _kernels.exhaustion_fraction(y0, s0, law.sites, law.molar_mass_a, law.molar_mass_b)
         limit = fmax * (1.0 - 1e-9)
-        beyond = f >= limit
-        any_beyond = bool(beyond.any())
+        any_beyond = bool((f.max(axis=1, keepdims=True) >= limit).any())
         if any_beyond:
+            beyond = f >= limit
             if strict:
                 i, j = np.argwhere(beyond)[0]
                 raise ModelDomainError(
@@ -672,39 +672,46 @@ class CrystallizationModel(_ModelBase):
                     f"{i}). Lower f_rim or the fraction, or check the melt analysis."
                 )
             f = np.where(beyond, 0.0, f)
+        trace_laws = [self._trace_path_law(tr, s0) for tr in self.traces]
         path = _kernels.exchange_path(f, y0, k, r, s0, law.sites, law.molar_mass_a,
-                                      law.molar_mass_b)
+                                      law.molar_mass_b, trace_laws=trace_laws)
         y, t = path["y"], path["t"]
-        cations_melt = s0 * (1.0 - t)
-        a_l = y * cations_melt
-        out = self._outputs(f, y, k, a_l, cations_melt - a_l, 100.0 * (1.0 - f))
+        one_f = 1.0 - f
+        # exchange cations in the melt per 100 g of initial melt, per unit melt mass
+        per_melt = s0 * (1.0 - t) / one_f
+        out, x = self._outputs(f, y, k, y * per_melt, per_melt)
         if self.traces:
-            self._traces(out, path, p, s0, r, f, stacklevel + 1)
+            self._traces(out, path, p, s0, r, one_f, x, stacklevel + 1)
         if any_beyond:
             for key in out:
-                if key != "f":
-                    out[key] = np.where(beyond, np.nan, out[key])
-            out["f"] = np.where(beyond, np.nan, out["f"])
+                out[key] = np.where(beyond, np.nan, out[key])
         return out
 
-    def _outputs(self, f, y, k, a_l, b_l, melt_mass):
+    def _outputs(self, f, y, k, a_per_melt, s_per_melt):
+        """Output dict from the melt ratio and the melt cations per unit melt mass.
+
+        ``a_per_melt`` and ``s_per_melt`` are the compatible and all exchange
+        cations in the melt [mol per g of melt, times 100]. Returns the dict
+        and the crystal fraction X [fraction].
+        """
         law = self.law
         # oxide wt% = 100 (cations / cations per oxide) M_oxide / melt mass
-        inv_mass = 100.0 / melt_mass
         to_a = OXIDE_MOLAR_MASS[law.compatible_oxide] / law.cations_per_oxide_a
         to_b = OXIDE_MOLAR_MASS[law.other_oxide] / law.cations_per_oxide_b
+        x = equilibrium_crystal(y, k)
+        melt_a = to_a * a_per_melt
         out = {
             "f": f.copy(),
-            "crystal": 100.0 * equilibrium_crystal(y, k),
+            "crystal": 100.0 * x,
             "melt_ratio": y,
-            f"melt_{law.compatible_oxide.lower()}_wt": (to_a * a_l) * inv_mass,
-            f"melt_{law.other_oxide.lower()}_wt": (to_b * b_l) * inv_mass,
+            f"melt_{law.compatible_oxide.lower()}_wt": melt_a,
+            f"melt_{law.other_oxide.lower()}_wt": to_b * (s_per_melt - a_per_melt),
         }
         if self.mineral == "olivine":
-            out["temperature_c"] = 20.1 * out["melt_mgo_wt"] + 1014.0
+            out["temperature_c"] = 20.1 * melt_a + 1014.0
         else:
             out["temperature_c"] = np.full_like(f, self.temperature_c)
-        return out
+        return out, x
 
     def _evaluate_assemblage(self, f, p, y0, k, r, a0, b0, *, strict, stacklevel):
         law = self.law
@@ -731,8 +738,9 @@ class CrystallizationModel(_ModelBase):
                 f"is used up at F = {res['f_reached'][i, 0]:.4g} (parameter set {i}). Lower "
                 f"f_rim or change the assemblage."
             )
-        out = self._outputs(f, res["y"], k, res["a"], res["b"], res["melt_mass"])
-        x_pt = out["crystal"] / 100.0
+        inv_mass = 100.0 / res["melt_mass"]
+        a_per_melt = res["a"] * inv_mass
+        out, x_pt = self._outputs(f, res["y"], k, a_per_melt, a_per_melt + res["b"] * inv_mass)
         for q, tr in enumerate(self.traces):
             melt_c = p[tr.parameter] * np.exp(res["trace_ln"][..., q])
             tr.check_range(out.get("melt_mgo_wt"), x_pt, stacklevel=stacklevel + 1)
@@ -743,33 +751,33 @@ class CrystallizationModel(_ModelBase):
                 out[key] = np.where(beyond, np.nan, out[key])
         return out
 
-    def _traces(self, out, path, p, s0, r, f, stacklevel):
+    def _trace_path_law(self, tr: TraceLaw, s0):
+        """D of ``tr`` along the path as ``law(y, t, x, f)`` for the kernels."""
+        temp = self.temperature_c
+        if self.mineral != "olivine":
+            return lambda y, t, x, fr: tr.partition(None, x, temp)
+        # melt MgO [wt%] from the melt ratio and the cations left in the melt
+        mgo_per_cation = (OXIDE_MOLAR_MASS["MgO"] / self.law.cations_per_oxide_a) * s0
+        return lambda y, t, x, fr: tr.partition(mgo_per_cation * y * (1.0 - t) / (1.0 - fr),
+                                                x, temp)
+
+    def _traces(self, out, path, p, s0, r, one_f, x_pt, stacklevel):
         law = self.law
         temp = self.temperature_c
         mgo_pt = out.get("melt_mgo_wt")
-        x_pt = out["crystal"] / 100.0
         olivine = self.mineral == "olivine"
-        mgo_factor = OXIDE_MOLAR_MASS["MgO"] / law.cations_per_oxide_a
-
-        def melt_mgo(y, t, fr):
-            return mgo_factor * y * s0 * (1.0 - t) / (1.0 - fr)
-
         # at the points, W = M_L + D M_ret from the outputs already computed:
         # M_L = 100 (1 - F), M_ret = r (S_0/s) t M_f(X) (see trace_log_ratio)
-        melt_mass = 100.0 * (1.0 - f)
+        melt_mass = 100.0 * one_f
         m_ret = (r * s0 / law.sites) * path["t"] * (
             law.molar_mass_b + (law.molar_mass_a - law.molar_mass_b) * x_pt)
-        for tr in self.traces:
-            def law_fn(y, t, x, fr, tr=tr):
-                return tr.partition(melt_mgo(y, t, fr) if olivine else None, x, temp)
-
-            integral = _kernels.trace_integral(path, law_fn, s0, law.sites, r)
+        for tr, integral in zip(self.traces, path["trace_integrals"]):
             d_pt = tr.partition(mgo_pt if olivine else None, x_pt, temp)
             if np.ndim(d_pt) == 0:
-                d_pt = np.full(f.shape, d_pt)
+                d_pt = np.full(one_f.shape, d_pt)
             # ln(C_L/C_0) = -ln(W/W_0) - integral, W_0 = 100
             melt_c = p[tr.parameter] * (100.0 / (melt_mass + d_pt * m_ret)) * np.exp(-integral)
-            tr.check_range(_extremes(mgo_pt), _extremes(x_pt), stacklevel=stacklevel + 1)
+            tr.check_range(mgo_pt, x_pt, stacklevel=stacklevel + 1)
             out[tr.melt_key] = melt_c
             out[tr.crystal_key] = d_pt * melt_c * tr.crystal_factor
 
@@ -935,13 +943,6 @@ MODELS = (CrystallizationModel, ConstantPartitionModel)
 
 
 # ---------------------------------------------------------------- helpers
-def _extremes(values):
-    """Smallest and largest finite value (NaN ignored) of an array, or None."""
-    if values is None or values.size == 0:
-        return values
-    return np.array([np.fmin.reduce(values, axis=None), np.fmax.reduce(values, axis=None)])
-
-
 def _squeeze(out: dict, scalar: bool) -> dict:
     if scalar:
         return {k: np.ascontiguousarray(v[0]) for k, v in out.items()}

@@ -48,6 +48,7 @@ References
 
 from __future__ import annotations
 
+import math
 import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -349,12 +350,11 @@ class TraceLaw:
         """Warn once if the law is used outside its calibration range."""
         if self.kind == "ni_hart_davis":
             lo, hi = NI_MGO_RANGE_WT
-            v = np.asarray(melt_mgo_wt)
-            finite = v[np.isfinite(v)]
-            if finite.size and (finite.min() < lo or finite.max() > hi):
+            vmin, vmax = _finite_extremes(melt_mgo_wt)
+            if vmin < lo or vmax > hi:
                 warnings.warn(
                     f"D_Ni of Hart & Davis (1978) used at melt MgO "
-                    f"{finite.min():.3g}-{finite.max():.3g} wt%, outside its calibration "
+                    f"{vmin:.3g}-{vmax:.3g} wt%, outside its calibration "
                     f"range of about {lo:g}-{hi:g} wt%; treat Ni results as extrapolated "
                     f"or give a constant D with trace_d={{'Ni': D}}.",
                     CalibrationRangeWarning,
@@ -362,17 +362,24 @@ class TraceLaw:
                 )
         elif self.kind == "plag_lattice":
             lo, hi = PLAGIOCLASE_XAN_RANGE
-            v = np.asarray(crystal_x)
-            finite = v[np.isfinite(v)]
-            if finite.size and (finite.min() < lo or finite.max() > hi):
+            vmin, vmax = _finite_extremes(crystal_x)
+            if vmin < lo or vmax > hi:
                 warnings.warn(
                     f"plagioclase D_{self.element} law (RT ln D = A X_An + B) used at X_An "
-                    f"{finite.min():.3g}-{finite.max():.3g}, outside its calibration range "
+                    f"{vmin:.3g}-{vmax:.3g}, outside its calibration range "
                     f"{lo:g}-{hi:g} (Bindeman et al. 1998); treat {self.element} results as "
                     f"extrapolated or give a constant D with trace_d.",
                     CalibrationRangeWarning,
                     stacklevel=stacklevel,
                 )
+
+
+def _finite_extremes(values) -> tuple[float, float]:
+    """Smallest and largest value ignoring NaN (NaN, NaN when there is none)."""
+    v = np.asarray(values, dtype=float)
+    if v.size == 0:
+        return math.nan, math.nan
+    return float(np.fmin.reduce(v, axis=None)), float(np.fmax.reduce(v, axis=None))
 
 
 def make_trace_law(mineral: str, element: str, constant_d: float | None = None) -> TraceLaw:
