@@ -101,19 +101,8 @@ __all__ = [
 #: this the melt ratio moves by less than ~1e-9 over the whole path.
 K_EPS = 1e-9
 
-#: Default number of grid intervals and Gauss-Legendre nodes per interval.
+#: Default number of grid intervals.
 N_INTERVALS = 20
-N_GAUSS = 3
-#: Gauss-Legendre nodes per interval of the trace-element integral (the trace
-#: error, about 1e-5 relative, is set by the interpolation to the points).
-N_GAUSS_TRACE = 2
-
-
-@lru_cache(maxsize=16)
-def _gauss01(q: int) -> tuple[np.ndarray, np.ndarray]:
-    """Gauss-Legendre nodes and weights on [0, 1]."""
-    x, wt = np.polynomial.legendre.leggauss(q)
-    return 0.5 * (x + 1.0), 0.5 * wt
 
 
 def retention_closed_form(f, d, r):
@@ -233,23 +222,6 @@ def _prefix_matrix(n: int) -> np.ndarray:
 
 
 @lru_cache(maxsize=16)
-def _gauss_powers(q: int, derivative: int = 0) -> np.ndarray:
-    """(6, q): xi^0..xi^5 of the Gauss-Legendre nodes on [0, 1], or their first derivative."""
-    xi, _ = _gauss01(q)
-    k = np.arange(6)[:, None]
-    if derivative:
-        return k * xi[None, :] ** np.maximum(k - 1, 0)
-    return xi[None, :] ** k
-
-
-@lru_cache(maxsize=16)
-def _gauss_shift(q: int) -> np.ndarray:
-    """(2, q) rows [1, xi] of the Gauss-Legendre nodes on [0, 1]."""
-    xi, _ = _gauss01(q)
-    return np.stack([np.ones_like(xi), xi])
-
-
-@lru_cache(maxsize=16)
 def _fractions(n: int) -> np.ndarray:
     """Return j / n for j = 0..n."""
     return np.arange(n + 1) / n
@@ -349,7 +321,7 @@ def _node_positions(f_last, f_cap, y0, k, c, ma, mb, n_intervals):
 
 
 def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS,
-                  n_gauss=N_GAUSS, w_end=None, w_nodes=None):
+                  w_end=None, w_nodes=None):
     r"""Integrate t on a grid in w = ln(y0/y) up to F = ``f_end``.
 
     Parameters
@@ -369,8 +341,8 @@ def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS
         Exchange cations per formula unit.
     ma, mb : ndarray or float
         End-member molar masses (swapped with y) [g/mol].
-    n_intervals, n_gauss : int
-        Grid intervals and Gauss-Legendre nodes per interval.
+    n_intervals : int
+        Number of grid intervals (uniform grid).
     w_end : ndarray, shape (m, 1), optional
         End of a uniform grid in w; default the fractional-limit bound, which
         covers ``f_end`` for every r.
@@ -400,48 +372,59 @@ def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS
         raw = np.empty((6, m, n))
         hi = np.subtract(w[:, 1:], w[:, :-1], out=raw[1])  # interval widths in w
         y = np.exp(np.log(y0) - w)
+        # per-row constants spread over the nodes once (same-shape operations below)
         one_k = 1.0 - k
-        p = (r - k) / one_k
-        q = (1.0 - r * k) / one_k
-        one_y = 1.0 - y
-        den = k + one_k * y
-        # ln mu at nodes (relative to an arbitrary constant)
-        lmu = q * np.log(one_y) - p * w - r * np.log(den)
-        # Gauss-Legendre points inside each interval, measured back from its
-        # right node: w_g = w_{i+1} - (1 - xi) dw; with eta = y_{i+1} e^(1-xi)dw,
-        # (1 - eta)/(1 - y_{i+1}) = 1 - a E and den(eta)/den(y_{i+1}) = 1 + b E,
-        # E = e^((1-xi)dw) - 1; shapes (G, m, N)
-        xi, om = _gauss01(n_gauss)
-        back = (1.0 - xi)[:, None, None]
-        em1 = np.expm1(back * hi)
-        y1 = y[:, 1:]
-        one_y1 = one_y[:, 1:]
-        den1 = den[:, 1:]
-        # mu(eta)/mu(y_{i+1}) * den(eta)/(1 - eta); the 1/(1-K) factor is applied below
-        integrand = np.exp(
-            back * (p * hi)
-            + (q - 1.0) * np.log1p((-y1 / one_y1) * em1)
-            + (1.0 - r) * np.log1p((one_k * y1 / den1) * em1)
-        )
-        interval = (hi * den1 / (one_k * one_y1)) * (om @ integrand.reshape(n_gauss, -1)).reshape(m, n)
-        # t_j = sum_{i<j} I_i mu_{i+1}/mu_j, the running sum as a product with
-        # a triangular matrix (scaled by the largest mu against overflow)
-        scaled_mu = np.exp(lmu - lmu[:, 1:].max(axis=1, keepdims=True))
-        t = ((interval * scaled_mu[:, 1:]) @ _prefix_matrix(n)) / scaled_mu
+        kk, ok, rr, iok = np.repeat(np.concatenate([k, one_k, r, 1.0 / one_k], axis=1)[:, :, None],
+                                    n1, axis=2).transpose(1, 0, 2)
+        # t_w = Q + P t with Q = A, P = A B, A = den/((1-K)(1-y)) = s/(1-K) - 1,
+        # s = 1/(1-y), B = r K/den^2 - 1, den = K + (1-K) y; y-derivatives
+        # A_y = s^2/(1-K), A_yy = 2 s A_y, B_y = -2 r K (1-K)/den^3,
+        # B_yy = -3 (1-K) B_y/den; d/dw = -y d/dy
+        s_ = 1.0 / (1.0 - y)
+        iden = 1.0 / (kk + ok * y)
+        a_fac = s_ * iok - 1.0
+        a_y = s_ * s_ * iok
+        a_yy = 2.0 * s_ * a_y
+        fp = kk * iden * iden
+        b_fac = rr * fp - 1.0
+        okd = ok * iden
+        b_y = -2.0 * rr * fp * okd
+        b_yy = -3.0 * okd * b_y
+        p_ = a_fac * b_fac
+        p_y = a_y * b_fac + a_fac * b_y
+        p_yy = a_yy * b_fac + 2.0 * a_y * b_y + a_fac * b_yy
+        q1 = -y * a_y
+        q2 = y * (a_y + y * a_yy)
+        p1 = -y * p_y
+        p2 = y * (p_y + y * p_yy)
+        # k-th w-derivative of t at each node: a_k + b_k t
+        a2 = q1 + p_ * a_fac
+        b2 = p1 + p_ * p_
+        a3 = q2 + 2.0 * p1 * a_fac + p_ * a2
+        b3 = p2 + 2.0 * p1 * p_ + p_ * b2
+        # two-point Hermite-Obreschkoff formula of order 6 on each interval,
+        # t1 - h/2 t1_w + h^2/10 t1_ww - h^3/120 t1_www
+        #   = t0 + h/2 t0_w + h^2/10 t0_ww + h^3/120 t0_www,
+        # linear in t1: t1 = alpha t0 + beta
+        h1 = 0.5 * hi
+        h2 = 0.1 * hi * hi
+        h3 = (hi * h2) * (1.0 / 12.0)
+        r1 = 1.0 - h1 * p_[:, 1:] + h2 * b2[:, 1:] - h3 * b3[:, 1:]
+        alpha = (1.0 + h1 * p_[:, :-1] + h2 * b2[:, :-1] + h3 * b3[:, :-1]) / r1
+        beta = (h1 * (a_fac[:, :-1] + a_fac[:, 1:]) + h2 * (a2[:, :-1] - a2[:, 1:])
+                + h3 * (a3[:, :-1] + a3[:, 1:])) / r1
+        # t_j = C_j sum_{i<j} beta_i / C_{i+1}, C_j = prod_{i<j} alpha_i
+        cum = np.empty_like(w)
+        cum[:, 0] = 1.0
+        np.cumprod(alpha, axis=1, out=cum[:, 1:])
+        t = ((beta / cum[:, 1:]) @ _prefix_matrix(n)) * cum
         if not np.isfinite(t).all():
-            # Very wide range of mu: fall back to the sequential recurrence.
+            # Products out of floating-point range: the sequential recurrence.
             t = np.zeros_like(w)
             for j in range(n):
-                t[:, j + 1] = t[:, j] * np.exp(lmu[:, j] - lmu[:, j + 1]) + interval[:, j]
-        # derivatives from the ODE: t_w = A (1 + t B), A = den/((1-K)(1-y)),
-        # B = r f'(y) - 1, f' = K/den^2; dA/dy = 1/((1-K)(1-y)^2),
-        # dB/dy = -2 r K (1-K)/den^3, dy/dw = -y
-        a_fac = den / (one_k * one_y)
-        fp = k / (den * den)
-        b_fac = r * fp - 1.0
-        g1 = 1.0 + t * b_fac
-        tw = a_fac * g1
-        tww = a_fac * (tw * b_fac + (y / den) * ((2.0 * r * one_k) * fp * t - g1 / one_y))
+                t[:, j + 1] = alpha[:, j] * t[:, j] + beta[:, j]
+        tw = a_fac + p_ * t
+        tww = a2 + b2 * t
         cm = c * (ma - mb)
         cb = c * mb
         cmy = cm * y
@@ -585,7 +568,7 @@ def exchange_invert(f, grid, y0, s0, sites, ma, mb):
 
 
 def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS,
-                  n_gauss=N_GAUSS, trace_laws=()):
+                  trace_laws=()):
     """Melt ratio and cation fraction along a retention crystallization path.
 
     Handles any K > 0 by swapping the pair where K > 1 and clamping
@@ -608,12 +591,12 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
         Exchange cations per formula unit.
     ma, mb : float
         End-member molar masses [g/mol] (A = compatible-cation end-member for K < 1).
-    n_intervals, n_gauss : int
-        Grid resolution.
+    n_intervals : int
+        Number of grid intervals.
     trace_laws : sequence of callable, optional
         Trace-element laws ``law(y, t, x, f) -> D`` (see
-        :func:`trace_log_ratio`); the integral of each is returned under
-        ``"trace_integrals"``, interpolated to the points together with the
+        :func:`trace_log_ratio`); the decay factor of each is returned under
+        ``"trace_decay"``, interpolated to the points together with the
         major elements.
 
     Returns
@@ -624,8 +607,8 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
         ``y0s``, ``ks``, ``mas``, ``mbs``, and per point ``ys`` (swapped y),
         ``w``, ``where`` (grid interval locator, see :func:`_interval_index`)
         and ``u`` (position in the interval), used by
-        :func:`trace_log_ratio`; ``trace_integrals``, a list with the
-        integral :math:`\\int_0 (D/W)\\,dm_{iso}` (m, n) of each trace law.
+        :func:`trace_log_ratio`; ``trace_decay``, a list with the decay
+        factor :math:`\\exp(-\\int_0 (D/W)\\,dm_{iso})` (m, n) of each trace law.
     """
     k = np.asarray(kd_kernel, dtype=float)
     swap = k > 1.0
@@ -649,14 +632,14 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
     with np.errstate(all="ignore"):
         # node placement needs no precision; coverage of f_end is checked below
         w_nodes = _node_positions(f_last, f_cap, y0s, ks, c, mas, mbs, n_intervals)
-        grid = exchange_grid(f_end, y0s, ks, r, s0, sites, mas, mbs, n_gauss=n_gauss,
+        grid = exchange_grid(f_end, y0s, ks, r, s0, sites, mas, mbs,
                              w_nodes=w_nodes)
         short = grid["f"][:, -1:] < f_end
         if short.any():  # nodes short of f_end: stretch them to the precise r = 0 bound
             w_safe = _w_lower_bound(f_last, y0s, ks, c, mas, mbs) * (1.0 + 1e-6)
             scale = np.maximum(w_safe / w_nodes[:, -1:], 1.0)
             w_nodes = np.where(short, w_nodes * scale, w_nodes)
-            grid = exchange_grid(f_end, y0s, ks, r, s0, sites, mas, mbs, n_gauss=n_gauss,
+            grid = exchange_grid(f_end, y0s, ks, r, s0, sites, mas, mbs,
                                  w_nodes=w_nodes)
         path = {"grid": grid, "swap": swap, "y0s": y0s, "ks": ks, "mas": mas, "mbs": mbs}
         extra = [_trace_table(path, law, s0, sites, r) for law in trace_laws]
@@ -667,8 +650,8 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
         t = _t_of_f(f, ys, y0s, c, mas, mbs)
     path.update(ys=ys, t=t, w=w_pt, where=where, u=u,
                 y=ys if swap is None else np.where(swap, 1.0 - ys, ys),
-                trace_integrals=[_horner(g_extra[..., 4 * i:4 * i + 4], u)
-                                 for i in range(len(extra))])
+                trace_decay=[_horner(g_extra[..., 4 * i:4 * i + 4], u)
+                             for i in range(len(extra))])
     return path
 
 
@@ -719,7 +702,7 @@ def _trace_terms(ys, t, ks, r, s0, sites, mas, mbs, swap, law, f, tw=None):
     return d, wgt, d_mf / wgt * ((1.0 - r) * per_site) * tw
 
 
-def trace_log_ratio(path, law, s0, sites, r, f, *, n_gauss=N_GAUSS_TRACE):
+def trace_log_ratio(path, law, s0, sites, r, f):
     r"""ln(C_L / C_0) of a trace element at the requested points.
 
     Wt-based mass balance with retention: the exchanging total is
@@ -730,10 +713,11 @@ def trace_log_ratio(path, law, s0, sites, r, f, *, n_gauss=N_GAUSS_TRACE):
               \qquad W = M_L + D M_{ret}
 
     D may vary along the path. The integral is accumulated over the grid
-    intervals by Gauss-Legendre quadrature in F (w at the quadrature points
-    from the quintic Hermite of the grid, then y and t explicitly, and
-    :math:`dt/dF = t_w/F_w` from the ODE) and interpolated to the points by
-    cubic Hermite interpolation in F with its exact derivative; W is
+    intervals by Simpson's rule in F (w at the interval midpoints from the
+    quintic Hermite of the grid, then y and t explicitly, and
+    :math:`dt/dF` from the explicit mass balance) and
+    :math:`E = \exp(-\int_0 (D/W)\,dm_{iso})` is interpolated to the points
+    by cubic Hermite interpolation in F with its exact derivative; W is
     evaluated at the points.
 
     Parameters
@@ -750,8 +734,6 @@ def trace_log_ratio(path, law, s0, sites, r, f, *, n_gauss=N_GAUSS_TRACE):
         Retention [fraction].
     f : ndarray, shape (m, n)
         The requested crystallized fractions [fraction].
-    n_gauss : int
-        Quadrature nodes per interval.
 
     Returns
     -------
@@ -760,7 +742,7 @@ def trace_log_ratio(path, law, s0, sites, r, f, *, n_gauss=N_GAUSS_TRACE):
     """
     ks, mas, mbs, swap = path["ks"], path["mas"], path["mbs"], path["swap"]
     with np.errstate(all="ignore"):
-        integral = trace_integral(path, law, s0, sites, r, n_gauss=n_gauss)
+        integral = trace_integral(path, law, s0, sites, r)
         # the requested points: D and W
         d_pt, wgt_pt, _ = _trace_terms(path["ys"], path["t"], ks, r, s0, sites, mas, mbs, swap,
                                        law, f)
@@ -768,38 +750,42 @@ def trace_log_ratio(path, law, s0, sites, r, f, *, n_gauss=N_GAUSS_TRACE):
     return out, d_pt
 
 
-def trace_integral(path, law, s0, sites, r, *, n_gauss=N_GAUSS_TRACE):
+def trace_integral(path, law, s0, sites, r):
     r"""Return the integral :math:`\int_0 (D/W)\,dm_{iso}` at the points of ``path``.
 
     See :func:`trace_log_ratio` (same parameters, without ``f``); returns
     an array of shape (m, n).
     """
     with np.errstate(all="ignore"):
-        tab_i = _trace_table(path, law, s0, sites, r, n_gauss=n_gauss)
-        gi = _gather(tab_i, path["where"], path["u"].shape)
-        return _horner(gi, path["u"])
+        tab_e = _trace_table(path, law, s0, sites, r)
+        return -np.log(_horner(_gather(tab_e, path["where"], path["u"].shape), path["u"]))
 
 
-def _trace_table(path, law, s0, sites, r, *, n_gauss=N_GAUSS_TRACE):
-    r"""Cubic Hermite table (m N, 4) of :math:`\int_0 (D/W)\,dm_{iso}` per grid interval.
+#: Powers 0..5 of u = 1/2 and their derivatives: the quintic Hermite of w(u)
+#: and dw/du at the interval midpoints.
+_MID_POWERS = np.array([[0.5**k for k in range(6)],
+                        [k * 0.5 ** max(k - 1, 0) for k in range(6)]]).T
 
-    Row ``[I_j, d0, c2, c3]`` of interval ``i N + j`` gives the integral at
-    ``u = (F - F_j)/dF`` as ``I_j + d0 u + c2 u^2 + c3 u^3``. Call inside
-    ``np.errstate(all="ignore")``.
+
+def _trace_table(path, law, s0, sites, r):
+    r"""Cubic Hermite table (m N, 4) of the trace decay factor per grid interval.
+
+    The decay factor is :math:`E = \exp(-\int_0 (D/W)\,dm_{iso})`; row
+    ``[E_j, d0, c2, c3]`` of interval ``i N + j`` gives it at
+    ``u = (F - F_j)/dF`` as ``E_j + d0 u + c2 u^2 + c3 u^3``. The integral
+    over each interval is Simpson's rule in F (its error, like that of the
+    interpolation, is of order dF^5). Call inside ``np.errstate(all="ignore")``.
     """
     g = path["grid"]
     ks, mas, mbs, y0s, swap = path["ks"], path["mas"], path["mbs"], path["y0s"], path["swap"]
     m, n1 = g["w"].shape
     n = n1 - 1
-    # quadrature points inside each grid interval, evenly placed in u
-    # (that is in F); flattened to (m, N*G)
-    _, om = _gauss01(n_gauss)
     tab, dfi = g["tab"], g["df"]
-    coef = tab[:, 2:]
-    w_q = (coef @ _gauss_powers(n_gauss)).reshape(m, -1)
-    # dw/dF from the derivative of the same quintic
-    w_f = ((coef @ _gauss_powers(n_gauss, 1)) / tab[:, 1:2]).reshape(m, -1)
-    f_q = (tab[:, :2] @ _gauss_shift(n_gauss)).reshape(m, -1)
+    # w and dw/dF at the midpoint of each interval, (m, N)
+    mid = tab[:, 2:] @ _MID_POWERS
+    w_q = mid[:, 0].reshape(m, n)
+    w_f = (mid[:, 1] / tab[:, 1]).reshape(m, n)
+    f_q = g["f"][:, :-1] + 0.5 * dfi
     ic = (100.0 * sites) / s0
     y_q = np.exp(np.log(y0s) - w_q)
     # t from F and y (explicit mass balance) and its derivative along the
@@ -809,22 +795,28 @@ def _trace_table(path, law, s0, sites, r, *, n_gauss=N_GAUSS_TRACE):
     inv_den = 1.0 / (mbs + dmy)
     t_q = (f_q * ic - dm * y0s + dmy) * inv_den
     tf_q = (ic - (1.0 - t_q) * dmy * w_f) * inv_den
-    # nodes and quadrature points together
+    # nodes and midpoints together
     _, _, integrand = _trace_terms(
         np.concatenate([g["y"], y_q], axis=1), np.concatenate([g["t"], t_q], axis=1),
         ks, r, s0, sites, mas, mbs, swap, law, np.concatenate([g["f"], f_q], axis=1),
         tw=np.concatenate([g["dtdw"] * g["dwdf"], tf_q], axis=1))
-    ig_nodes = integrand[:, :n1]  # dI/dF at the nodes
-    parts = dfi * (integrand[:, n1:].reshape(m, n, -1) @ om)  # (m, N)
-    # cubic Hermite of the integral in u per interval: [I_j, d0, c2, c3]
-    # with d0, d1 the end slopes times dF
-    tab_i = np.empty((4, m, n))
-    np.matmul(parts, _prefix_matrix(n)[:, :-1], out=tab_i[0])  # integral at the left nodes
-    d0 = np.multiply(dfi, ig_nodes[:, :-1], out=tab_i[1])
-    d1 = dfi * ig_nodes[:, 1:]
-    tab_i[2] = 3.0 * parts - 2.0 * d0 - d1
-    tab_i[3] = d0 + d1 - 2.0 * parts
-    return tab_i.reshape(4, m * n).T
+    # dI/du = dF dI/dF at the left and right node of each interval, (m, N)
+    gl = dfi * integrand[:, :n]
+    gr = dfi * integrand[:, 1:n1]
+    # Simpson: the integral over interval j is dF (g_j + 4 g_mid + g_j+1)/6
+    parts = (1.0 / 6.0) * (gl + gr + (4.0 * dfi) * integrand[:, n1:])
+    # decay factor at the nodes, and its cubic Hermite per interval with the
+    # end slopes dE/du = -E dI/du
+    e = np.exp(-(parts @ _prefix_matrix(n)))
+    tab_e = np.empty((4, m, n))
+    tab_e[0] = e[:, :-1]
+    d0 = np.multiply(e[:, :-1], gl, out=tab_e[1])
+    np.negative(d0, out=d0)
+    d1 = -(e[:, 1:] * gr)
+    de = e[:, 1:] - e[:, :-1]
+    tab_e[2] = 3.0 * de - 2.0 * d0 - d1
+    tab_e[3] = d0 + d1 - 2.0 * de
+    return tab_e.reshape(4, m * n).T
 
 
 #: Fixed RK4 steps of the assemblage integrator.

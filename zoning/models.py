@@ -771,12 +771,12 @@ class CrystallizationModel(_ModelBase):
         melt_mass = 100.0 * one_f
         m_ret = (r * s0 / law.sites) * path["t"] * (
             law.molar_mass_b + (law.molar_mass_a - law.molar_mass_b) * x_pt)
-        for tr, integral in zip(self.traces, path["trace_integrals"]):
+        for tr, decay in zip(self.traces, path["trace_decay"]):
             d_pt = tr.partition(mgo_pt if olivine else None, x_pt, temp)
             if np.ndim(d_pt) == 0:
                 d_pt = np.full(one_f.shape, d_pt)
-            # ln(C_L/C_0) = -ln(W/W_0) - integral, W_0 = 100
-            melt_c = p[tr.parameter] * (100.0 / (melt_mass + d_pt * m_ret)) * np.exp(-integral)
+            # C_L/C_0 = (W_0/W) exp(-integral), W_0 = 100 (see trace_log_ratio)
+            melt_c = (100.0 * p[tr.parameter]) * decay / (melt_mass + d_pt * m_ret)
             tr.check_range(mgo_pt, x_pt, stacklevel=stacklevel + 1)
             out[tr.melt_key] = melt_c
             out[tr.crystal_key] = d_pt * melt_c * tr.crystal_factor
