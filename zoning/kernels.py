@@ -102,7 +102,7 @@ __all__ = [
 K_EPS = 1e-9
 
 #: Default number of grid intervals.
-N_INTERVALS = 20
+N_INTERVALS = 16
 
 
 def retention_closed_form(f, d, r):
@@ -377,42 +377,65 @@ def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS
         kk, ok, rr, iok = np.repeat(np.concatenate([k, one_k, r, 1.0 / one_k], axis=1)[:, :, None],
                                     n1, axis=2).transpose(1, 0, 2)
         # t_w = Q + P t with Q = A, P = A B, A = den/((1-K)(1-y)) = s/(1-K) - 1,
-        # s = 1/(1-y), B = r K/den^2 - 1, den = K + (1-K) y; y-derivatives
-        # A_y = s^2/(1-K), A_yy = 2 s A_y, B_y = -2 r K (1-K)/den^3,
-        # B_yy = -3 (1-K) B_y/den; d/dw = -y d/dy
+        # s = 1/(1-y), B = r K/den^2 - 1, den = K + (1-K) y. y-derivatives:
+        # A_y = s^2/(1-K), A_yy = 2 s A_y, A_yyy = 3 s A_yy,
+        # B_y = -2 r K (1-K)/den^3, B_yy = -3 (1-K) B_y/den, B_yyy = -4 (1-K) B_yy/den.
+        # w-derivatives (d/dw = -y d/dy) of any phi(y):
+        # phi_w = -y phi_y, phi_ww = y phi_y + y^2 phi_yy,
+        # phi_www = -y phi_y - 3 y^2 phi_yy - y^3 phi_yyy.
         s_ = 1.0 / (1.0 - y)
         iden = 1.0 / (kk + ok * y)
         a_fac = s_ * iok - 1.0
         a_y = s_ * s_ * iok
         a_yy = 2.0 * s_ * a_y
+        a_yyy = 3.0 * s_ * a_yy
         fp = kk * iden * iden
         b_fac = rr * fp - 1.0
         okd = ok * iden
         b_y = -2.0 * rr * fp * okd
         b_yy = -3.0 * okd * b_y
+        b_yyy = -4.0 * okd * b_yy
         p_ = a_fac * b_fac
         p_y = a_y * b_fac + a_fac * b_y
         p_yy = a_yy * b_fac + 2.0 * a_y * b_y + a_fac * b_yy
+        p_yyy = a_yyy * b_fac + 3.0 * (a_yy * b_y + a_y * b_yy) + a_fac * b_yyy
+        y2 = y * y
+        y3 = y2 * y
         q1 = -y * a_y
-        q2 = y * (a_y + y * a_yy)
+        q2 = y * a_y + y2 * a_yy
+        q3 = -(y * a_y + 3.0 * y2 * a_yy + y3 * a_yyy)
         p1 = -y * p_y
-        p2 = y * (p_y + y * p_yy)
-        # k-th w-derivative of t at each node: a_k + b_k t
-        a2 = q1 + p_ * a_fac
-        b2 = p1 + p_ * p_
-        a3 = q2 + 2.0 * p1 * a_fac + p_ * a2
-        b3 = p2 + 2.0 * p1 * p_ + p_ * b2
-        # two-point Hermite-Obreschkoff formula of order 6 on each interval,
-        # t1 - h/2 t1_w + h^2/10 t1_ww - h^3/120 t1_www
-        #   = t0 + h/2 t0_w + h^2/10 t0_ww + h^3/120 t0_www,
-        # linear in t1: t1 = alpha t0 + beta
-        h1 = 0.5 * hi
-        h2 = 0.1 * hi * hi
-        h3 = (hi * h2) * (1.0 / 12.0)
-        r1 = 1.0 - h1 * p_[:, 1:] + h2 * b2[:, 1:] - h3 * b3[:, 1:]
-        alpha = (1.0 + h1 * p_[:, :-1] + h2 * b2[:, :-1] + h3 * b3[:, :-1]) / r1
-        beta = (h1 * (a_fac[:, :-1] + a_fac[:, 1:]) + h2 * (a2[:, :-1] - a2[:, 1:])
-                + h3 * (a3[:, :-1] + a3[:, 1:])) / r1
+        p2 = y * p_y + y2 * p_yy
+        p3 = -(y * p_y + 3.0 * y2 * p_yy + y3 * p_yyy)
+        # node quantities stacked so that the per-interval combinations below
+        # are a few operations on 3-D arrays: rows b_1..b_4, a_1..a_4
+        ba = np.empty((8, m, n1))
+        ba[0] = p_
+        ba[4] = a_fac
+        pp = p_ * p_
+        np.add(q1, p_ * a_fac, out=ba[5])  # a_2
+        np.add(p1, pp, out=ba[1])  # b_2
+        np.add(q2 + 2.0 * p1 * a_fac, p_ * ba[5], out=ba[6])  # a_3
+        np.add(p2 + 3.0 * p_ * p1, pp * p_, out=ba[2])  # b_3
+        np.add(q3 + 3.0 * (p2 * a_fac + p1 * q1) + p_ * q2,
+               (5.0 * p1 + pp) * (p_ * a_fac) + pp * q1, out=ba[7])  # a_4
+        np.add(p3 + 4.0 * p_ * p2 + 3.0 * p1 * p1, (6.0 * p1 + pp) * pp, out=ba[3])  # b_4
+        # two-point Hermite-Obreschkoff formula of order 8 on each interval,
+        # sum_k c_k (-h)^k t1^(k) = sum_k c_k h^k t0^(k) with c_k = 1, 1/2,
+        # 3/28, 1/84, 1/1680 (the (4, 4) Pade coefficients of exp), linear in
+        # t1: t1 = alpha t0 + beta
+        hk = np.empty((4, m, n))
+        hk[0] = hi
+        np.multiply(hi, hi, out=hk[1])
+        np.multiply(hk[1], hi, out=hk[2])
+        np.multiply(hk[1], hk[1], out=hk[3])
+        hk *= _OBRESCHKOFF
+        hs = hk * _ALTERNATING
+        left = ba[:, :, :-1]
+        right = ba[:, :, 1:]
+        r1 = 1.0 + (hs * right[:4]).sum(axis=0)
+        alpha = (1.0 + (hk * left[:4]).sum(axis=0)) / r1
+        beta = (hk * left[4:] - hs * right[4:]).sum(axis=0) / r1
         # t_j = C_j sum_{i<j} beta_i / C_{i+1}, C_j = prod_{i<j} alpha_i
         cum = np.empty_like(w)
         cum[:, 0] = 1.0
@@ -424,23 +447,27 @@ def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS
             for j in range(n):
                 t[:, j + 1] = alpha[:, j] * t[:, j] + beta[:, j]
         tw = a_fac + p_ * t
-        tww = a2 + b2 * t
+        tww = ba[5] + ba[1] * t
         cm = c * (ma - mb)
         cb = c * mb
         cmy = cm * y
         one_t = 1.0 - t
         f = cb * t + cm * y0 - cmy * one_t
-        dwdf = 1.0 / (cb * tw + cmy * (tw + one_t))
-        # F_ww = c [M_B t_ww + (M_A - M_B) y (t_ww - 2 t_w - 1 + t)];
-        # w_FF = -F_ww w_F^3 (the sign is carried by _QUINTIC_NEG)
-        wff = (cb * tww + cmy * (tww - 2.0 * tw - one_t)) * (dwdf * dwdf * dwdf)
+        # dw/dF and -d2w/dF2 (the sign is carried by _QUINTIC_NEG), stacked:
+        # F_ww = c [M_B t_ww + (M_A - M_B) y (t_ww - 2 t_w - 1 + t)], w_FF = -F_ww w_F^3
+        ends = np.empty((2, m, n1))
+        dwdf = np.divide(1.0, cb * tw + cmy * (tw + one_t), out=ends[0])
+        np.multiply(cb * tww + cmy * (tww - 2.0 * tw - one_t), dwdf * dwdf * dwdf, out=ends[1])
+        # per interval [w_j, dw, dF w_F, dF^2 w_FF (left), dF w_F, dF^2 w_FF (right)]
         dfi = f[:, 1:] - f[:, :-1]
-        dfi2 = dfi * dfi
+        scale = np.empty((2, m, n))
+        scale[0] = dfi
+        np.multiply(dfi, dfi, out=scale[1])
+        raw = np.empty((6, m, n))
         raw[0] = w[:, :-1]
-        np.multiply(dwdf[:, :-1], dfi, out=raw[2])
-        np.multiply(dwdf[:, 1:], dfi, out=raw[3])
-        np.multiply(wff[:, :-1], dfi2, out=raw[4])
-        np.multiply(wff[:, 1:], dfi2, out=raw[5])
+        raw[1] = hi
+        np.multiply(ends[:, :, :-1], scale, out=raw[2:4])
+        np.multiply(ends[:, :, 1:], scale, out=raw[4:6])
         # one row per interval (gathered to the points by repeating rows)
         tab = np.empty((m * n, 8))
         tab[:, 0] = f[:, :-1].ravel()
@@ -449,8 +476,13 @@ def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS
     return {"w": w, "y": y, "t": t, "f": f, "dtdw": tw, "dwdf": dwdf, "df": dfi, "tab": tab}
 
 
-#: :data:`_QUINTIC` for end curvatures given with the opposite sign.
-_QUINTIC_NEG = _QUINTIC * np.array([1.0, 1.0, 1.0, 1.0, -1.0, -1.0])[:, None]
+#: :data:`_QUINTIC` with its rows in the order [v0, v1 - v0, d0, a0, d1, a1]
+#: and the end curvatures given with the opposite sign.
+_QUINTIC_NEG = _QUINTIC[[0, 1, 2, 4, 3, 5]] * np.array([1.0, 1.0, 1.0, -1.0, 1.0, -1.0])[:, None]
+#: Coefficients c_1..c_4 of the order-8 Hermite-Obreschkoff formula and the
+#: signs (-1)^k of its right-hand end, shape (4, 1, 1).
+_OBRESCHKOFF = np.array([1.0 / 2.0, 3.0 / 28.0, 1.0 / 84.0, 1.0 / 1680.0])[:, None, None]
+_ALTERNATING = np.array([-1.0, 1.0, -1.0, 1.0])[:, None, None]
 
 
 def _horner(c, u):
