@@ -374,39 +374,34 @@ def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS
         y = np.exp(np.log(y0) - w)
         # per-row constants spread over the nodes once (same-shape operations below)
         one_k = 1.0 - k
-        kk, ok, rr, iok = np.repeat(np.concatenate([k, one_k, r, 1.0 / one_k], axis=1)[:, :, None],
-                                    n1, axis=2).transpose(1, 0, 2)
-        # t_w = Q + P t with Q = A, P = A B, A = den/((1-K)(1-y)) = s/(1-K) - 1,
-        # s = 1/(1-y), B = r K/den^2 - 1, den = K + (1-K) y. y-derivatives:
-        # A_y = s^2/(1-K), A_yy = 2 s A_y, A_yyy = 3 s A_yy,
-        # B_y = -2 r K (1-K)/den^3, B_yy = -3 (1-K) B_y/den, B_yyy = -4 (1-K) B_yy/den.
-        # w-derivatives (d/dw = -y d/dy) of any phi(y):
-        # phi_w = -y phi_y, phi_ww = y phi_y + y^2 phi_yy,
-        # phi_www = -y phi_y - 3 y^2 phi_yy - y^3 phi_yyy.
-        s_ = 1.0 / (1.0 - y)
-        iden = 1.0 / (kk + ok * y)
-        a_fac = s_ * iok - 1.0
-        a_y = s_ * s_ * iok
-        a_yy = 2.0 * s_ * a_y
-        a_yyy = 3.0 * s_ * a_yy
-        fp = kk * iden * iden
-        b_fac = rr * fp - 1.0
-        okd = ok * iden
-        b_y = -2.0 * rr * fp * okd
-        b_yy = -3.0 * okd * b_y
-        b_yyy = -4.0 * okd * b_yy
-        p_ = a_fac * b_fac
-        p_y = a_y * b_fac + a_fac * b_y
-        p_yy = a_yy * b_fac + 2.0 * a_y * b_y + a_fac * b_yy
-        p_yyy = a_yyy * b_fac + 3.0 * (a_yy * b_y + a_y * b_yy) + a_fac * b_yyy
-        y2 = y * y
-        y3 = y2 * y
-        q1 = -y * a_y
-        q2 = y * a_y + y2 * a_yy
-        q3 = -(y * a_y + 3.0 * y2 * a_yy + y3 * a_yyy)
-        p1 = -y * p_y
-        p2 = y * p_y + y2 * p_yy
-        p3 = -(y * p_y + 3.0 * y2 * p_yy + y3 * p_yyy)
+        q = (1.0 - r * k) / one_k
+        kk, ok, iok, qq, rk = np.repeat(
+            np.concatenate([k, one_k, 1.0 / one_k, q, r * k], axis=1).T[:, :, None], n1, axis=2)
+        # t_w = Q + P t with (s = 1/(1-y), v = 1/den, den = K + (1-K) y,
+        # q = (1 - rK)/(1-K))
+        #   Q = den/((1-K)(1-y)) = s/(1-K) - 1,
+        #   P = Q (r K/den^2 - 1) = 1 - q s + r K v
+        # (partial fractions), and since dy/dw = -y the w-derivatives of s and
+        # v are polynomials: s' = s - s^2, v' = v - K v^2, so
+        #   s'' = s' (1 - 2 s), s''' = s'' (1 - 2 s) - 2 s'^2, likewise for v with K v.
+        s0_ = 1.0 / (1.0 - y)
+        v0_ = 1.0 / (kk + ok * y)
+        s1 = s0_ - s0_ * s0_
+        v1 = v0_ - kk * v0_ * v0_
+        one_2s = 1.0 - 2.0 * s0_
+        one_2v = 1.0 - 2.0 * kk * v0_
+        s2 = s1 * one_2s
+        v2 = v1 * one_2v
+        s3 = s2 * one_2s - 2.0 * s1 * s1
+        v3 = v2 * one_2v - 2.0 * kk * v1 * v1
+        a_fac = s0_ * iok - 1.0  # Q
+        p_ = 1.0 - qq * s0_ + rk * v0_  # P
+        q1 = s1 * iok
+        q2 = s2 * iok
+        q3 = s3 * iok
+        p1 = rk * v1 - qq * s1
+        p2 = rk * v2 - qq * s2
+        p3 = rk * v3 - qq * s3
         # node quantities stacked so that the per-interval combinations below
         # are a few operations on 3-D arrays: rows b_1..b_4, a_1..a_4
         ba = np.empty((8, m, n1))
@@ -486,12 +481,12 @@ _ALTERNATING = np.array([-1.0, 1.0, -1.0, 1.0])[:, None, None]
 
 
 def _horner(c, u):
-    """Evaluate the polynomial with coefficients ``c[..., 0], c[..., 1], ...`` (last axis) at u."""
-    out = c[..., -1] * u
-    for i in range(c.shape[-1] - 2, 0, -1):
-        out += c[..., i]
+    """Evaluate the polynomial with coefficients ``c[0], c[1], ...`` (first axis) at u."""
+    out = c[-1] * u
+    for i in range(c.shape[0] - 2, 0, -1):
+        out += c[i]
         out *= u
-    out += c[..., 0]
+    out += c[0]
     return out
 
 
@@ -538,11 +533,14 @@ def _interval_index(f, key):
 def _gather(table, where, shape):
     """Rows of ``table`` (m N, c) at the intervals ``where`` of :func:`_interval_index`.
 
-    Returns an array of shape ``shape + (c,)``.
+    Returns a C-contiguous array of shape ``(c,) + shape`` (one contiguous
+    array per column, for fast arithmetic).
     """
     if where.ndim == 1:
-        return np.repeat(table, where, axis=0).reshape(shape + (table.shape[1],))
-    return np.take(table, where, axis=0)
+        rows = np.repeat(table, where, axis=0)
+    else:
+        rows = np.take(table, where.ravel(), axis=0)
+    return np.ascontiguousarray(rows.T).reshape((table.shape[1],) + shape)
 
 
 def _locate(f, grid):
@@ -563,8 +561,8 @@ def _invert_w(f, grid, where, extra=None):
     """
     table = grid["tab"] if extra is None else np.concatenate([grid["tab"], extra], axis=1)
     g = _gather(table, where, f.shape)
-    u = (f - g[..., 0]) / g[..., 1]
-    return _horner(g[..., 2:8], u), u, g[..., 8:]
+    u = (f - g[0]) / g[1]
+    return _horner(g[2:8], u), u, g[8:]
 
 
 def exchange_invert(f, grid, y0, s0, sites, ma, mb):
@@ -682,7 +680,7 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
         t = _t_of_f(f, ys, y0s, c, mas, mbs)
     path.update(ys=ys, t=t, w=w_pt, where=where, u=u,
                 y=ys if swap is None else np.where(swap, 1.0 - ys, ys),
-                trace_decay=[_horner(g_extra[..., 4 * i:4 * i + 4], u)
+                trace_decay=[_horner(g_extra[4 * i:4 * i + 4], u)
                              for i in range(len(extra))])
     return path
 
