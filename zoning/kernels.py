@@ -101,8 +101,16 @@ __all__ = [
 #: this the melt ratio moves by less than ~1e-9 over the whole path.
 K_EPS = 1e-9
 
-#: Default number of grid intervals.
+#: Default number of grid intervals and Gauss-Legendre nodes per interval.
 N_INTERVALS = 16
+N_GAUSS = 3
+
+
+@lru_cache(maxsize=8)
+def _gauss_back(q: int) -> tuple[np.ndarray, np.ndarray]:
+    """Gauss-Legendre nodes on [0, 1] measured back from the right end, shape (q, 1, 1), and weights."""
+    x, wt = np.polynomial.legendre.leggauss(q)
+    return (0.5 * (1.0 - x))[:, None, None], 0.5 * wt
 
 
 def retention_closed_form(f, d, r):
@@ -354,7 +362,7 @@ def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS
     dict
         ``w``, ``y``, ``t``, ``f``, ``dtdw`` (dt/dw), ``dwdf`` (dw/dF) at the
         nodes, shape (m, N+1); ``df`` (m, N), the F width of each interval;
-        ``tab`` (m N, 8), per interval (row ``i N + j``) its left F, its
+        ``tab`` (8, m N), per interval (column ``i N + j``) its left F, its
         width dF and the quintic Hermite coefficients of w(u),
         u = (F - F_j)/dF.
     """
@@ -372,77 +380,47 @@ def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS
         raw = np.empty((6, m, n))
         hi = np.subtract(w[:, 1:], w[:, :-1], out=raw[1])  # interval widths in w
         y = np.exp(np.log(y0) - w)
-        # per-row constants spread over the nodes once (same-shape operations below)
         one_k = 1.0 - k
+        p = (r - k) / one_k
         q = (1.0 - r * k) / one_k
-        kk, ok, iok, qq, rk = np.repeat(
-            np.concatenate([k, one_k, 1.0 / one_k, q, r * k], axis=1).T[:, :, None], n1, axis=2)
-        # t_w = Q + P t with (s = 1/(1-y), v = 1/den, den = K + (1-K) y,
-        # q = (1 - rK)/(1-K))
-        #   Q = den/((1-K)(1-y)) = s/(1-K) - 1,
-        #   P = Q (r K/den^2 - 1) = 1 - q s + r K v
-        # (partial fractions), and since dy/dw = -y the w-derivatives of s and
-        # v are polynomials: s' = s - s^2, v' = v - K v^2, so
-        #   s'' = s' (1 - 2 s), s''' = s'' (1 - 2 s) - 2 s'^2, likewise for v with K v.
-        s0_ = 1.0 / (1.0 - y)
-        v0_ = 1.0 / (kk + ok * y)
-        s1 = s0_ - s0_ * s0_
-        v1 = v0_ - kk * v0_ * v0_
-        one_2s = 1.0 - 2.0 * s0_
-        one_2v = 1.0 - 2.0 * kk * v0_
-        s2 = s1 * one_2s
-        v2 = v1 * one_2v
-        s3 = s2 * one_2s - 2.0 * s1 * s1
-        v3 = v2 * one_2v - 2.0 * kk * v1 * v1
-        a_fac = s0_ * iok - 1.0  # Q
-        p_ = 1.0 - qq * s0_ + rk * v0_  # P
-        q1 = s1 * iok
-        q2 = s2 * iok
-        q3 = s3 * iok
-        p1 = rk * v1 - qq * s1
-        p2 = rk * v2 - qq * s2
-        p3 = rk * v3 - qq * s3
-        # node quantities stacked so that the per-interval combinations below
-        # are a few operations on 3-D arrays: rows b_1..b_4, a_1..a_4
-        ba = np.empty((8, m, n1))
-        ba[0] = p_
-        ba[4] = a_fac
-        pp = p_ * p_
-        np.add(q1, p_ * a_fac, out=ba[5])  # a_2
-        np.add(p1, pp, out=ba[1])  # b_2
-        np.add(q2 + 2.0 * p1 * a_fac, p_ * ba[5], out=ba[6])  # a_3
-        np.add(p2 + 3.0 * p_ * p1, pp * p_, out=ba[2])  # b_3
-        np.add(q3 + 3.0 * (p2 * a_fac + p1 * q1) + p_ * q2,
-               (5.0 * p1 + pp) * (p_ * a_fac) + pp * q1, out=ba[7])  # a_4
-        np.add(p3 + 4.0 * p_ * p2 + 3.0 * p1 * p1, (6.0 * p1 + pp) * pp, out=ba[3])  # b_4
-        # two-point Hermite-Obreschkoff formula of order 8 on each interval,
-        # sum_k c_k (-h)^k t1^(k) = sum_k c_k h^k t0^(k) with c_k = 1, 1/2,
-        # 3/28, 1/84, 1/1680 (the (4, 4) Pade coefficients of exp), linear in
-        # t1: t1 = alpha t0 + beta
-        hk = np.empty((4, m, n))
-        hk[0] = hi
-        np.multiply(hi, hi, out=hk[1])
-        np.multiply(hk[1], hi, out=hk[2])
-        np.multiply(hk[1], hk[1], out=hk[3])
-        hk *= _OBRESCHKOFF
-        hs = hk * _ALTERNATING
-        left = ba[:, :, :-1]
-        right = ba[:, :, 1:]
-        r1 = 1.0 + (hs * right[:4]).sum(axis=0)
-        alpha = (1.0 + (hk * left[:4]).sum(axis=0)) / r1
-        beta = (hk * left[4:] - hs * right[4:]).sum(axis=0) / r1
-        # t_j = C_j sum_{i<j} beta_i / C_{i+1}, C_j = prod_{i<j} alpha_i
-        cum = np.empty_like(w)
-        cum[:, 0] = 1.0
-        np.cumprod(alpha, axis=1, out=cum[:, 1:])
-        t = ((beta / cum[:, 1:]) @ _prefix_matrix(n)) * cum
+        one_y = 1.0 - y
+        den = k + one_k * y
+        # ln mu at nodes (relative to an arbitrary constant)
+        lmu = q * np.log(one_y) - p * w - r * np.log(den)
+        # Gauss-Legendre points inside each interval, measured back from its
+        # right node: w_g = w_{i+1} - (1 - xi) dw; with eta = y_{i+1} e^(1-xi)dw,
+        # (1 - eta)/(1 - y_{i+1}) = 1 - a E and den(eta)/den(y_{i+1}) = 1 + b E,
+        # E = e^((1-xi)dw) - 1; shapes (G, m, N)
+        back, om = _gauss_back(N_GAUSS)
+        em1 = np.expm1(back * hi)
+        y1 = y[:, 1:]
+        one_y1 = one_y[:, 1:]
+        den1 = den[:, 1:]
+        # mu(eta)/mu(y_{i+1}) * den(eta)/(1 - eta); the 1/(1-K) factor is applied below
+        integrand = np.exp(
+            back * (p * hi)
+            + (q - 1.0) * np.log1p((-y1 / one_y1) * em1)
+            + (1.0 - r) * np.log1p((one_k * y1 / den1) * em1)
+        )
+        interval = (hi * den1 / (one_k * one_y1)) * (om @ integrand.reshape(N_GAUSS, -1)).reshape(m, n)
+        # t_j = sum_{i<j} I_i mu_{i+1}/mu_j, the running sum as a product with
+        # a triangular matrix (scaled by the largest mu against overflow)
+        scaled_mu = np.exp(lmu - lmu[:, 1:].max(axis=1, keepdims=True))
+        t = ((interval * scaled_mu[:, 1:]) @ _prefix_matrix(n)) / scaled_mu
         if not np.isfinite(t).all():
-            # Products out of floating-point range: the sequential recurrence.
+            # Very wide range of mu: fall back to the sequential recurrence.
             t = np.zeros_like(w)
             for j in range(n):
-                t[:, j + 1] = alpha[:, j] * t[:, j] + beta[:, j]
-        tw = a_fac + p_ * t
-        tww = ba[5] + ba[1] * t
+                t[:, j + 1] = t[:, j] * np.exp(lmu[:, j] - lmu[:, j + 1]) + interval[:, j]
+        # derivatives from the ODE: t_w = A (1 + t B), A = den/((1-K)(1-y)),
+        # B = r f'(y) - 1, f' = K/den^2; dA/dy = 1/((1-K)(1-y)^2),
+        # dB/dy = -2 r K (1-K)/den^3, dy/dw = -y
+        a_fac = den / (one_k * one_y)
+        fp = k / (den * den)
+        b_fac = r * fp - 1.0
+        g1 = 1.0 + t * b_fac
+        tw = a_fac * g1
+        tww = a_fac * (tw * b_fac + (y / den) * ((2.0 * r * one_k) * fp * t - g1 / one_y))
         cm = c * (ma - mb)
         cb = c * mb
         cmy = cm * y
@@ -463,11 +441,11 @@ def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS
         raw[1] = hi
         np.multiply(ends[:, :, :-1], scale, out=raw[2:4])
         np.multiply(ends[:, :, 1:], scale, out=raw[4:6])
-        # one row per interval (gathered to the points by repeating rows)
-        tab = np.empty((m * n, 8))
-        tab[:, 0] = f[:, :-1].ravel()
-        tab[:, 1] = dfi.ravel()
-        np.matmul(raw.reshape(6, m * n).T, _QUINTIC_NEG, out=tab[:, 2:])
+        # one column per interval (gathered to the points by repeating columns)
+        tab = np.empty((8, m * n))
+        tab[0].reshape(m, n)[...] = f[:, :-1]
+        tab[1].reshape(m, n)[...] = dfi
+        np.matmul(_QUINTIC_NEG.T, raw.reshape(6, m * n), out=tab[2:])
     return {"w": w, "y": y, "t": t, "f": f, "dtdw": tw, "dwdf": dwdf, "df": dfi, "tab": tab}
 
 
@@ -531,16 +509,13 @@ def _interval_index(f, key):
 
 
 def _gather(table, where, shape):
-    """Rows of ``table`` (m N, c) at the intervals ``where`` of :func:`_interval_index`.
+    """Columns of ``table`` (c, m N) at the intervals ``where`` of :func:`_interval_index`.
 
-    Returns a C-contiguous array of shape ``(c,) + shape`` (one contiguous
-    array per column, for fast arithmetic).
+    Returns an array of shape ``(c,) + shape``.
     """
     if where.ndim == 1:
-        rows = np.repeat(table, where, axis=0)
-    else:
-        rows = np.take(table, where.ravel(), axis=0)
-    return np.ascontiguousarray(rows.T).reshape((table.shape[1],) + shape)
+        return np.repeat(table, where, axis=1).reshape((table.shape[0],) + shape)
+    return np.take(table, where, axis=1)
 
 
 def _locate(f, grid):
@@ -554,12 +529,12 @@ def _locate(f, grid):
 def _invert_w(f, grid, where, extra=None):
     """Quintic Hermite inverse interpolation of w(F) on the grid (error O(h^6)).
 
-    Uses the exact dw/dF and d2w/dF2 at the nodes. ``extra`` (m N, c) are
-    further per-interval table columns gathered together with the grid's.
-    Returns w, the local coordinate u in [0, 1] and the gathered extra
-    columns (m, n, c).
+    Uses the exact dw/dF and d2w/dF2 at the nodes. ``extra`` (c, m N) are
+    further per-interval table rows gathered together with the grid's.
+    Returns w, the local coordinate u in [0, 1] and the gathered extra rows
+    (c, m, n).
     """
-    table = grid["tab"] if extra is None else np.concatenate([grid["tab"], extra], axis=1)
+    table = grid["tab"] if extra is None else np.concatenate([grid["tab"], extra])
     g = _gather(table, where, f.shape)
     u = (f - g[0]) / g[1]
     return _horner(g[2:8], u), u, g[8:]
@@ -675,7 +650,7 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
         extra = [_trace_table(path, law, s0, sites, r) for law in trace_laws]
         where = _locate(f, grid)
         w_pt, u, g_extra = _invert_w(f, grid, where,
-                                     np.concatenate(extra, axis=1) if extra else None)
+                                     np.concatenate(extra) if extra else None)
         ys = np.exp(np.log(y0s) - w_pt)
         t = _t_of_f(f, ys, y0s, c, mas, mbs)
     path.update(ys=ys, t=t, w=w_pt, where=where, u=u,
@@ -798,7 +773,7 @@ _MID_POWERS = np.array([[0.5**k for k in range(6)],
 
 
 def _trace_table(path, law, s0, sites, r):
-    r"""Cubic Hermite table (m N, 4) of the trace decay factor per grid interval.
+    r"""Cubic Hermite table (4, m N) of the trace decay factor per grid interval.
 
     The decay factor is :math:`E = \exp(-\int_0 (D/W)\,dm_{iso})`; row
     ``[E_j, d0, c2, c3]`` of interval ``i N + j`` gives it at
@@ -812,9 +787,9 @@ def _trace_table(path, law, s0, sites, r):
     n = n1 - 1
     tab, dfi = g["tab"], g["df"]
     # w and dw/dF at the midpoint of each interval, (m, N)
-    mid = tab[:, 2:] @ _MID_POWERS
-    w_q = mid[:, 0].reshape(m, n)
-    w_f = (mid[:, 1] / tab[:, 1]).reshape(m, n)
+    mid = _MID_POWERS.T @ tab[2:]
+    w_q = mid[0].reshape(m, n)
+    w_f = (mid[1] / tab[1]).reshape(m, n)
     f_q = g["f"][:, :-1] + 0.5 * dfi
     ic = (100.0 * sites) / s0
     y_q = np.exp(np.log(y0s) - w_q)
@@ -846,7 +821,7 @@ def _trace_table(path, law, s0, sites, r):
     de = e[:, 1:] - e[:, :-1]
     tab_e[2] = 3.0 * de - 2.0 * d0 - d1
     tab_e[3] = d0 + d1 - 2.0 * de
-    return tab_e.reshape(4, m * n).T
+    return tab_e.reshape(4, m * n)
 
 
 #: Fixed RK4 steps of the assemblage integrator.
