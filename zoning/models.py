@@ -283,15 +283,19 @@ class _ModelBase:
         # the zone radius depends on the parameter set only through the core
         # offset and the exponent; when they are shared, map the distances once
         exponent, offset = p["growth_exponent"], p["core_offset_um"]
-        if (exponent == exponent[0, 0]).all():
-            exponent = exponent[:1]
-        if not offset.any():
-            offset = 0.0
         f_core = p["f_core"] if p["f_core"].any() else 0.0
-        fm = _geometry.fraction_from_distance(
-            xs[None, :], radius, f_core, p["f_rim"], exponent, offset,
-            self.section_offset_um,
-        )
+        if (exponent == exponent[0, 0]).all() and not offset.any():
+            # (x/R)^n shared by every parameter set: cached between calls
+            zone = self._zone_power(xs, radius, float(exponent[0, 0]))
+            if np.ndim(f_core):
+                fm = f_core + (p["f_rim"] - f_core) * zone
+            else:
+                fm = p["f_rim"] * zone
+        else:
+            fm = _geometry.fraction_from_distance(
+                xs[None, :], radius, f_core, p["f_rim"], exponent, offset,
+                self.section_offset_um,
+            )
         if self.beam_um > 0:
             centre = _geometry.fraction_from_distance(
                 x[None, :], radius, p["f_core"], p["f_rim"], p["growth_exponent"],
@@ -312,6 +316,18 @@ class _ModelBase:
         dist[...] = x
         out["distance_um"] = dist
         return _squeeze(out, scalar)
+
+    def _zone_power(self, x, radius, exponent):
+        """Relative zone radius to the power n, shape (1, n); the last result is cached."""
+        key = (x.tobytes(), radius, exponent, self.section_offset_um)
+        cached = getattr(self, "_zone_cache", None)
+        if cached is None or cached[0] != key:
+            zone = _geometry.fraction_from_distance(x[None, :], radius, 0.0, 1.0, exponent, 0.0,
+                                                    self.section_offset_um)
+            zone.flags.writeable = False
+            cached = (key, zone)
+            self._zone_cache = cached
+        return cached[1]
 
     def _evaluate(self, f, p, *, strict, stacklevel):  # pragma: no cover - abstract
         raise NotImplementedError
