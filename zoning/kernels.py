@@ -108,7 +108,7 @@ N_GAUSS = 3
 
 @lru_cache(maxsize=8)
 def _gauss_back(q: int) -> tuple[np.ndarray, np.ndarray]:
-    """Gauss-Legendre nodes on [0, 1] measured back from the right end, shape (q, 1, 1), and weights."""
+    """Gauss-Legendre nodes on [0, 1] counted back from 1, shape (q, 1, 1), and weights."""
     x, wt = np.polynomial.legendre.leggauss(q)
     return (0.5 * (1.0 - x))[:, None, None], 0.5 * wt
 
@@ -370,82 +370,88 @@ def exchange_grid(f_end, y0, k, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS
     if w_nodes is None:
         if w_end is None:
             w_end = _w_lower_bound(f_end, y0, k, c, ma, mb)
-        w = w_end * _fractions(n_intervals)  # (m, N+1)
-    else:
-        w = w_nodes
+        w_nodes = w_end * _fractions(n_intervals)  # (m, N+1)
+    with np.errstate(all="ignore"):
+        return _grid(w_nodes, y0, k, r, c, ma, mb)
+
+
+def _grid(w, y0, k, r, c, ma, mb):
+    """:func:`exchange_grid` on the nodes ``w`` (m, N+1).
+
+    Call inside ``np.errstate(all="ignore")``; ``c = S_0/(100 s)``.
+    """
     m, n1 = w.shape
     n = n1 - 1
-    with np.errstate(all="ignore"):
-        # per interval [w_j, dw, dF w_F, dF w_F (right), dF^2 w_FF, dF^2 w_FF (right)]
-        raw = np.empty((6, m, n))
-        hi = np.subtract(w[:, 1:], w[:, :-1], out=raw[1])  # interval widths in w
-        y = np.exp(np.log(y0) - w)
-        one_k = 1.0 - k
-        p = (r - k) / one_k
-        q = (1.0 - r * k) / one_k
-        one_y = 1.0 - y
-        den = k + one_k * y
-        # ln mu at nodes (relative to an arbitrary constant)
-        lmu = q * np.log(one_y) - p * w - r * np.log(den)
-        # Gauss-Legendre points inside each interval, measured back from its
-        # right node: w_g = w_{i+1} - (1 - xi) dw; with eta = y_{i+1} e^(1-xi)dw,
-        # (1 - eta)/(1 - y_{i+1}) = 1 - a E and den(eta)/den(y_{i+1}) = 1 + b E,
-        # E = e^((1-xi)dw) - 1; shapes (G, m, N)
-        back, om = _gauss_back(N_GAUSS)
-        em1 = np.expm1(back * hi)
-        y1 = y[:, 1:]
-        one_y1 = one_y[:, 1:]
-        den1 = den[:, 1:]
-        # mu(eta)/mu(y_{i+1}) * den(eta)/(1 - eta); the 1/(1-K) factor is applied below
-        integrand = np.exp(
-            back * (p * hi)
-            + (q - 1.0) * np.log1p((-y1 / one_y1) * em1)
-            + (1.0 - r) * np.log1p((one_k * y1 / den1) * em1)
-        )
-        interval = (hi * den1 / (one_k * one_y1)) * (om @ integrand.reshape(N_GAUSS, -1)).reshape(m, n)
-        # t_j = sum_{i<j} I_i mu_{i+1}/mu_j, the running sum as a product with
-        # a triangular matrix (scaled by the largest mu against overflow)
-        scaled_mu = np.exp(lmu - lmu[:, 1:].max(axis=1, keepdims=True))
-        t = ((interval * scaled_mu[:, 1:]) @ _prefix_matrix(n)) / scaled_mu
-        if not np.isfinite(t).all():
-            # Very wide range of mu: fall back to the sequential recurrence.
-            t = np.zeros_like(w)
-            for j in range(n):
-                t[:, j + 1] = t[:, j] * np.exp(lmu[:, j] - lmu[:, j + 1]) + interval[:, j]
-        # derivatives from the ODE: t_w = A (1 + t B), A = den/((1-K)(1-y)),
-        # B = r f'(y) - 1, f' = K/den^2; dA/dy = 1/((1-K)(1-y)^2),
-        # dB/dy = -2 r K (1-K)/den^3, dy/dw = -y
-        a_fac = den / (one_k * one_y)
-        fp = k / (den * den)
-        b_fac = r * fp - 1.0
-        g1 = 1.0 + t * b_fac
-        tw = a_fac * g1
-        tww = a_fac * (tw * b_fac + (y / den) * ((2.0 * r * one_k) * fp * t - g1 / one_y))
-        cm = c * (ma - mb)
-        cb = c * mb
-        cmy = cm * y
-        one_t = 1.0 - t
-        f = cb * t + cm * y0 - cmy * one_t
-        # dw/dF and -d2w/dF2 (the sign is carried by _QUINTIC_NEG), stacked:
-        # F_ww = c [M_B t_ww + (M_A - M_B) y (t_ww - 2 t_w - 1 + t)], w_FF = -F_ww w_F^3
-        ends = np.empty((2, m, n1))
-        dwdf = np.divide(1.0, cb * tw + cmy * (tw + one_t), out=ends[0])
-        np.multiply(cb * tww + cmy * (tww - 2.0 * tw - one_t), dwdf * dwdf * dwdf, out=ends[1])
-        # per interval [w_j, dw, dF w_F, dF^2 w_FF (left), dF w_F, dF^2 w_FF (right)]
-        dfi = f[:, 1:] - f[:, :-1]
-        scale = np.empty((2, m, n))
-        scale[0] = dfi
-        np.multiply(dfi, dfi, out=scale[1])
-        raw = np.empty((6, m, n))
-        raw[0] = w[:, :-1]
-        raw[1] = hi
-        np.multiply(ends[:, :, :-1], scale, out=raw[2:4])
-        np.multiply(ends[:, :, 1:], scale, out=raw[4:6])
-        # one column per interval (gathered to the points by repeating columns)
-        tab = np.empty((8, m * n))
-        tab[0].reshape(m, n)[...] = f[:, :-1]
-        tab[1].reshape(m, n)[...] = dfi
-        np.matmul(_QUINTIC_NEG.T, raw.reshape(6, m * n), out=tab[2:])
+    # per interval [w_j, dw, dF w_F, dF w_F (right), dF^2 w_FF, dF^2 w_FF (right)]
+    raw = np.empty((6, m, n))
+    hi = np.subtract(w[:, 1:], w[:, :-1], out=raw[1])  # interval widths in w
+    y = np.exp(np.log(y0) - w)
+    one_k = 1.0 - k
+    p = (r - k) / one_k
+    q = (1.0 - r * k) / one_k
+    one_y = 1.0 - y
+    den = k + one_k * y
+    # ln mu at nodes (relative to an arbitrary constant)
+    lmu = q * np.log(one_y) - p * w - r * np.log(den)
+    # Gauss-Legendre points inside each interval, measured back from its
+    # right node: w_g = w_{i+1} - (1 - xi) dw; with eta = y_{i+1} e^(1-xi)dw,
+    # (1 - eta)/(1 - y_{i+1}) = 1 - a E and den(eta)/den(y_{i+1}) = 1 + b E,
+    # E = e^((1-xi)dw) - 1; shapes (G, m, N)
+    back, om = _gauss_back(N_GAUSS)
+    em1 = np.expm1(back * hi)
+    y1 = y[:, 1:]
+    one_y1 = one_y[:, 1:]
+    den1 = den[:, 1:]
+    # mu(eta)/mu(y_{i+1}) * den(eta)/(1 - eta); the 1/(1-K) factor is applied below
+    integrand = np.exp(
+        back * (p * hi)
+        + (q - 1.0) * np.log1p((-y1 / one_y1) * em1)
+        + (1.0 - r) * np.log1p((one_k * y1 / den1) * em1)
+    )
+    interval = (hi * den1 / (one_k * one_y1)) * (om @ integrand.reshape(N_GAUSS, -1)).reshape(m, n)
+    # t_j = sum_{i<j} I_i mu_{i+1}/mu_j, the running sum as a product with
+    # a triangular matrix (scaled by the largest mu against overflow)
+    scaled_mu = np.exp(lmu - lmu[:, 1:].max(axis=1, keepdims=True))
+    t = ((interval * scaled_mu[:, 1:]) @ _prefix_matrix(n)) / scaled_mu
+    if not np.isfinite(t).all():
+        # Very wide range of mu: fall back to the sequential recurrence.
+        t = np.zeros_like(w)
+        for j in range(n):
+            t[:, j + 1] = t[:, j] * np.exp(lmu[:, j] - lmu[:, j + 1]) + interval[:, j]
+    # derivatives from the ODE: t_w = A (1 + t B), A = den/((1-K)(1-y)),
+    # B = r f'(y) - 1, f' = K/den^2; dA/dy = 1/((1-K)(1-y)^2),
+    # dB/dy = -2 r K (1-K)/den^3, dy/dw = -y
+    a_fac = den / (one_k * one_y)
+    fp = k / (den * den)
+    b_fac = r * fp - 1.0
+    g1 = 1.0 + t * b_fac
+    tw = a_fac * g1
+    tww = a_fac * (tw * b_fac + (y / den) * ((2.0 * r * one_k) * fp * t - g1 / one_y))
+    cm = c * (ma - mb)
+    cb = c * mb
+    cmy = cm * y
+    one_t = 1.0 - t
+    f = cb * t + cm * y0 - cmy * one_t
+    # dw/dF and -d2w/dF2 (the sign is carried by _QUINTIC_NEG), stacked:
+    # F_ww = c [M_B t_ww + (M_A - M_B) y (t_ww - 2 t_w - 1 + t)], w_FF = -F_ww w_F^3
+    ends = np.empty((2, m, n1))
+    dwdf = np.divide(1.0, cb * tw + cmy * (tw + one_t), out=ends[0])
+    np.multiply(cb * tww + cmy * (tww - 2.0 * tw - one_t), dwdf * dwdf * dwdf, out=ends[1])
+    # per interval [w_j, dw, dF w_F, dF^2 w_FF (left), dF w_F, dF^2 w_FF (right)]
+    dfi = f[:, 1:] - f[:, :-1]
+    scale = np.empty((2, m, n))
+    scale[0] = dfi
+    np.multiply(dfi, dfi, out=scale[1])
+    raw = np.empty((6, m, n))
+    raw[0] = w[:, :-1]
+    raw[1] = hi
+    np.multiply(ends[:, :, :-1], scale, out=raw[2:4])
+    np.multiply(ends[:, :, 1:], scale, out=raw[4:6])
+    # one column per interval (gathered to the points by repeating columns)
+    tab = np.empty((8, m * n))
+    tab[0].reshape(m, n)[...] = f[:, :-1]
+    tab[1].reshape(m, n)[...] = dfi
+    np.matmul(_QUINTIC_NEG.T, raw.reshape(6, m * n), out=tab[2:])
     return {"w": w, "y": y, "t": t, "f": f, "dtdw": tw, "dwdf": dwdf, "df": dfi, "tab": tab}
 
 
@@ -574,7 +580,7 @@ def exchange_invert(f, grid, y0, s0, sites, ma, mb):
 
 def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS,
                   trace_laws=()):
-    """Melt ratio and cation fraction along a retention crystallization path.
+    r"""Melt ratio and cation fraction along a retention crystallization path.
 
     Handles any K > 0 by swapping the pair where K > 1 and clamping
     ``|1 - K| >= K_EPS``.
@@ -613,7 +619,7 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
         ``w``, ``where`` (grid interval locator, see :func:`_interval_index`)
         and ``u`` (position in the interval), used by
         :func:`trace_log_ratio`; ``trace_decay``, a list with the decay
-        factor :math:`\\exp(-\\int_0 (D/W)\\,dm_{iso})` (m, n) of each trace law.
+        factor :math:`\exp(-\int_0 (D/W)\,dm_{iso})` (m, n) of each trace law.
     """
     k = np.asarray(kd_kernel, dtype=float)
     swap = k > 1.0
@@ -637,15 +643,13 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
     with np.errstate(all="ignore"):
         # node placement needs no precision; coverage of f_end is checked below
         w_nodes = _node_positions(f_last, f_cap, y0s, ks, c, mas, mbs, n_intervals)
-        grid = exchange_grid(f_end, y0s, ks, r, s0, sites, mas, mbs,
-                             w_nodes=w_nodes)
+        grid = _grid(w_nodes, y0s, ks, r, c, mas, mbs)
         short = grid["f"][:, -1:] < f_end
         if short.any():  # nodes short of f_end: stretch them to the precise r = 0 bound
             w_safe = _w_lower_bound(f_last, y0s, ks, c, mas, mbs) * (1.0 + 1e-6)
             scale = np.maximum(w_safe / w_nodes[:, -1:], 1.0)
             w_nodes = np.where(short, w_nodes * scale, w_nodes)
-            grid = exchange_grid(f_end, y0s, ks, r, s0, sites, mas, mbs,
-                                 w_nodes=w_nodes)
+            grid = _grid(w_nodes, y0s, ks, r, c, mas, mbs)
         path = {"grid": grid, "swap": swap, "y0s": y0s, "ks": ks, "mas": mas, "mbs": mbs}
         extra = [_trace_table(path, law, s0, sites, r) for law in trace_laws]
         where = _locate(f, grid)

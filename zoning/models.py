@@ -177,7 +177,7 @@ class _ModelBase:
                 f"parameter {spec.name!r} = {got!r} is outside its allowed range "
                 f"[{spec.lower:g}, {spec.upper:g}] {spec.unit}; give a value inside it."
             )
-        return dict(zip(names, table)), m, scalar
+        return dict(zip(names, table, strict=True)), m, scalar
 
     @property
     def _spec_table(self) -> tuple[dict[str, int], np.ndarray, np.ndarray]:
@@ -787,7 +787,7 @@ class CrystallizationModel(_ModelBase):
         melt_mass = 100.0 * one_f
         m_ret = (r * s0 / law.sites) * path["t"] * (
             law.molar_mass_b + (law.molar_mass_a - law.molar_mass_b) * x_pt)
-        for tr, decay in zip(self.traces, path["trace_decay"]):
+        for tr, decay in zip(self.traces, path["trace_decay"], strict=True):
             d_pt = tr.partition(mgo_pt if olivine else None, x_pt, temp)
             if np.ndim(d_pt) == 0:
                 d_pt = np.full(one_f.shape, d_pt)
