@@ -101,6 +101,8 @@ def _olivine_s0(y0, feo=9.0):
 @pytest.mark.parametrize("y0,k,r,frac", [
     (0.65, 0.30, 0.0, 0.6), (0.65, 0.30, 1.0, 0.6), (0.55, 0.25, 0.37, 0.9),
     (0.75, 0.42, 0.81, 0.5), (0.45, 0.18, 0.5, 0.95),
+    # rims at 99-99.5 % of the exhaustion fraction, where the melt ratio moves fastest
+    (0.45, 0.18, 0.0, 0.99), (0.80, 0.30, 0.2, 0.995),
 ])
 def test_exchange_path_against_solve_ivp(y0, k, r, frac):
     s0 = _olivine_s0(y0)
@@ -240,3 +242,30 @@ def test_short_grid_is_extended_to_cover_the_last_fraction(monkeypatch):
 
     assert got["grid"]["f"][0, -1] >= fs[-1]
     assert_allclose(fo(got["y"]), fo(ref), atol=ATOL_INTEGRATION_FO)
+
+
+def test_node_placement_is_increasing_and_covers_the_last_fraction():
+    # One Halley step places the grid nodes; on a wide sample of olivine melts
+    # (Mg# 0.3-0.92, K 0.15-0.5, last F from 1e-12 to 99.9 % of exhaustion)
+    # the nodes increase and the last one covers the requested F (else the
+    # slower fallback of exchange_path would run).
+    rng = np.random.default_rng(7)
+    m = 4000
+    y0 = rng.uniform(0.3, 0.92, (m, 1))
+    k = rng.uniform(0.15, 0.5, (m, 1))
+    s0 = _olivine_s0(y0, feo=rng.uniform(5.0, 15.0, (m, 1)))
+    c = s0 / 200.0
+    ma, mb = OL.molar_mass_a, OL.molar_mass_b
+    f_cap = c * (mb + (ma - mb) * y0)
+    share = rng.uniform(0.0, 0.999, (m, 1)) ** rng.choice([0.2, 1.0, 5.0], (m, 1))
+    f_end = np.maximum(f_cap * share, 1e-12)
+    f_last = np.minimum(f_end * 1.001, 0.5 * (f_end + f_cap))
+    w = kernels._node_positions(f_last, f_cap, y0, k, c, ma, mb, kernels.N_INTERVALS)
+    assert np.isfinite(w).all()
+    assert (w[:, 0] == 0.0).all()
+    assert (np.diff(w, axis=1) > 0).all()
+    # fractional-path F at the last node (explicit r = 0 relation)
+    y = y0 * np.exp(-w[:, -1:])
+    t = 1.0 - np.exp(-(k * w[:, -1:] + np.log((1 - y) / (1 - y0))) / (1 - k))
+    f_node = c * (mb * t + (ma - mb) * (y0 - (1 - t) * y))
+    assert np.mean(f_node < f_end) <= 1e-3

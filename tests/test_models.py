@@ -275,6 +275,16 @@ def test_profile_geometry_mapping():
     assert_allclose(out["distance_um"], x)
 
 
+def test_profile_zone_cache_follows_distances_radius_and_exponent():
+    # (x/R)^n is cached between calls; changing x, R or n must not reuse it
+    model = CrystallizationModel("olivine", BASALT)
+    x1, x2 = np.linspace(0.0, 100.0, 7), np.linspace(0.0, 80.0, 7)
+    calls = [(x1, 100.0, 3.0), (x2, 100.0, 3.0), (x2, 80.0, 3.0), (x2, 80.0, 2.0), (x1, 100.0, 3.0)]
+    for x, radius, n in calls:
+        got = model.profile(x, radius, f_rim=0.1, growth_exponent=n)["f"]
+        assert_allclose(got, 0.1 * (x / radius) ** n, rtol=1e-12)
+
+
 def test_profile_beam_average_of_flat_profile_is_unchanged():
     flat = CrystallizationModel("olivine", BASALT, beam_um=2.0)
     out = flat.profile(np.linspace(0, 30, 7), 30.0, f_rim=0.0)
