@@ -581,7 +581,7 @@ def exchange_invert(f, grid, y0, s0, sites, ma, mb):
 
 
 def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS,
-                  trace_laws=()):
+                  trace_laws=(), f_max_row=None):
     r"""Melt ratio and cation fraction along a retention crystallization path.
 
     Handles any K > 0 by swapping the pair where K > 1 and clamping
@@ -611,6 +611,8 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
         :func:`trace_log_ratio`); the decay factor of each is returned under
         ``"trace_decay"``, interpolated to the points together with the
         major elements.
+    f_max_row : ndarray, shape (m, 1), optional
+        ``f.max(axis=1, keepdims=True)`` when the caller has it already.
 
     Returns
     -------
@@ -623,7 +625,7 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
         :func:`trace_log_ratio`; ``trace_decay``, a list with the decay
         factor :math:`\exp(-\int_0 (D/W)\,dm_{iso})` (m, n) of each trace law.
     """
-    k = np.asarray(kd_kernel, dtype=float)
+    k = kd_kernel if isinstance(kd_kernel, np.ndarray) else np.asarray(kd_kernel, dtype=float)
     swap = k > 1.0
     if swap.any():
         ks = np.minimum(np.where(swap, 1.0 / k, k), 1.0 - K_EPS)
@@ -634,7 +636,9 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
         swap = None
         ks = np.minimum(k, 1.0 - K_EPS)
         y0s, mas, mbs = y0, ma, mb
-    f_end = np.maximum(f.max(axis=1, keepdims=True), 1e-12)
+    if f_max_row is None:
+        f_max_row = f.max(axis=1, keepdims=True)
+    f_end = np.maximum(f_max_row, 1e-12)
     # Grid nodes where the fractional (r = 0) path reaches targets evenly
     # spaced in F and in ln(F_max - F): dense in w where the melt changes
     # fast, and covering f_end for every r (retained crystals buffer the
