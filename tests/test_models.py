@@ -9,7 +9,7 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy.integrate import solve_ivp
 
-from zoning import ConstantPartitionModel, CrystallizationModel, ModelDomainError
+from zoning import ConstantPartitionModel, CrystallizationModel, ModelDomainError, kernels
 from zoning.exceptions import CalibrationRangeWarning
 from zoning.kernels import retention_closed_form
 from zoning.models import MODELS, ParameterSpec
@@ -216,6 +216,33 @@ def test_nickel_against_ode_reference():
                     max_step=1e-4)
     ref = sol.y[0] / w[::100]
     assert_allclose(out["melt_ni_ppm"][::100], ref, rtol=2e-4)
+
+
+def test_public_trace_functions_agree_with_the_model():
+    # zoning.kernels.trace_log_ratio (its own gather of the same table) and
+    # exchange_invert give what the model returns from its fused path.
+    model = CrystallizationModel("olivine", {"MgO": 12.0, "FeO": 10.0}, traces=("Ni",))
+    law = model.law
+    y0 = np.array([[0.62], [0.70]])
+    r = np.array([[0.2], [0.9]])
+    kd = np.array([[0.30], [0.33]])
+    f0 = np.linspace(0.0, 0.12, 25)
+    f = np.vstack([f0, f0])
+    s0 = model._b0 / (1.0 - y0)
+    ni_law = model._trace_path_law(model.traces[0], s0)
+    path = kernels.exchange_path(f, y0, kd, r, s0, law.sites, law.molar_mass_a,
+                                 law.molar_mass_b)
+    with np.errstate(all="ignore"):
+        ln_ratio, _ = kernels.trace_log_ratio(path, ni_law, s0, law.sites, r, f)
+    y, t, _, _ = kernels.exchange_invert(f, path["grid"], y0, s0, law.sites,
+                                         law.molar_mass_a, law.molar_mass_b)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", CalibrationRangeWarning)
+        out = model.path(f0, melt_mg_number=y0[:, 0], retention=r[:, 0], kd=kd[:, 0],
+                         melt0_ni_ppm=[300.0, 300.0])
+    assert_allclose(300.0 * np.exp(ln_ratio), out["melt_ni_ppm"], rtol=1e-12)
+    assert_allclose(y, out["melt_ratio"], rtol=1e-12)
+    assert_allclose(t, path["t"], rtol=1e-12)
 
 
 def test_nickel_partition_at_core():
