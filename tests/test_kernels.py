@@ -269,3 +269,23 @@ def test_node_placement_is_increasing_and_covers_the_last_fraction():
     t = 1.0 - np.exp(-(k * w[:, -1:] + np.log((1 - y) / (1 - y0))) / (1 - k))
     f_node = c * (mb * t + (ma - mb) * (y0 - (1 - t) * y))
     assert np.mean(f_node < f_end) <= 1e-3
+
+
+def test_locating_spots_through_the_shared_zone_equals_the_general_search():
+    # profile() passes f = f_core + (f_rim - f_core) z with one increasing z for
+    # every row; the shortcut must give the same spots per grid interval.
+    rng = np.random.default_rng(11)
+    m, n, n_nodes = 50, 40, 17
+    z = np.sort(rng.uniform(0.0, 1.0, n))
+    z[0], z[-1] = 0.0, 1.0
+    f_core = rng.uniform(0.0, 0.1, (m, 1))
+    f_rim = f_core + rng.uniform(0.01, 0.3, (m, 1))
+    f = f_core + (f_rim - f_core) * z
+    nodes = np.sort(rng.uniform(0.0, 1.0, (m, n_nodes)), axis=1)
+    nodes = f_core + (f_rim - f_core) * 1.01 * nodes
+    nodes[:, 0] = 0.0
+    grid = {"f": nodes}
+    general = kernels._locate(f, grid)
+    shortcut = kernels._locate(f, grid, (z, f_core, f_rim))
+    np.testing.assert_array_equal(shortcut, general)
+    assert shortcut.sum() == m * n

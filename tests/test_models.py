@@ -312,6 +312,23 @@ def test_profile_zone_cache_follows_distances_radius_and_exponent():
         assert_allclose(got, 0.1 * (x / radius) ** n, rtol=1e-12)
 
 
+def test_profile_equals_path_at_the_mapped_fractions():
+    # profile() locates spots through the shared (x/R)^n; path() searches in F
+    model = CrystallizationModel("olivine", BASALT, traces=("Ni",))
+    rng = np.random.default_rng(5)
+    params = {"f_rim": rng.uniform(0.05, 0.2, 6), "retention": rng.uniform(0, 1, 6),
+              "f_core": rng.uniform(0.0, 0.03, 6)}
+    x = np.linspace(0.0, 120.0, 31)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", CalibrationRangeWarning)
+        prof = model.profile(x, 120.0, **params)
+        for i in range(6):
+            one = {k: v[i] for k, v in params.items()}
+            ref = model.path(prof["f"][i], **one)
+            for key in ("crystal", "melt_ratio", "melt_ni_ppm", "crystal_nio_wt"):
+                assert_allclose(prof[key][i], ref[key], rtol=1e-12, atol=1e-14)
+
+
 def test_profile_beam_average_of_flat_profile_is_unchanged():
     flat = CrystallizationModel("olivine", BASALT, beam_um=2.0)
     out = flat.profile(np.linspace(0, 30, 7), 30.0, f_rim=0.0)

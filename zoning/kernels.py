@@ -526,12 +526,28 @@ def _gather(table, where, shape):
     return np.take(table, where, axis=1)
 
 
-def _locate(f, grid):
-    """Interval locator of each requested F on the grid (see :func:`_interval_index`)."""
+def _locate(f, grid, structure=None):
+    """Interval locator of each requested F on the grid (see :func:`_interval_index`).
+
+    With ``structure = (z, f_core, f_rim)`` (every row of ``f`` is
+    ``f_core + (f_rim - f_core) z``, z non-decreasing, ``f_rim > f_core``)
+    the interior nodes are mapped to z and placed among the n values of z
+    instead of among all m n spots.
+    """
     # grid nodes past the exhaustion of the melt (F may exceed 1 there, or
     # be NaN) are capped at 1.5 so that the rows stay separated
     key = np.maximum.accumulate(np.fmin(grid["f"][:, 1:-1], 1.5), axis=1)
-    return _interval_index(f, key)
+    if structure is None:
+        return _interval_index(f, key)
+    z, f_core, f_rim = structure
+    m, n = f.shape
+    starts = np.empty((m, key.shape[1] + 2), dtype=np.intp)
+    starts[:, 0] = 0
+    starts[:, -1] = n
+    # interval j of row i starts at the first spot at or above node j
+    starts[:, 1:-1] = np.searchsorted(z, ((key - f_core) / (f_rim - f_core)).ravel(),
+                                      side="left").reshape(key.shape)
+    return (starts[:, 1:] - starts[:, :-1]).ravel()
 
 
 def _invert_w(f, grid, where, extra=None):
@@ -581,7 +597,7 @@ def exchange_invert(f, grid, y0, s0, sites, ma, mb):
 
 
 def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTERVALS,
-                  trace_laws=(), f_max_row=None):
+                  trace_laws=(), f_max_row=None, f_structure=None):
     r"""Melt ratio and cation fraction along a retention crystallization path.
 
     Handles any K > 0 by swapping the pair where K > 1 and clamping
@@ -613,6 +629,11 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
         major elements.
     f_max_row : ndarray, shape (m, 1), optional
         ``f.max(axis=1, keepdims=True)`` when the caller has it already.
+    f_structure : tuple, optional
+        ``(z, f_core, f_rim)`` when every row of ``f`` is
+        ``f_core + (f_rim - f_core) z`` with one non-decreasing z (n,) and
+        ``f_rim > f_core`` (the usual growth mapping); the spots are then
+        located on the grid through z.
 
     Returns
     -------
@@ -658,7 +679,7 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
             grid = _grid(w_nodes, y0s, ks, r, c, mas, mbs)
         path = {"grid": grid, "swap": swap, "y0s": y0s, "ks": ks, "mas": mas, "mbs": mbs}
         extra = [_trace_table(path, law, s0, sites, r) for law in trace_laws]
-        where = _locate(f, grid)
+        where = _locate(f, grid, f_structure)
         w_pt, u, g_extra = _invert_w(f, grid, where,
                                      np.concatenate(extra) if extra else None)
         ys = np.exp(np.log(y0s) - w_pt)

@@ -286,13 +286,18 @@ class _ModelBase:
         # offset and the exponent; when they are shared, map the distances once
         exponent, offset = p["growth_exponent"], p["core_offset_um"]
         f_core = p["f_core"] if p["f_core"].any() else 0.0
+        structure = None
         if (exponent == exponent[0, 0]).all() and not offset.any():
             # (x/R)^n shared by every parameter set: cached between calls
-            zone = self._zone_power(xs, radius, float(exponent[0, 0]))
+            zone, increasing = self._zone_power(xs, radius, float(exponent[0, 0]))
             if np.ndim(f_core):
                 fm = f_core + (p["f_rim"] - f_core) * zone
             else:
                 fm = p["f_rim"] * zone
+            if increasing and (p["f_rim"] > f_core).all():
+                # every row is f_core + (f_rim - f_core) zone, increasing: the
+                # kernel locates the spots on its grid through the shared zone
+                structure = (zone[0], f_core, p["f_rim"])
         else:
             fm = _geometry.fraction_from_distance(
                 xs[None, :], radius, f_core, p["f_rim"], exponent, offset,
@@ -313,25 +318,29 @@ class _ModelBase:
                     blurred = out_all[key][:, n:].reshape(m, n, k_nodes)
                     out[key] = blurred @ wt
         else:
-            out = self._evaluate(fm, p, strict=strict, stacklevel=3)
+            out = self._evaluate(fm, p, strict=strict, stacklevel=3, f_structure=structure)
         dist = np.empty(out["f"].shape)
         dist[...] = x
         out["distance_um"] = dist
         return _squeeze(out, scalar)
 
     def _zone_power(self, x, radius, exponent):
-        """Relative zone radius to the power n, shape (1, n); the last result is cached."""
+        """Relative zone radius to the power n, shape (1, n), and whether it increases.
+
+        The last result is cached.
+        """
         key = (x.tobytes(), radius, exponent, self.section_offset_um)
         cached = getattr(self, "_zone_cache", None)
         if cached is None or cached[0] != key:
             zone = _geometry.fraction_from_distance(x[None, :], radius, 0.0, 1.0, exponent, 0.0,
                                                     self.section_offset_um)
             zone.flags.writeable = False
-            cached = (key, zone)
+            cached = (key, zone, bool((zone[0, 1:] >= zone[0, :-1]).all()))
             self._zone_cache = cached
-        return cached[1]
+        return cached[1], cached[2]
 
-    def _evaluate(self, f, p, *, strict, stacklevel):  # pragma: no cover - abstract
+    def _evaluate(self, f, p, *, strict, stacklevel,
+                  f_structure=None):  # pragma: no cover - abstract
         raise NotImplementedError
 
 
@@ -665,7 +674,7 @@ class CrystallizationModel(_ModelBase):
             fmax = res["f_reached"][:, 0]
         return fmax[0] if scalar else fmax
 
-    def _evaluate(self, f, p, *, strict, stacklevel):
+    def _evaluate(self, f, p, *, strict, stacklevel, f_structure=None):
         law = self.law
         m, n = f.shape
         y0 = p[law.ratio_name]
@@ -691,11 +700,11 @@ class CrystallizationModel(_ModelBase):
                     f"{i}). Lower f_rim or the fraction, or check the melt analysis."
                 )
             f = np.where(beyond, 0.0, f)
-            f_max_row = None
+            f_max_row = f_structure = None
         trace_laws = [self._trace_path_law(tr, s0) for tr in self.traces]
         path = _kernels.exchange_path(f, y0, k, r, s0, law.sites, law.molar_mass_a,
                                       law.molar_mass_b, trace_laws=trace_laws,
-                                      f_max_row=f_max_row)
+                                      f_max_row=f_max_row, f_structure=f_structure)
         y, t = path["y"], path["t"]
         one_f = 1.0 - f
         # exchange cations in the melt per 100 g of initial melt, per unit melt mass
@@ -947,7 +956,7 @@ class ConstantPartitionModel(_ModelBase):
         )
         self._crystal_keys = ("crystal",)
 
-    def _evaluate(self, f, p, *, strict, stacklevel):
+    def _evaluate(self, f, p, *, strict, stacklevel, f_structure=None):
         ratio = _kernels.retention_closed_form(f, p["partition_coefficient"], p["retention"])
         melt = p["melt0"] * ratio
         return {
