@@ -163,8 +163,8 @@ def main(argv=None):
             t_block.append(time.process_time() - t0)
         t_ivp.append(float(np.sum(t_block)))
         ratios.append(t_ivp[-1] / float(np.median(t_here)))
-        fine = [ivp_profile(model, f[i], {k: v[i] for k, v in b.items()}, 1e-12, 1e-14,
-                            "DOP853") for i in range(BATCH)]
+        fine = [ivp_profile(model, f[i], sets[i], 1e-12, 1e-14, "DOP853")
+                for i in range(BATCH)]
         out = ours(b)
         for i in range(BATCH):
             err_fo = max(err_fo, float(np.max(np.abs(out["crystal"][i] - fine[i][0]))))

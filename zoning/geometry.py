@@ -50,6 +50,7 @@ __all__ = [
     "GEOMETRY_EXPONENT",
     "zone_fraction",
     "fraction_from_distance",
+    "fraction_from_zone",
     "beam_offsets",
     "FWHM_PER_SIGMA",
 ]
@@ -128,9 +129,29 @@ def fraction_from_distance(distance_um, radius_um, f_core, f_rim, growth_exponen
     .. [1] Pearce, T. H. (1984). Contrib. Mineral. Petrol. 86, 149-154.
     """
     xi = zone_fraction(distance_um, radius_um, core_offset_um, section_offset_um)
+    return fraction_from_zone(xi**growth_exponent, f_core, f_rim)
+
+
+def fraction_from_zone(zone_power, f_core, f_rim):
+    r"""Crystallized fraction from the zone's share of the crystal [fraction].
+
+    .. math:: F = F_{core} + (F_{rim} - F_{core})\,\xi^n
+
+    Parameters
+    ----------
+    zone_power : ndarray
+        :math:`\xi^n`, the volume share of the crystal inside the zone [fraction].
+    f_core, f_rim : float or ndarray
+        Crystallized fraction at nucleation and at the rim [fraction].
+
+    Returns
+    -------
+    ndarray
+        F, broadcast shape of the inputs.
+    """
     if np.ndim(f_core) == 0 and f_core == 0.0:
-        return f_rim * xi**growth_exponent
-    return f_core + (f_rim - f_core) * xi**growth_exponent
+        return f_rim * zone_power
+    return f_core + (f_rim - f_core) * zone_power
 
 
 @lru_cache(maxsize=8)

@@ -384,8 +384,9 @@ def _grid(w, y0, k, r, c, ma, mb):
     """
     m, n1 = w.shape
     n = n1 - 1
-    # per interval [w_j, dw, dF w_F, dF w_F (right), dF^2 w_FF, dF^2 w_FF (right)]
+    # per interval [w_j, dw, dF w_F, dF^2 w_FF (left), dF w_F, dF^2 w_FF (right)]
     raw = np.empty((6, m, n))
+    raw[0] = w[:, :-1]
     hi = np.subtract(w[:, 1:], w[:, :-1], out=raw[1])  # interval widths in w
     y = np.exp(np.log(y0) - w)
     one_k = 1.0 - k
@@ -395,6 +396,9 @@ def _grid(w, y0, k, r, c, ma, mb):
     den = k + one_k * y
     # ln mu at nodes (relative to an arbitrary constant)
     lmu = q * np.log(one_y) - p * w - r * np.log(den)
+    # A = den/((1-K)(1-y)) at the nodes: the prefactor of each interval's
+    # integral and of t_w = A (1 + t B) below
+    a_fac = den / (one_k * one_y)
     # Gauss-Legendre points inside each interval, measured back from its
     # right node: w_g = w_{i+1} - (1 - xi) dw; with eta = y_{i+1} e^(1-xi)dw,
     # (1 - eta)/(1 - y_{i+1}) = 1 - a E and den(eta)/den(y_{i+1}) = 1 + b E,
@@ -404,13 +408,13 @@ def _grid(w, y0, k, r, c, ma, mb):
     y1 = y[:, 1:]
     one_y1 = one_y[:, 1:]
     den1 = den[:, 1:]
-    # mu(eta)/mu(y_{i+1}) * den(eta)/(1 - eta); the 1/(1-K) factor is applied below
+    # mu(eta)/mu(y_{i+1}) * den(eta)/(1 - eta); times A(y_{i+1}) below
     integrand = np.exp(
         back * (p * hi)
         + (q - 1.0) * np.log1p((-y1 / one_y1) * em1)
         + (1.0 - r) * np.log1p((one_k * y1 / den1) * em1)
     )
-    interval = (hi * den1 / (one_k * one_y1)) * (om @ integrand.reshape(N_GAUSS, -1)).reshape(m, n)
+    interval = (hi * a_fac[:, 1:]) * (om @ integrand.reshape(N_GAUSS, -1)).reshape(m, n)
     # t_j = sum_{i<j} I_i mu_{i+1}/mu_j, the running sum as a product with
     # a triangular matrix (scaled by the largest mu against overflow)
     scaled_mu = np.exp(lmu - lmu[:, 1:].max(axis=1, keepdims=True))
@@ -420,10 +424,8 @@ def _grid(w, y0, k, r, c, ma, mb):
         t = np.zeros_like(w)
         for j in range(n):
             t[:, j + 1] = t[:, j] * np.exp(lmu[:, j] - lmu[:, j + 1]) + interval[:, j]
-    # derivatives from the ODE: t_w = A (1 + t B), A = den/((1-K)(1-y)),
-    # B = r f'(y) - 1, f' = K/den^2; dA/dy = 1/((1-K)(1-y)^2),
-    # dB/dy = -2 r K (1-K)/den^3, dy/dw = -y
-    a_fac = den / (one_k * one_y)
+    # derivatives from the ODE: t_w = A (1 + t B), B = r f'(y) - 1,
+    # f' = K/den^2; dA/dy = 1/((1-K)(1-y)^2), dB/dy = -2 r K (1-K)/den^3, dy/dw = -y
     fp = k / (den * den)
     b_fac = r * fp - 1.0
     g1 = 1.0 + t * b_fac
@@ -439,14 +441,10 @@ def _grid(w, y0, k, r, c, ma, mb):
     ends = np.empty((2, m, n1))
     dwdf = np.divide(1.0, cb * tw + cmy * (tw + one_t), out=ends[0])
     np.multiply(cb * tww + cmy * (tww - 2.0 * tw - one_t), dwdf * dwdf * dwdf, out=ends[1])
-    # per interval [w_j, dw, dF w_F, dF^2 w_FF (left), dF w_F, dF^2 w_FF (right)]
     dfi = f[:, 1:] - f[:, :-1]
     scale = np.empty((2, m, n))
     scale[0] = dfi
     np.multiply(dfi, dfi, out=scale[1])
-    raw = np.empty((6, m, n))
-    raw[0] = w[:, :-1]
-    raw[1] = hi
     np.multiply(ends[:, :, :-1], scale, out=raw[2:4])
     np.multiply(ends[:, :, 1:], scale, out=raw[4:6])
     # one column per interval (gathered to the points by repeating columns)
@@ -460,10 +458,6 @@ def _grid(w, y0, k, r, c, ma, mb):
 #: :data:`_QUINTIC` with its rows in the order [v0, v1 - v0, d0, a0, d1, a1]
 #: and the end curvatures given with the opposite sign.
 _QUINTIC_NEG = _QUINTIC[[0, 1, 2, 4, 3, 5]] * np.array([1.0, 1.0, 1.0, -1.0, 1.0, -1.0])[:, None]
-#: Coefficients c_1..c_4 of the order-8 Hermite-Obreschkoff formula and the
-#: signs (-1)^k of its right-hand end, shape (4, 1, 1).
-_OBRESCHKOFF = np.array([1.0 / 2.0, 3.0 / 28.0, 1.0 / 84.0, 1.0 / 1680.0])[:, None, None]
-_ALTERNATING = np.array([-1.0, 1.0, -1.0, 1.0])[:, None, None]
 
 
 def _horner(c, u):
@@ -484,8 +478,21 @@ def _row_shift(m: int) -> np.ndarray:
 
 @lru_cache(maxsize=16)
 def _row_starts(m: int, n: int) -> np.ndarray:
-    """Flat index of the first point of each row, shape (m,)."""
-    return np.arange(0, m * n, n)
+    """Flat index of the first point of each row, shape (m, 1)."""
+    return np.arange(0, m * n, n)[:, None]
+
+
+def _interval_counts(inner, n):
+    """Points per grid interval, shape (m N,), from where each interior interval starts.
+
+    ``inner`` (m, N-1) holds, per row, the index of the first of its n
+    sorted points in intervals 1..N-1 (interval 0 starts at 0).
+    """
+    starts = np.empty((inner.shape[0], inner.shape[1] + 2), dtype=np.intp)
+    starts[:, 0] = 0
+    starts[:, 1:-1] = inner
+    starts[:, -1] = n
+    return (starts[:, 1:] - starts[:, :-1]).ravel()
 
 
 def _interval_index(f, key):
@@ -506,12 +513,8 @@ def _interval_index(f, key):
     if (pts[1:] >= pts[:-1]).all():
         # place the few nodes among the many points: interval j of row i
         # starts at the first point at or above node j
-        starts = np.empty((m, n_int + 1), dtype=np.intp)
-        starts[:, 0] = _row_starts(m, n)
-        starts[:, 1:-1] = np.searchsorted(pts, key, side="left").reshape(m, n_int - 1)
-        starts[:-1, -1] = starts[1:, 0]
-        starts[-1, -1] = m * n
-        return (starts[:, 1:] - starts[:, :-1]).ravel()
+        inner = np.searchsorted(pts, key, side="left").reshape(m, n_int - 1)
+        return _interval_counts(inner - _row_starts(m, n), n)
     pos = np.searchsorted(key, pts, side="right").reshape(f.shape)  # = j + i (N-1)
     return pos + np.arange(m)[:, None]
 
@@ -540,28 +543,26 @@ def _locate(f, grid, structure=None):
     if structure is None:
         return _interval_index(f, key)
     z, f_core, f_rim = structure
-    m, n = f.shape
-    starts = np.empty((m, key.shape[1] + 2), dtype=np.intp)
-    starts[:, 0] = 0
-    starts[:, -1] = n
     # interval j of row i starts at the first spot at or above node j
-    starts[:, 1:-1] = np.searchsorted(z, ((key - f_core) / (f_rim - f_core)).ravel(),
-                                      side="left").reshape(key.shape)
-    return (starts[:, 1:] - starts[:, :-1]).ravel()
+    inner = np.searchsorted(z, ((key - f_core) / (f_rim - f_core)).ravel(), side="left")
+    return _interval_counts(inner.reshape(key.shape), f.shape[1])
 
 
-def _invert_w(f, grid, where, extra=None):
-    """Quintic Hermite inverse interpolation of w(F) on the grid (error O(h^6)).
+def _invert(f, grid, where, y0, c, ma, mb, extra=None):
+    """Melt ratio and cation fraction at the points by inverse interpolation on the grid.
 
-    Uses the exact dw/dF and d2w/dF2 at the nodes. ``extra`` (c, m N) are
-    further per-interval table rows gathered together with the grid's.
-    Returns w, the local coordinate u in [0, 1] and the gathered extra rows
-    (c, m, n).
+    Quintic Hermite interpolation of w(F) with the exact dw/dF and d2w/dF2 at
+    the nodes (error O(h^6)), then y = y0 e^-w and t from the explicit mass
+    balance. ``extra`` (c, m N) are further per-interval table rows gathered
+    together with the grid's. Returns y, t, w, the local coordinate u in
+    [0, 1] and the gathered extra rows (c, m, n).
     """
     table = grid["tab"] if extra is None else np.concatenate([grid["tab"], extra])
     g = _gather(table, where, f.shape)
     u = (f - g[0]) / g[1]
-    return _horner(g[2:8], u), u, g[8:]
+    w = _horner(g[2:8], u)
+    y = np.exp(np.log(y0) - w)
+    return y, _t_of_f(f, y, y0, c, ma, mb), w, u, g[8:]
 
 
 def exchange_invert(f, grid, y0, s0, sites, ma, mb):
@@ -588,9 +589,7 @@ def exchange_invert(f, grid, y0, s0, sites, ma, mb):
         Flat index ``i N + j`` of the grid interval of each point.
     """
     where = _locate(f, grid)
-    w, _, _ = _invert_w(f, grid, where)
-    y = y0 * np.exp(-w)
-    t = _t_of_f(f, y, y0, s0 / (100.0 * sites), ma, mb)
+    y, t, w, _, _ = _invert(f, grid, where, y0, s0 / (100.0 * sites), ma, mb)
     if where.ndim == 1:
         where = np.repeat(np.arange(where.size), where).reshape(f.shape)
     return y, t, w, where
@@ -680,10 +679,8 @@ def exchange_path(f, y0, kd_kernel, r, s0, sites, ma, mb, *, n_intervals=N_INTER
         path = {"grid": grid, "swap": swap, "y0s": y0s, "ks": ks, "mas": mas, "mbs": mbs}
         extra = [_trace_table(path, law, s0, sites, r) for law in trace_laws]
         where = _locate(f, grid, f_structure)
-        w_pt, u, g_extra = _invert_w(f, grid, where,
-                                     np.concatenate(extra) if extra else None)
-        ys = np.exp(np.log(y0s) - w_pt)
-        t = _t_of_f(f, ys, y0s, c, mas, mbs)
+        ys, t, w_pt, u, g_extra = _invert(f, grid, where, y0s, c, mas, mbs,
+                                          np.concatenate(extra) if extra else None)
     path.update(ys=ys, t=t, w=w_pt, where=where, u=u,
                 y=ys if swap is None else np.where(swap, 1.0 - ys, ys),
                 trace_decay=[_horner(g_extra[4 * i:4 * i + 4], u)
@@ -822,15 +819,13 @@ def _trace_table(path, law, s0, sites, r):
     w_q = mid[0].reshape(m, n)
     w_f = (mid[1] / tab[1]).reshape(m, n)
     f_q = g["f"][:, :-1] + 0.5 * dfi
-    ic = (100.0 * sites) / s0
+    c = s0 / (100.0 * sites)
     y_q = np.exp(np.log(y0s) - w_q)
     # t from F and y (explicit mass balance) and its derivative along the
     # path, dt/dF = (1/c - (M_A - M_B)(1 - t) y dw/dF)/(M_B + (M_A - M_B) y)
-    dm = mas - mbs
-    dmy = dm * y_q
-    inv_den = 1.0 / (mbs + dmy)
-    t_q = (f_q * ic - dm * y0s + dmy) * inv_den
-    tf_q = (ic - (1.0 - t_q) * dmy * w_f) * inv_den
+    t_q = _t_of_f(f_q, y_q, y0s, c, mas, mbs)
+    dmy = (mas - mbs) * y_q
+    tf_q = (1.0 / c - (1.0 - t_q) * dmy * w_f) / (mbs + dmy)
     # nodes and midpoints together
     _, _, integrand = _trace_terms(
         np.concatenate([g["y"], y_q], axis=1), np.concatenate([g["t"], t_q], axis=1),

@@ -290,10 +290,7 @@ class _ModelBase:
         if (exponent == exponent[0, 0]).all() and not offset.any():
             # (x/R)^n shared by every parameter set: cached between calls
             zone, increasing = self._zone_power(xs, radius, float(exponent[0, 0]))
-            if np.ndim(f_core):
-                fm = f_core + (p["f_rim"] - f_core) * zone
-            else:
-                fm = p["f_rim"] * zone
+            fm = _geometry.fraction_from_zone(zone, f_core, p["f_rim"])
             if increasing and (p["f_rim"] > f_core).all():
                 # every row is f_core + (f_rim - f_core) zone, increasing: the
                 # kernel locates the spots on its grid through the shared zone
