@@ -186,6 +186,10 @@ def test_fractional_path_against_quadrature():
     # r = 0: ln(melt moles) = int dX_L / (X_S - X_L) (Rayleigh-type closed form),
     # integrated over T with scipy.integrate.quad; dX_L/dT by complex step; the loop
     # equations re-implemented here; F inverted with brentq.
+    # The integrand grows without bound towards the low-melting end member (F -> 1),
+    # so the integral is split at the nodes of a temperature grid that stops well
+    # short of it, and each F is bracketed on that grid before brentq refines it.
+    # Every quad call then has a smooth, bounded integrand on a short interval.
     loop = FORSTERITE_FAYALITE
     x0 = 0.6
     t_l = brentq(lambda t: _loop_closed_form(loop, t)[0] - x0, 1206.0, 1889.0, xtol=1e-13)
@@ -195,17 +199,26 @@ def test_fractional_path_against_quadrature():
         dxl = _loop_closed_form(loop, complex(t, 1e-20))[0].imag / 1e-20
         return dxl / (xs - xl)
 
-    def f_frac(t):
-        val, _ = quad(integrand, t_l, t, epsabs=1e-12, epsrel=1e-10, limit=200)
+    def f_of(t, t_start, log_n_start):
+        val, _ = quad(integrand, t_start, t, epsabs=1e-13, epsrel=1e-12, limit=200)
         xl, _ = _loop_closed_form(loop, t)
-        return float(1 - np.exp(val) * _mass(loop, xl) / _mass(loop, x0))
+        return float(1 - np.exp(log_n_start + val) * _mass(loop, xl) / _mass(loop, x0))
 
     fq = np.array([0.1, 0.4, 0.7, 0.9])
-    expected = [
-        _loop_closed_form(loop, brentq(lambda t, v=v: f_frac(t) - v, 1205.0 + 1e-6, t_l,
-                                       xtol=1e-12))[1]
-        for v in fq
-    ]
+    # nodes closer together towards the fayalite end (geometric in T - T_Fa)
+    nodes = loop.low.melting_c + np.geomspace(t_l - loop.low.melting_c, 0.5, 241)
+    log_n = np.zeros(nodes.size)
+    for i in range(1, nodes.size):
+        step, _ = quad(integrand, nodes[i - 1], nodes[i], epsabs=1e-13, epsrel=1e-12, limit=200)
+        log_n[i] = log_n[i - 1] + step
+    f_nodes = np.array([f_of(t, t, ln) for t, ln in zip(nodes, log_n)])
+    assert np.all(np.diff(f_nodes) > 0) and f_nodes[-1] > fq.max()
+    expected = []
+    for v in fq:
+        i = int(np.searchsorted(f_nodes, v))  # f_nodes[i - 1] < v <= f_nodes[i]
+        t_star = brentq(lambda t, v=v, i=i: f_of(t, nodes[i - 1], log_n[i - 1]) - v,
+                        nodes[i], nodes[i - 1], xtol=1e-12)
+        expected.append(_loop_closed_form(loop, t_star)[1])
     got = loop.path(fq, x0, 0.0)
     assert_allclose(100 * got["x_solid"], 100 * np.array(expected), rtol=0, atol=ATOL_PATH_MOL_PCT)
 
