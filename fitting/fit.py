@@ -60,6 +60,7 @@ from zoning.exceptions import (
     FitError,
     ZoningError,
 )
+from zoning.orientation import require_orientation
 from zoning.partitioning import equilibrium_crystal
 from zoning.traverse import MINERALS, Traverse
 
@@ -633,6 +634,9 @@ def fit_traverse(
 
     Raises
     ------
+    zoning.exceptions.OrientationUncertainError
+        The traverse's orientation is "uncertain" and was not confirmed by
+        the user (checked first, before anything is fitted).
     zoning.exceptions.FitError
         Too few usable spots, or no finite model for any start.
     zoning.exceptions.ZoningError
@@ -645,6 +649,7 @@ def fit_traverse(
     DataQualityWarning
         Reversals in the profile, long residual runs, poor fit.
     """
+    require_orientation(traverse)  # orientation gate: never fit an unconfirmed guess
     if traverse.mineral not in MINERALS:
         raise ZoningError(
             f"traverse {traverse.name!r} has mineral {traverse.mineral!r}; "
