@@ -47,6 +47,7 @@ from zoning.fitting.results import FitResult
 from zoning.fitting.sampling import DEFAULT_N_STEPS, sample_posterior, sampler_settings
 from zoning.fitting.summary import summarise_fit
 
+from zoning.orientation import require_orientation
 from zoning.traverse import Traverse
 
 __all__ = ["fit_traverse", "DEFAULT_SIGMA", "DEFAULT_TRACE_SIGMA", "KD_PRIOR", "DEFAULT_N_STEPS"]
@@ -135,6 +136,9 @@ def fit_traverse(
 
     Raises
     ------
+    zoning.exceptions.OrientationUncertainError
+        The traverse's orientation is "uncertain" and was not confirmed by
+        the user (checked first, before anything is fitted).
     zoning.exceptions.FitError
         Too few usable spots, or no finite model for any start.
     zoning.exceptions.ZoningError
@@ -147,6 +151,7 @@ def fit_traverse(
     DataQualityWarning
         Reversals in the profile, long residual runs, poor fit.
     """
+    require_orientation(traverse)  # orientation gate first (also in prepare_problem)
     mineral = check_mineral(traverse)
     n_walkers, n_steps = sampler_settings(mineral, n_walkers, n_steps)
     problem = prepare_problem(

@@ -30,6 +30,7 @@ import numpy as np
 import pandas as pd
 
 from zoning.exceptions import FitError, ZoningError
+from zoning.orientation import require_orientation
 from zoning.partitioning import equilibrium_crystal
 from zoning.traverse import MINERALS, Traverse
 
@@ -548,11 +549,15 @@ def prepare_problem(
 
     Raises
     ------
+    zoning.exceptions.OrientationUncertainError
+        The traverse's orientation is "uncertain" and not confirmed (checked
+        first, before anything else).
     zoning.exceptions.ZoningError
         Invalid settings (the message says which and what to give).
     zoning.exceptions.FitError
         Too few usable spots for the free parameters.
     """
+    require_orientation(traverse)  # orientation gate: never fit an unconfirmed guess
     mineral = check_mineral(traverse)
     major = traverse.major
     rng_range = _parse_range(distance_range)
