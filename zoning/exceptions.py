@@ -17,6 +17,7 @@ __all__ = [
     "OutputRefusedError",
     "OutputLockedError",
     "Interrupted",
+    "OrientationUncertainError",
     "ZoningWarning",
     "DataQualityWarning",
     "ConvergenceWarning",
@@ -82,6 +83,16 @@ class Interrupted(KeyboardInterrupt):
     def __init__(self, signum: int):
         super().__init__(signum)
         self.signum = int(signum)
+
+
+class OrientationUncertainError(ZoningError, ValueError):
+    """The orientation or core of a traverse is uncertain and was not confirmed.
+
+    Raised before any fitting when the evidence for the orientation is weak
+    or disagrees (see :mod:`zoning.orientation`). The message states the
+    evidence and the command-line options and project-file keys that
+    confirm the orientation.
+    """
 
 
 class ZoningWarning(UserWarning):

@@ -1532,7 +1532,7 @@ def _summary_frame(project: Project, outcomes: Mapping[str, SampleOutcome],
 
     Samples without an outcome yet are rows with ``run_status`` "pending".
     """
-    from zoning.io.results import SUMMARY_QUANTITIES
+    from zoning.io.results import SUMMARY_QUANTITIES, SUMMARY_TAIL
 
     why = why or {}
     rows = []
@@ -1562,7 +1562,7 @@ def _summary_frame(project: Project, outcomes: Mapping[str, SampleOutcome],
     order = ["sample", "mineral", "n_spots", "n_used"]
     for q in SUMMARY_QUANTITIES:
         order += [q, f"{q}_lo95", f"{q}_hi95", f"{q}_constrained"]
-    order += ["reduced_chi_square", "preferred_model", "warnings"]
+    order += list(SUMMARY_TAIL)
     tail = ["batch_warnings", "run_status", "run_note", "file", "error"]
     known = [c for c in order if c in df.columns]
     other = [c for c in df.columns if c not in known and c not in tail]
