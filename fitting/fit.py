@@ -60,6 +60,7 @@ from zoning.exceptions import (
     FitError,
     ZoningError,
 )
+from zoning.melt import read_melt
 from zoning.partitioning import equilibrium_crystal
 from zoning.traverse import MINERALS, Traverse
 
@@ -556,7 +557,7 @@ def fit_traverse(
     melt: Mapping[str, float],
     kd: float | None = None,
     kd_sd: float | None = None,
-    fe3_fraction: float = 0.10,
+    fe3_fraction: float | None = None,
     geometry: str = "sphere",
     distance_range: tuple[float, float] | None = None,
     radius_um: float | None = None,
@@ -581,7 +582,10 @@ def fit_traverse(
     melt : mapping of str to float
         Reference melt analysis [wt%]; it fixes the less compatible member
         of the exchanging pair (``FeO`` for olivine, ``Na2O`` for
-        plagioclase), e.g. ``{"FeO": 9.5}``.
+        plagioclase), e.g. ``{"FeO": 9.5}``. Read by
+        :func:`zoning.melt.read_melt`: ``FeOT``/``FeO*`` are total iron,
+        FeO + Fe2O3 set Fe3+/FeT, values the fit does not use are listed in
+        the result's warnings.
     kd : float, optional
         Mean of the Kd prior (Fe-Mg exchange for olivine, KD(Ca-Na) for
         plagioclase); default :data:`KD_PRIOR` (olivine 0.30) or the forward
@@ -591,7 +595,8 @@ def fit_traverse(
         1970), 25% of the mean for plagioclase, 10%/25% of a user Kd. Zero
         fixes Kd.
     fe3_fraction : float, optional
-        Melt Fe3+/FeT [fraction] (olivine).
+        Melt Fe3+/FeT [fraction] (olivine); default from the melt's FeO and
+        Fe2O3 when both are given, else 0.10.
     geometry : {"sphere", "cylinder", "slab"}, optional
         Growth geometry mapping distance to crystallized fraction.
     distance_range : (float, float), optional
@@ -648,7 +653,8 @@ def fit_traverse(
     if traverse.mineral not in MINERALS:
         raise ZoningError(
             f"traverse {traverse.name!r} has mineral {traverse.mineral!r}; "
-            f"expected one of {MINERALS}. Pass mineral= when reading the file."
+            f"expected one of {MINERALS}. Give --mineral olivine or --mineral plagioclase "
+            "(project key mineral)."
         )
     mineral = traverse.mineral
     major = traverse.major
@@ -683,7 +689,7 @@ def fit_traverse(
     if not (np.isfinite(radius) and radius > 0):
         raise ZoningError(
             f"crystal radius must be a positive number [µm]; got {radius!r} for traverse "
-            f"{traverse.name!r}. Give radius_um / --radius-um."
+            f"{traverse.name!r}. Give --radius-um (project key radius_um)."
         )
 
     sigma, trace_sigma = _split_sigma(sigma, trace_sigma, mineral)
@@ -697,9 +703,12 @@ def fit_traverse(
         else:
             raise ZoningError(
                 f"fitting {[c[0] for c in chosen]} in plagioclase needs the temperature of "
-                "the partitioning laws; got none. Give temperature_c (--temperature-c) or "
+                "the partitioning laws; got none. Give --temperature-c (project key "
+                "temperature_c) or "
                 "fit without traces."
             )
+    melt_input = read_melt(melt, mineral, fe3_fraction=fe3_fraction)
+    melt, fe3_fraction = melt_input.oxides, melt_input.fe3_fraction
     model = _build_model(
         mineral, melt, kd, fe3_fraction, [c[1] for c in chosen], geometry, temperature_c
     )
@@ -998,7 +1007,7 @@ def fit_traverse(
     for e in estimates.values():
         if not e.constrained and "reversal" not in e.note:
             notes_all.append(e.note)
-    warn_list = notes_all + warn_list
+    warn_list = list(melt_input.notes) + notes_all + warn_list
     n_flagged = int((traverse.spots["status"] != "ok").sum())
     if n_flagged and not include_flagged:
         warn_list.append(
@@ -1045,6 +1054,7 @@ def fit_traverse(
         "kd_prior_mean": kd0,
         "kd_prior_sd": kd_sd,
         "fe3_fraction": float(fe3_fraction),
+        "fe3_source": melt_input.fe3_source,
         "geometry": geometry,
         "distance_range_um": list(rng_range) if rng_range else None,
         "radius_um": radius,
