@@ -1305,10 +1305,11 @@ def _restart_note(distance: np.ndarray, rows: np.ndarray, row_word: str) -> list
     if ok.sum() < 4:
         return []
     dd, rr = d[ok], rows[ok]
-    span = dd.max() - dd.min()
-    if span <= 0:
+    with np.errstate(over="ignore", invalid="ignore"):  # absurd values such as 1e308
+        span = dd.max() - dd.min()
+        steps = np.diff(dd)
+    if not (np.isfinite(span) and span > 0):
         return []
-    steps = np.diff(dd)
     # a fall of more than half the span in one step, in an otherwise increasing column
     falls = np.flatnonzero(steps < -0.5 * span)
     if not falls.size or (steps < 0).sum() > falls.size + 0.1 * steps.size:
