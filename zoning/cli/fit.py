@@ -164,10 +164,19 @@ def run(args: argparse.Namespace) -> int:
     from zoning.exceptions import FitError
     from zoning.fitting import fit_traverse
     from zoning.io import read_traverses
-    from zoning.io.results import format_report, write_fit_outputs
-    from zoning.workflow import read_keywords
+    from zoning.io.outputs import OutputFolder, check_output_dir
+    from zoning.io.results import fit_output_names, format_report, write_fit_outputs
+    from zoning.workflow import (
+        check_fittable,
+        check_sampler_settings,
+        input_problem,
+        read_keywords,
+    )
 
     source = Path(args.file)
+    problem = input_problem(source)
+    if problem:
+        raise ZoningError(problem)
     melt = parse_melt(args.melt)
     if not melt:
         raise ZoningError(
@@ -176,16 +185,23 @@ def run(args: argparse.Namespace) -> int:
             "--melt FeO=9.5 (olivine) or --melt Na2O=3.1 (plagioclase)."
         )
     distance_range = parse_range(args.distance_range)
+    check_sampler_settings(args.walkers, args.steps, args.seed)
+    out_dir = Path(args.out) if args.out else source.with_name(source.stem + "_fit")
+    check_output_dir(out_dir)
     traverses = read_traverses(source, **read_keywords(reading_options(args)))
     for traverse in traverses:
         for note in traverse.notes:
             if note.startswith(("sheet: read", "this traverse: ")):
                 print(f"{traverse.name}: {note}")
-    out_dir = Path(args.out) if args.out else source.with_name(source.stem + "_fit")
+    # Before any fit: every file the fit will write must be new or zoning's own.
+    output = OutputFolder(out_dir, kind="fit")
+    output.check(fit_output_names([t.name for t in traverses]))
     results = []
     failed = 0
     for traverse in traverses:
         try:
+            check_fittable(traverse, include_flagged=args.include_flagged,
+                           distance_range=distance_range, radius_um=args.radius_um)
             result = fit_traverse(
                 traverse,
                 melt=melt,
@@ -215,6 +231,8 @@ def run(args: argparse.Namespace) -> int:
             f"no traverse of {source} could be fitted (see the messages above); "
             "check the flagged spots, --range and --melt."
         )
-    written = write_fit_outputs(results, out_dir, protect=[source])
+    provenance = {"source": str(source.resolve()), "settings": dict(results[0].settings)}
+    written = write_fit_outputs(results, out_dir, protect=[source], provenance=provenance,
+                                output=output)
     print(f"wrote {len(written)} files to {out_dir}")
     return 1 if failed else 0
