@@ -50,6 +50,7 @@ import lmfit
 import numpy as np
 import pandas as pd
 from zoning.fitting.diagnostics import find_reversals, residual_runs, runs_test_z
+from zoning.fitting.methods import fit_methods
 from zoning.fitting.results import Estimate, FitResult
 from zoning.fitting.sampling import MIN_ESS, MIN_TAU_MULTIPLE, credible_band, run_ensemble
 
@@ -61,6 +62,7 @@ from zoning.exceptions import (
     ZoningError,
 )
 from zoning.partitioning import equilibrium_crystal
+from zoning.thermometry import THERMOMETERS
 from zoning.traverse import MINERALS, Traverse
 
 __all__ = ["fit_traverse", "DEFAULT_SIGMA", "DEFAULT_TRACE_SIGMA", "KD_PRIOR", "DEFAULT_N_STEPS"]
@@ -371,7 +373,8 @@ def _major_sigma(used, mineral, sigma):
     return out, f"default {DEFAULT_SIGMA[mineral]:g} mol% (common practice)"
 
 
-def _build_model(mineral, melt, kd, fe3_fraction, traces, geometry, temperature_c):
+def _build_model(mineral, melt, kd, fe3_fraction, traces, geometry, temperature_c,
+                 thermometer="helz_thornber_1987"):
     from zoning.models import CrystallizationModel
 
     return CrystallizationModel(
@@ -382,6 +385,7 @@ def _build_model(mineral, melt, kd, fe3_fraction, traces, geometry, temperature_
         traces=tuple(traces),
         geometry=geometry,
         temperature_c=temperature_c,
+        thermometer=thermometer,
     )
 
 
@@ -556,7 +560,7 @@ def fit_traverse(
     melt: Mapping[str, float],
     kd: float | None = None,
     kd_sd: float | None = None,
-    fe3_fraction: float = 0.10,
+    fe3_fraction: float | None = None,
     geometry: str = "sphere",
     distance_range: tuple[float, float] | None = None,
     radius_um: float | None = None,
@@ -571,6 +575,7 @@ def fit_traverse(
     n_walkers: int = 64,
     n_steps: int | None = None,
     progress: bool = False,
+    thermometer: str = "helz_thornber_1987",
 ) -> FitResult:
     """Fit a crystallization model to one traverse and sample its posterior.
 
@@ -591,7 +596,8 @@ def fit_traverse(
         1970), 25% of the mean for plagioclase, 10%/25% of a user Kd. Zero
         fixes Kd.
     fe3_fraction : float, optional
-        Melt Fe3+/FeT [fraction] (olivine).
+        Melt Fe3+/FeT [fraction] (olivine); default 0.10, recorded as the
+        default in the methods of the result.
     geometry : {"sphere", "cylinder", "slab"}, optional
         Growth geometry mapping distance to crystallized fraction.
     distance_range : (float, float), optional
@@ -626,6 +632,11 @@ def fit_traverse(
         default steps :data:`DEFAULT_N_STEPS` of the mineral.
     progress : bool, optional
         Show the sampler's progress bar.
+    thermometer : str, optional
+        Olivine: glass-MgO thermometer of the reported melt temperature
+        (:data:`zoning.thermometry.THERMOMETERS`, default Helz & Thornber
+        1987). Warns once (CalibrationRangeWarning) when the best-fit melt
+        path leaves its calibration range.
 
     Returns
     -------
@@ -700,8 +711,11 @@ def fit_traverse(
                 "the partitioning laws; got none. Give temperature_c (--temperature-c) or "
                 "fit without traces."
             )
+    fe3_source = "default" if fe3_fraction is None else "given"
+    fe3_fraction = 0.10 if fe3_fraction is None else fe3_fraction
     model = _build_model(
-        mineral, melt, kd, fe3_fraction, [c[1] for c in chosen], geometry, temperature_c
+        mineral, melt, kd, fe3_fraction, [c[1] for c in chosen], geometry, temperature_c,
+        thermometer,
     )
     specs = _spec_map(model)
     if kd is not None:
@@ -1009,7 +1023,9 @@ def fit_traverse(
         warn_list.append("robust (soft-L1) loss used: stray spots are down-weighted.")
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        model.profile(d, radius, strict=False, **prob.params(theta_best[None, :]))
+        best_out = model.profile(d, radius, strict=False, **prob.params(theta_best[None, :]))
+        if model.thermometer:  # the reported melt temperatures, parent to rim
+            THERMOMETERS[model.thermometer].check_range(best_out["melt_mgo_wt"])
     for w in caught:
         if issubclass(w.category, CalibrationRangeWarning):
             text = str(w.message)
@@ -1056,6 +1072,7 @@ def fit_traverse(
         "include_flagged": bool(include_flagged),
         "robust": bool(robust),
         "temperature_c": float("nan") if temperature_c is None else float(temperature_c),
+        "thermometer": model.thermometer,
         "seed": int(seed),
         "n_walkers": int(n_walkers),
         "n_steps": int(n_steps),
@@ -1083,6 +1100,10 @@ def fit_traverse(
         settings=settings,
         versions=_versions(),
         seed=int(seed),
+        methods=model.methods() + fit_methods(
+            mineral, kd_mean=kd0, kd_sd=kd_sd, kd_default=kd is None,
+            fe3_fraction=fe3_fraction, fe3_source=fe3_source,
+            sigma_scale=prob.sigma_scale),
     )
 
 

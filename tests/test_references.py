@@ -75,7 +75,7 @@ def test_every_citation_key_named_in_the_code_is_registered():
     # Modules name the laws they use as `citation = "key"` / CITATION(S) = (...).
     root = Path(references.__file__).resolve().parents[1]
     statement = re.compile(
-        r"""(?:citation|citations|CITATION\w*)\s*(?::[^=\n]*)?=\s*(\([^)]*\)|["'][^"']*["'])""")
+        r"""(?:citation|citations|CITATION\w*)\s*(?::[^=\n]*)?=\s*(\([^)]*\)|\{[^}]*\}|["'][^"']*["'])""")
     key = re.compile(r"""["']([a-z]+(?:_[a-z]+)*_\d{4}[a-z]?)["']""")
     found = set()
     for folder in ("zoning", "fitting", "io"):
@@ -84,3 +84,17 @@ def test_every_citation_key_named_in_the_code_is_registered():
                 found.update(key.findall(value))
     missing = sorted(k for k in found if k not in REFERENCES)
     assert not missing, missing
+
+
+def test_the_laws_name_registered_citations():
+    from zoning.partitioning import EXCHANGE_LAWS, make_trace_law
+    from zoning.thermometry import THERMOMETERS
+
+    for law in EXCHANGE_LAWS.values():
+        assert law.citation in REFERENCES
+    for mineral, element in (("olivine", "Ni"), ("plagioclase", "Sr"), ("plagioclase", "Mg")):
+        keys = make_trace_law(mineral, element).citations
+        assert keys and all(k in REFERENCES for k in keys)
+    assert make_trace_law("olivine", "Co", 1.5).citations == ()
+    for t in THERMOMETERS.values():
+        assert t.citation == t.name and t.citation in REFERENCES

@@ -25,6 +25,9 @@ __all__ = [
     "oxide_moles",
 ]
 
+#: Citation key (:mod:`zoning.references`) of the atomic weights (CIAAW 2021).
+CITATION = "prohaska_2022"
+
 #: Standard atomic weights [g/mol], IUPAC/CIAAW 2021 (conventional values for
 #: O, Mg and Si, whose standard atomic weights are intervals).
 ATOMIC_WEIGHTS: dict[str, float] = {
