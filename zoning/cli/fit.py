@@ -152,9 +152,14 @@ def run(args: argparse.Namespace) -> int:
     from zoning.exceptions import FitError
     from zoning.fitting import fit_traverse
     from zoning.io import read_traverses
-    from zoning.io.results import format_report, write_fit_outputs
+    from zoning.io.outputs import OutputFolder, check_output_dir
+    from zoning.io.results import fit_output_names, format_report, write_fit_outputs
+    from zoning.workflow import check_fittable, check_sampler_settings, input_problem
 
     source = Path(args.file)
+    problem = input_problem(source)
+    if problem:
+        raise ZoningError(problem)
     melt = parse_melt(args.melt)
     if not melt:
         raise ZoningError(
@@ -163,12 +168,19 @@ def run(args: argparse.Namespace) -> int:
             "--melt FeO=9.5 (olivine) or --melt Na2O=3.1 (plagioclase)."
         )
     distance_range = parse_range(args.distance_range)
-    traverses = read_traverses(source, mineral=args.mineral)
+    check_sampler_settings(args.walkers, args.steps, args.seed)
     out_dir = Path(args.out) if args.out else source.with_name(source.stem + "_fit")
+    check_output_dir(out_dir)
+    traverses = read_traverses(source, mineral=args.mineral)
+    # Before any fit: every file the fit will write must be new or zoning's own.
+    output = OutputFolder(out_dir, kind="fit")
+    output.check(fit_output_names([t.name for t in traverses]))
     results = []
     failed = 0
     for traverse in traverses:
         try:
+            check_fittable(traverse, include_flagged=args.include_flagged,
+                           distance_range=distance_range, radius_um=args.radius_um)
             result = fit_traverse(
                 traverse,
                 melt=melt,
@@ -199,6 +211,8 @@ def run(args: argparse.Namespace) -> int:
             f"no traverse of {source} could be fitted (see the messages above); "
             "check the flagged spots, --range and --melt."
         )
-    written = write_fit_outputs(results, out_dir, protect=[source])
+    provenance = {"source": str(source.resolve()), "settings": dict(results[0].settings)}
+    written = write_fit_outputs(results, out_dir, protect=[source], provenance=provenance,
+                                output=output)
     print(f"wrote {len(written)} files to {out_dir}")
     return 1 if failed else 0
