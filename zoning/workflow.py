@@ -247,6 +247,7 @@ FIT_OPTIONS: dict[str, tuple[str, Callable[[str, Any], Any]]] = {
     "seed": ("seed", _as_int),
     "walkers": ("n_walkers", _as_int),
     "steps": ("n_steps", _as_int),
+    "thermometer": ("thermometer", _as_str),
 }
 
 #: Project-file option -> (:func:`zoning.io.read_traverses` keyword, converter).

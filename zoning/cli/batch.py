@@ -86,6 +86,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     g.add_argument("--walkers", type=int, help="sampler walkers")
     g.add_argument("--steps", type=int, help="sampler steps")
     g.add_argument("--seed", type=int, help="random seed")
+    g.add_argument("--thermometer", choices=("helz_thornber_1987", "montierth_1995", "shea_2022"),
+                   help="olivine: glass MgO thermometer of the reported melt temperature")
     add_reading_options(
         p.add_argument_group("reading options (as for zoning inspect; replace the project "
                              "defaults)"), batch=True)
@@ -95,7 +97,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 _FIT_ARGS = ("kd", "kd_sd", "fe3", "geometry", "range", "radius_um", "sigma",
              "robust", "include_flagged", "free", "temperature_c", "walkers", "steps",
-             "seed")
+             "seed", "thermometer")
 
 
 def options_from_args(args: argparse.Namespace) -> dict:

@@ -120,6 +120,10 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--fe3", type=float,
                    help="melt Fe3+/FeT (default: from the melt FeO and Fe2O3 when both are "
                         "given, else 0.10)")
+    p.add_argument("--thermometer", default="helz_thornber_1987",
+                   choices=("helz_thornber_1987", "montierth_1995", "shea_2022"),
+                   help="olivine: glass MgO thermometer of the reported melt temperature "
+                        "(default helz_thornber_1987)")
     p.add_argument("--temperature-c", type=float,
                    help="temperature [°C] of the plagioclase Sr/Mg partitioning laws "
                         "(SrO/MgO profiles are fitted only when it is given)")
@@ -219,6 +223,7 @@ def run(args: argparse.Namespace) -> int:
                 seed=args.seed,
                 n_walkers=args.walkers,
                 n_steps=args.steps,
+                thermometer=args.thermometer,
             )
         except FitError as exc:
             failed += 1
