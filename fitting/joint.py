@@ -2116,5 +2116,8 @@ def _common_name(names: Sequence[str]) -> str:
     """Longest common leading part of the crystal names, trimmed ("sample" if none)."""
     import os
 
-    prefix = os.path.commonprefix(list(names)).strip(" _-.")
-    return prefix or "sample"
+    prefix = os.path.commonprefix(list(names))
+    if len(set(names)) > 1 and prefix and prefix[-1] not in " _-.":
+        cut = max(prefix.rfind(ch) for ch in " _-.")
+        prefix = prefix[: cut + 1] if cut >= 0 else ""
+    return prefix.strip(" _-.") or "sample"

@@ -78,7 +78,7 @@ def sample(*, n_hosts=6, antecryst=True, two_melts=False, n_spots=50, seed=0,
     if two_melts:
         group2 = []
         fc2 = np.concatenate([[0.0], rng.uniform(0.0, f_core_max, n_hosts - 1)])
-        for j, fc in enumerate(fc2):
+        for fc in fc2:
             nm = f"{name} ol{len(traverses) + 1}"
             t = dict(shared, melt_mg_number=mg_number - 0.08, f_rim=0.20, f_core=float(fc))
             traverses.append(crystal(nm, t, n_spots=n_spots, radius_um=rng.uniform(200, 450),

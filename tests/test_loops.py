@@ -211,7 +211,7 @@ def test_fractional_path_against_quadrature():
     for i in range(1, nodes.size):
         step, _ = quad(integrand, nodes[i - 1], nodes[i], epsabs=1e-13, epsrel=1e-12, limit=200)
         log_n[i] = log_n[i - 1] + step
-    f_nodes = np.array([f_of(t, t, ln) for t, ln in zip(nodes, log_n)])
+    f_nodes = np.array([f_of(t, t, ln) for t, ln in zip(nodes, log_n, strict=True)])
     assert np.all(np.diff(f_nodes) > 0) and f_nodes[-1] > fq.max()
     expected = []
     for v in fq:

@@ -61,6 +61,7 @@ else:  # pragma: no cover - Python 3.10
 __all__ = [
     "FIT_OPTIONS",
     "READ_OPTIONS",
+    "JOINT_OPTIONS",
     "OUTPUT_OPTIONS",
     "EXPORT_SUFFIXES",
     "SampleJob",
@@ -197,6 +198,16 @@ READ_OPTIONS: dict[str, tuple[str, Callable[[str, Any], Any]]] = {
     "checks": ("checks", _as_table),
 }
 
+#: Options of joint fits (:func:`zoning.fitting.fit_sample` keyword, converter);
+#: ``joint = true`` (in ``[defaults]`` or a sample table) fits every traverse of
+#: the sample's ``file``/``files`` together as the crystals of one sample.
+JOINT_OPTIONS: dict[str, tuple[str, Callable[[str, Any], Any]]] = {
+    "joint": ("joint", _as_bool),
+    "exclude": ("exclude", _as_names),
+    "joint_f_rim": ("f_rim", _as_str),
+    "joint_retention": ("retention", _as_str),
+}
+
 #: Options of the batch itself: which outputs to draw (both default true).
 OUTPUT_OPTIONS: dict[str, tuple[str, Callable[[str, Any], Any]]] = {
     "figures": ("figures", _as_bool),
@@ -204,11 +215,11 @@ OUTPUT_OPTIONS: dict[str, tuple[str, Callable[[str, Any], Any]]] = {
 }
 
 #: Keys only a sample table may hold.
-_SAMPLE_KEYS = ("file", "traverse")
+_SAMPLE_KEYS = ("file", "traverse", "files")
 
 
 def _valid_names(table_kind: str) -> list[str]:
-    names = sorted([*FIT_OPTIONS, *READ_OPTIONS, *OUTPUT_OPTIONS])
+    names = sorted([*FIT_OPTIONS, *READ_OPTIONS, *OUTPUT_OPTIONS, *JOINT_OPTIONS])
     if table_kind == "sample":
         names = sorted([*_SAMPLE_KEYS, *names])
     return names
@@ -241,7 +252,7 @@ def resolve_options(
         value of the wrong kind.
     """
     valid = _valid_names(table_kind)
-    converters = {**FIT_OPTIONS, **READ_OPTIONS, **OUTPUT_OPTIONS}
+    converters = {**FIT_OPTIONS, **READ_OPTIONS, **OUTPUT_OPTIONS, **JOINT_OPTIONS}
     out: dict[str, Any] = {}
     for key, value in options.items():
         if key not in valid:
@@ -252,6 +263,15 @@ def resolve_options(
             raise ProjectError(
                 f"unknown option {key!r} in {where}.{hint} Valid names: {', '.join(valid)}."
             )
+        if key == "files":
+            if (not isinstance(value, (list, tuple)) or not value
+                    or not all(isinstance(v, str) and v.strip() for v in value)):
+                raise ProjectError(
+                    f"option 'files' in {where} must be a list of file names in quotes, e.g. "
+                    f'files = ["FRL-21_ol1.csv", "FRL-21_ol2.csv"]; got {value!r}.'
+                )
+            out[key] = list(value)
+            continue
         if key in _SAMPLE_KEYS:
             if not isinstance(value, str) or not value.strip():
                 raise ProjectError(
@@ -297,10 +317,15 @@ class SampleJob:
     fit_options: Mapping[str, Any] = field(default_factory=dict)
     figures: bool = True
     report: bool = True
+    files: tuple[str, ...] = ()
+    joint: bool = False
+    joint_options: Mapping[str, Any] = field(default_factory=dict)
 
     def __post_init__(self):
         object.__setattr__(self, "read_options", dict(self.read_options))
         object.__setattr__(self, "fit_options", dict(self.fit_options))
+        object.__setattr__(self, "files", tuple(self.files) or (self.file,))
+        object.__setattr__(self, "joint_options", dict(self.joint_options))
 
     def settings(self) -> dict[str, Any]:
         """Return the resolved settings as a JSON-ready dictionary."""
@@ -311,6 +336,8 @@ class SampleJob:
             "fit": _jsonable(self.fit_options),
             "figures": self.figures,
             "report": self.report,
+            **({"files": list(self.files), "joint": _jsonable(self.joint_options)}
+               if self.joint else {}),
         }
 
 
@@ -349,7 +376,7 @@ class Project:
     @property
     def input_files(self) -> tuple[str, ...]:
         """Every input file of the project (never overwritten)."""
-        files = {j.file for j in self.jobs}
+        files = {f for j in self.jobs for f in j.files}
         if Path(self.path).is_file():
             files.add(str(Path(self.path).resolve()))
         return tuple(sorted(files))
@@ -362,8 +389,11 @@ def _split(options: Mapping[str, Any]) -> tuple[dict, dict, dict]:
     return read, fit, out
 
 
-def _make_job(name: str, file: Path, traverse: str, options: Mapping[str, Any]) -> SampleJob:
+def _make_job(name: str, file: Path, traverse: str, options: Mapping[str, Any],
+              files: tuple[Path, ...] = ()) -> SampleJob:
     read, fit, out = _split(options)
+    joint = {JOINT_OPTIONS[k][0]: v for k, v in options.items() if k in JOINT_OPTIONS}
+    is_joint = bool(joint.pop("joint", False))
     return SampleJob(
         name=name,
         file=str(file),
@@ -372,6 +402,9 @@ def _make_job(name: str, file: Path, traverse: str, options: Mapping[str, Any]) 
         fit_options=fit,
         figures=out.get("figures", True),
         report=out.get("report", True),
+        files=tuple(str(f) for f in files),
+        joint=is_joint,
+        joint_options=joint,
     )
 
 
@@ -441,22 +474,40 @@ def read_project(
         if not isinstance(table, Mapping):
             raise ProjectError(f"{where} must be a table with at least file = \"...\".")
         opts = resolve_options(table, where=where, table_kind="sample")
-        if "file" not in opts:
+        if "file" not in opts and "files" not in opts:
             raise ProjectError(
                 f"{where} has no 'file'. Add file = \"<export>.csv\" "
-                "(relative to the project file)."
+                "(relative to the project file), or files = [...] for a joint sample."
             )
-        file = (base / opts.pop("file")).resolve()
-        if not file.is_file():
+        if "file" in opts and "files" in opts:
             raise ProjectError(
-                f"{where}: file {str(file)!r} not found. Paths are relative to the project "
-                f"file's folder {str(base)!r}."
+                f"{where} has both 'file' and 'files'; give one of them (files = [...] lists "
+                "every export of a joint sample)."
             )
+        listed = opts.pop("files", None) or [opts.pop("file")]
+        paths = []
+        for entry in listed:
+            file = (base / entry).resolve()
+            if not file.is_file():
+                raise ProjectError(
+                    f"{where}: file {str(file)!r} not found. Paths are relative to the "
+                    f"project file's folder {str(base)!r}."
+                )
+            paths.append(file)
         traverse = opts.pop("traverse", "")
         merged = {**defaults, **opts}
         if "melt" in defaults and "melt" in opts:
             merged["melt"] = {**defaults["melt"], **opts["melt"]}
-        jobs.append(_make_job(str(name), file, traverse, merged))
+        if len(paths) > 1 and not merged.get("joint", False):
+            raise ProjectError(
+                f"{where} lists several files but is not a joint sample; add joint = true to "
+                "fit their crystals together, or give one sample table per file."
+            )
+        if not merged.get("joint", False) and any(
+                k in opts for k in ("exclude", "joint_f_rim", "joint_retention")):
+            raise ProjectError(
+                f"{where} sets joint-fit options without joint = true; add joint = true.")
+        jobs.append(_make_job(str(name), paths[0], traverse, merged, tuple(paths)))
     return Project(path=str(path.resolve()), jobs=tuple(jobs), defaults=defaults)
 
 
@@ -532,7 +583,8 @@ def fingerprint(job: SampleJob) -> str:
 
     h = hashlib.sha256()
     try:
-        h.update(Path(job.file).read_bytes())
+        for f in job.files:
+            h.update(Path(f).read_bytes())
     except OSError:
         return ""
     h.update(json.dumps(job.settings(), sort_keys=True).encode())
@@ -730,6 +782,8 @@ def _fit_and_write(job: SampleJob, tmp: Path):
     if tmp.exists():
         shutil.rmtree(tmp)
     tmp.mkdir(parents=True)
+    if job.joint:
+        return _fit_and_write_joint(job, tmp)
     traverse = _select_traverse(job)
     result = fit_traverse(traverse, **job.fit_options)
     write_fit_json(result, tmp / "fit.json")
@@ -749,6 +803,51 @@ def _fit_and_write(job: SampleJob, tmp: Path):
     return row, result
 
 
+def _fit_and_write_joint(job: SampleJob, tmp: Path):
+    """Fit every traverse of the sample's files as one sample (joint fit)."""
+    from zoning.fitting import fit_sample
+    from zoning.io.joint_results import (
+        crystals_table,
+        sample_summary_table,
+        sample_to_dict,
+    )
+    from zoning.io.writers import standard_metadata, unique_names, write_csv, write_json
+
+    read_traverses = _reader()
+    traverses = [t for f in job.files for t in read_traverses(f, **job.read_options)]
+    if job.traverse:
+        traverses = [t for t in traverses if t.name == job.traverse] or traverses
+    kw = dict(job.fit_options)
+    if "n_walkers" in kw:
+        kw["n_chains"] = kw.pop("n_walkers")
+    if "n_steps" in kw:
+        kw["n_sweeps"] = kw.pop("n_steps")
+    result = fit_sample(traverses, name=job.name, **kw, **job.joint_options)
+    write_json(tmp / "fit.json", sample_to_dict(result))
+    write_csv(crystals_table(result), tmp / "crystals.csv",
+              metadata=standard_metadata(f"crystals of the joint fit of {job.name}"))
+    for c, sub in zip(result.crystals, unique_names([c.name for c in result.crystals]),
+                      strict=True):
+        if not c.spots.empty:
+            write_csv(c.spots, tmp / sub / "profile.csv",
+                      metadata=standard_metadata(f"profile of crystal {c.name}"))
+    if job.figures or job.report:
+        from zoning.io import joint_figures
+
+        drawn = joint_figures.sample_figures(result)
+        if job.figures:
+            from zoning.io.figures import save_figure
+
+            for stem, fig in drawn.items():
+                save_figure(fig, tmp / stem)
+        if job.report:
+            joint_figures.write_sample_report(result, tmp / "report.pdf",
+                                              figures=list(drawn.values()))
+    row = sample_summary_table([result]).iloc[0].to_dict()
+    row["sample"] = job.name
+    return row, result
+
+
 def _move_into_place(tmp: Path, folder: Path) -> None:
     """Replace ``folder`` by ``tmp`` with renames (never half-written)."""
     old = None
@@ -763,6 +862,13 @@ def _move_into_place(tmp: Path, folder: Path) -> None:
 
 
 def _outputs_present(job: SampleJob, folder: Path) -> bool:
+    if job.joint:
+        names = ["fit.json", "crystals.csv"]
+        if job.figures:
+            names += [f"{n}.{ext}" for n in ("sample", "crystals") for ext in ("png", "pdf")]
+        if job.report:
+            names.append("report.pdf")
+        return all((folder / n).is_file() for n in names)
     names = ["fit.json", "profile.csv"]
     if job.figures:
         names += [f"{n}.{ext}" for n in ("profile", "melt_path", "posterior")
@@ -1009,6 +1115,11 @@ def _summary_frame(project: Project, outcomes: Mapping[str, SampleOutcome]) -> p
         if col not in df:
             df[col] = ""
         df[col] = df[col].fillna("")
+    for col in ("n_spots", "n_used", "n_crystals", "n_antecrysts"):
+        # Counts stay integers when some rows lack them (failed samples, or
+        # single fits beside joint samples): nullable integers, blank when absent.
+        if col in df:
+            df[col] = pd.to_numeric(df[col], errors="coerce").round().astype("Int64")
     order = ["sample", "mineral", "n_spots", "n_used"]
     for q in SUMMARY_QUANTITIES:
         order += [q, f"{q}_lo95", f"{q}_hi95", f"{q}_constrained"]
@@ -1027,6 +1138,18 @@ def _write_summary(
     df = _summary_frame(project, outcomes)
     meta = {"project": project.path, "samples": str(len(project.jobs))}
     write_csv(df, out / "summary.csv", metadata=meta, protect=tuple(inputs))
+    tables = []
+    for j in project.jobs:
+        o = outcomes.get(j.name)
+        if j.joint and o is not None and o.status != "failed" and o.folder:
+            try:
+                tables.append(pd.read_csv(Path(o.folder) / "crystals.csv", comment="#"))
+            except (OSError, ValueError):
+                pass
+    if tables:
+        write_csv(pd.concat(tables, ignore_index=True), out / "crystals.csv",
+                  metadata={**meta, "content": "one row per crystal of the joint samples"},
+                  protect=tuple(inputs))
     _write_xlsx(df, out / "summary.xlsx", protect=tuple(inputs))
     ok = df[df["error"] == ""] if "error" in df else df
     if len(ok):

@@ -95,7 +95,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
             "the crystallized fraction at the rim and r with 95% bands."
         ),
     )
-    p.add_argument("file", help="microprobe export (CSV, TXT or XLSX)")
+    p.add_argument("file", nargs="+",
+                   help="microprobe export(s) (CSV, TXT or XLSX); with --joint every traverse "
+                        "of every file is one crystal of the sample")
     p.add_argument("--mineral", choices=("olivine", "plagioclase"),
                    help="analysed mineral (default: detected from the analyses)")
     p.add_argument("--melt", action="append", metavar="OXIDE=WT",
@@ -123,10 +125,23 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--free", metavar="NAMES",
                    help="extra free parameters, comma-separated: f_core,growth_exponent,"
                         "core_offset_um")
-    p.add_argument("--walkers", type=int, default=64, help="sampler walkers (default 64)")
+    p.add_argument("--walkers", type=int,
+                   help="sampler walkers (default 64; with --joint: chains, default 32)")
     p.add_argument("--steps", type=int,
                    help="sampler steps including burn-in (default 600 olivine, "
                         "2000 plagioclase)")
+    p.add_argument("--joint", action="store_true",
+                   help="fit all crystals together as one sample: shared parent melt, Kd and "
+                        "r, per-crystal F_core, antecryst test")
+    p.add_argument("--exclude", metavar="NAMES",
+                   help="with --joint: crystals to leave out, comma-separated traverse names")
+    p.add_argument("--joint-f-rim", choices=("shared", "per_crystal"), default="shared",
+                   help="with --joint: one F at the rim for all crystals (default) or one each")
+    p.add_argument("--joint-retention", choices=("shared", "hierarchical"), default="shared",
+                   help="with --joint: one r for the sample (default) or r per crystal from "
+                        "a population (hierarchical)")
+    p.add_argument("--name", help="with --joint: sample name (default: common part of the "
+                   "traverse names)")
     p.add_argument("--out", help="output folder (default: <file name>_fit)")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     p.set_defaults(run=run)
@@ -150,7 +165,8 @@ def run(args: argparse.Namespace) -> int:
     from zoning.io import read_traverses
     from zoning.io.results import format_report, write_fit_outputs
 
-    source = Path(args.file)
+    sources = [Path(f) for f in args.file]
+    source = sources[0]
     melt = parse_melt(args.melt)
     if not melt:
         raise ZoningError(
@@ -159,28 +175,25 @@ def run(args: argparse.Namespace) -> int:
             "--melt FeO=9.5 (olivine) or --melt Na2O=3.1 (plagioclase)."
         )
     distance_range = parse_range(args.distance_range)
-    traverses = read_traverses(source, mineral=args.mineral)
+    traverses = [t for s in sources for t in read_traverses(s, mineral=args.mineral)]
     out_dir = Path(args.out) if args.out else source.with_name(source.stem + "_fit")
+    common = dict(
+        melt=melt, kd=args.kd, kd_sd=args.kd_sd, fe3_fraction=args.fe3,
+        geometry=args.geometry, distance_range=distance_range, radius_um=args.radius_um,
+        free=_free(args.free), sigma=args.sigma, include_flagged=args.include_flagged,
+        robust=args.robust, temperature_c=args.temperature_c, seed=args.seed,
+    )
+    if args.joint:
+        return _run_joint(args, traverses, common, out_dir, sources)
+    if args.exclude:
+        raise ZoningError("--exclude applies to joint fits only; add --joint.")
     results = []
     failed = 0
     for traverse in traverses:
         try:
             result = fit_traverse(
-                traverse,
-                melt=melt,
-                kd=args.kd,
-                kd_sd=args.kd_sd,
-                fe3_fraction=args.fe3,
-                geometry=args.geometry,
-                distance_range=distance_range,
-                radius_um=args.radius_um,
-                free=_free(args.free),
-                sigma=args.sigma,
-                include_flagged=args.include_flagged,
-                robust=args.robust,
-                temperature_c=args.temperature_c,
-                seed=args.seed,
-                n_walkers=args.walkers,
+                traverse, **common,
+                n_walkers=64 if args.walkers is None else args.walkers,
                 n_steps=args.steps,
             )
         except FitError as exc:
@@ -191,9 +204,40 @@ def run(args: argparse.Namespace) -> int:
         print(format_report(result))
     if not results:
         raise ZoningError(
-            f"no traverse of {source} could be fitted (see the messages above); "
-            "check the flagged spots, --range and --melt."
+            f"no traverse of {', '.join(map(str, sources))} could be fitted (see the messages "
+            "above); check the flagged spots, --range and --melt."
         )
-    written = write_fit_outputs(results, out_dir, protect=[source])
+    written = write_fit_outputs(results, out_dir, protect=sources)
     print(f"wrote {len(written)} files to {out_dir}")
     return 1 if failed else 0
+
+
+def _run_joint(args, traverses, common, out_dir, sources) -> int:
+    """Fit every traverse as one crystal of one sample and write the joint outputs."""
+    from zoning.fitting import fit_sample
+    from zoning.io.joint_results import format_sample_report, write_sample_outputs
+
+    if len(traverses) < 2:
+        raise ZoningError(
+            f"--joint needs at least two crystals; {', '.join(map(str, sources))} hold "
+            f"{len(traverses)} traverse. Give more files, or fit without --joint."
+        )
+    result = fit_sample(
+        traverses, **common, name=args.name, f_rim=args.joint_f_rim,
+        retention=args.joint_retention, exclude=_free(args.exclude),
+        n_chains=32 if args.walkers is None else args.walkers, n_sweeps=args.steps,
+    )
+    print(format_sample_report(result))
+    written = write_sample_outputs([result], out_dir, protect=sources)
+    from zoning.io import joint_figures
+    from zoning.io.figures import save_figure
+    from zoning.io.writers import unique_names
+
+    folder = out_dir / unique_names([result.name])[0]
+    drawn = joint_figures.sample_figures(result)
+    for stem, fig in drawn.items():
+        written += list(save_figure(fig, folder / stem).values())
+    written.append(joint_figures.write_sample_report(result, folder / "report.pdf",
+                                                     figures=list(drawn.values())))
+    print(f"wrote {len(written)} files to {out_dir}")
+    return 0
