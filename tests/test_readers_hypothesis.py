@@ -18,7 +18,7 @@ from zoning.io.readers import read_export
 
 from zoning.exceptions import ProfileFormatError
 
-from ._tolerances import RTOL_IDENTITY
+from _tolerances import RTOL_IDENTITY
 
 SETTINGS = settings(max_examples=100, deadline=None,
                     suppress_health_check=[HealthCheck.function_scoped_fixture,
