@@ -101,12 +101,22 @@ class FitResult:
         ``<oxide>_lo95``, ``<oxide>_hi95`` per trace; melt path columns
         ``melt_ratio``, ``melt_<oxide>_wt``, ``temperature_c``.
     comparison : pandas.DataFrame
-        One row per model (``fractional``, ``equilibrium``, ``retention``):
-        ``model``, ``chi_square``, ``n_params``, ``aic``, ``bic``.
+        One row per compared model (growth plus the processes the problem
+        can fit, each with r free, r = 0 and r = 1): ``model`` (e.g.
+        ``"growth r free"``, ``"growth+section+diffusion r=0"``),
+        ``processes`` (e.g. ``"growth+diffusion"``), ``retention``
+        (``"free"``, ``"0"``, ``"1"``), ``chi_square`` (Kd prior term
+        included), ``n_params``, ``aic``, ``bic``, ``delta_bic`` (to the
+        lowest BIC), ``weight`` (BIC weight, sums to 1).
     preferred_model : str
-        Name of the model with the lowest BIC.
+        ``model`` name of the lowest BIC when it beats the runner-up by at
+        least 2 BIC units (Kass & Raftery 1995); ``"no clear preference"``
+        otherwise; ``""`` when a reversal voids every closed-system model.
+    delta_bic : float
+        BIC of the runner-up minus the lowest BIC (NaN with one model).
     chi_square, reduced_chi_square : float
-        Of the best fit of the full (retention) model.
+        Data chi-square of the best fit of the sampled model (r free, every
+        process fitted) at the stated sigma.
     n_spots, n_used : int
         Rows in the traverse; spots used in the fit.
     diagnostics : mapping of str to float
@@ -142,6 +152,7 @@ class FitResult:
     curve: pd.DataFrame
     comparison: pd.DataFrame
     preferred_model: str
+    delta_bic: float = float("nan")
     chi_square: float = float("nan")
     reduced_chi_square: float = float("nan")
     n_spots: int = 0

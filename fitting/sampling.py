@@ -19,11 +19,32 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import emcee
 import numpy as np
 
-__all__ = ["ChainSummary", "run_ensemble", "credible_band"]
+from zoning.exceptions import FitError, ZoningError
+
+if TYPE_CHECKING:
+    from zoning.fitting.problem import FitProblem
+
+__all__ = [
+    "ChainSummary",
+    "Posterior",
+    "run_ensemble",
+    "sample_posterior",
+    "credible_band",
+    "DEFAULT_N_STEPS",
+    "BURN_FRACTION",
+]
+
+#: Default sampler steps per mineral. Plagioclase posteriors (melt Ca#,
+#: KD(Ca-Na) and F) are skewed and mix more slowly: with 600 steps their 95%
+#: bands came out too narrow in the coverage benchmark (benchmarks/fit.py).
+DEFAULT_N_STEPS = {"olivine": 600, "plagioclase": 2000}
+#: Share of the sampler steps discarded as burn-in.
+BURN_FRACTION = 0.25
 
 #: Minimum effective sample size per quantity before the chain is trusted.
 MIN_ESS = 1000.0
@@ -309,3 +330,161 @@ def credible_band(
     if at_upper:
         return float(med), float(np.percentile(x, 5.0)), float(upper), "lower_limit"
     return float(med), float(lo), float(hi), "central"
+
+
+# --- stage 4 of a fit: sample the chosen model ------------------------------------
+
+
+@dataclass(frozen=True, eq=False)
+class Posterior:
+    """Posterior draws of one model, in its free parameters.
+
+    Parameters
+    ----------
+    chain : ChainSummary
+        The sampler output (sampler coordinates) and diagnostics.
+    flat : ndarray, shape (k, p)
+        Every post-burn-in draw, in the problem's free parameters.
+    samples : ndarray, shape (k', p)
+        Thinned draws, in the problem's free parameters.
+    short : tuple of str
+        Parameters whose chain is too short (ESS or length in tau).
+    message : str
+        Plain-language remedy when ``short`` is not empty, else "".
+    """
+
+    chain: ChainSummary
+    flat: np.ndarray
+    samples: np.ndarray
+    short: tuple[str, ...] = ()
+    message: str = ""
+
+
+def sampler_settings(mineral: str, n_walkers: int, n_steps: int | None) -> tuple[int, int]:
+    """Check and complete the sampler settings; returns (n_walkers, n_steps)."""
+    n_walkers = int(n_walkers)
+    n_steps = int(DEFAULT_N_STEPS[mineral] if n_steps is None else n_steps)
+    if n_steps < 100:
+        raise ZoningError(
+            f"n_steps must be at least 100; got {n_steps}. Use e.g. --steps 600."
+        )
+    return n_walkers, n_steps
+
+
+def laplace_covariance(prob: FitProblem, u: np.ndarray) -> np.ndarray | None:
+    """Covariance (J^T J)^-1 at the best fit, in sampler coordinates ``u``.
+
+    Forward and backward differences come from one batched call; each
+    column uses whichever is finite (the best fit may sit on a bound or next
+    to the largest reachable F). Returns None when no usable approximation
+    exists; the sampler then starts from a small sphere instead.
+    """
+    lo, hi = prob.sampler_bounds()
+    h = 1e-6 * (hi - lo)
+    p = u.size
+    batch = prob.from_sampler(np.vstack([u, u + np.diag(h), u - np.diag(h)]))
+    inside = np.all((batch >= prob.lower) & (batch <= prob.upper), axis=1)
+    z = np.full((batch.shape[0], prob.n_data + 1), np.nan)
+    if inside[0]:
+        z[inside] = prob.residuals(prob.params(batch[inside]), int(inside.sum()))
+    forward = (z[1 : p + 1] - z[0]) / h[:, None]
+    backward = (z[0] - z[p + 1 :]) / h[:, None]
+    ok_f = np.all(np.isfinite(forward), axis=1)
+    jac = np.where(ok_f[:, None], forward, backward)
+    if not np.all(np.isfinite(jac)):
+        return None
+    # Invert the Fisher matrix in range-normalised coordinates. A direction
+    # the data do not inform (e.g. retention when F at the rim is ~0) has a
+    # near-zero eigenvalue: give it a variance of the whole prior range, never
+    # the zero variance a pseudo-inverse would give (the walkers would then
+    # start, and stay, on one value and the band would look precise).
+    span = hi - lo
+    scaled = jac * span[:, None]
+    try:
+        eigval, eigvec = np.linalg.eigh(scaled @ scaled.T)
+    except np.linalg.LinAlgError:
+        return None
+    variance = 1.0 / np.maximum(eigval, 1.0)
+    return (eigvec * variance) @ eigvec.T * np.outer(span, span)
+
+
+def sample_posterior(
+    problem: FitProblem,
+    theta_best: np.ndarray,
+    *,
+    n_walkers: int,
+    n_steps: int,
+    seed: int,
+    progress: bool = False,
+) -> Posterior:
+    """Sample the posterior of ``problem`` starting at its best fit (stage 4).
+
+    Parameters
+    ----------
+    problem : FitProblem
+        The chosen model (its free parameters are sampled).
+    theta_best : ndarray, shape (p,)
+        Its best fit.
+    n_walkers, n_steps : int
+        Walkers (raised to at least 2 p + 2, made even) and steps, burn-in
+        (:data:`BURN_FRACTION`) included.
+    seed : int
+        Seed of the sampler.
+    progress : bool, optional
+        Show the sampler's progress bar.
+
+    Returns
+    -------
+    Posterior
+
+    Raises
+    ------
+    zoning.exceptions.FitError
+        When the sampler cannot start (e.g. the best fit at the edge of what
+        the melt can reach).
+    """
+    k_free = len(problem.free)
+    n_walkers = max(int(n_walkers), 2 * k_free + 2)
+    n_walkers += n_walkers % 2
+    burn_in = int(n_steps * BURN_FRACTION)
+    u_best = problem.to_sampler(theta_best)[0]
+    u_lower, u_upper = problem.sampler_bounds()
+    try:
+        chain = run_ensemble(
+            problem.log_prob_sampler,
+            u_best,
+            u_lower,
+            u_upper,
+            n_walkers=n_walkers,
+            n_steps=n_steps,
+            burn_in=burn_in,
+            seed=seed,
+            covariance=laplace_covariance(problem, u_best),
+            progress=progress,
+        )
+    except (ValueError, np.linalg.LinAlgError) as exc:
+        raise FitError(
+            f"posterior sampling of traverse {problem.traverse.name!r} failed ({exc}); the "
+            "best fit may sit at the edge of what the melt can reach. Check --melt and "
+            "--range, or try another --seed or more --walkers."
+        ) from exc
+    samples = problem.from_sampler(chain.thinned)
+    flat = problem.from_sampler(chain.flat)
+    short = tuple(
+        n
+        for n, e, t in zip(problem.free, chain.ess, chain.tau, strict=True)
+        if e < MIN_ESS or (n_steps - burn_in) < MIN_TAU_MULTIPLE * t
+    )
+    message = ""
+    if short:
+        post_needed = max(
+            MIN_TAU_MULTIPLE * float(np.max(chain.tau)),
+            MIN_ESS * float(np.max(chain.tau)) / n_walkers,
+        )
+        need = int(np.ceil(1.25 * post_needed / (1.0 - BURN_FRACTION) / 100.0) * 100)
+        message = (
+            f"posterior chain too short for {', '.join(short)} (effective sample size "
+            f"{float(np.min(chain.ess)):.0f}, autocorrelation time "
+            f"{float(np.max(chain.tau)):.0f} steps); run longer: --steps {need}."
+        )
+    return Posterior(chain=chain, flat=flat, samples=samples, short=short, message=message)

@@ -32,6 +32,7 @@ __all__ = [
     "write_fit_outputs",
     "format_report",
     "SUMMARY_QUANTITIES",
+    "SUMMARY_TAIL",
     "CAUTIONS",
 ]
 
@@ -46,6 +47,9 @@ SUMMARY_QUANTITIES = (
     "melt_mgo_wt",
     "melt_cao_wt",
 )
+
+#: Columns of the summary table after the quantities, in order.
+SUMMARY_TAIL = ("reduced_chi_square", "preferred_model", "delta_bic", "warnings")
 
 _RATIO = {"olivine": "melt_mg_number", "plagioclase": "melt_ca_number"}
 _OXIDE = {"olivine": "melt_mgo_wt", "plagioclase": "melt_cao_wt"}
@@ -98,7 +102,9 @@ def summary_table(results: Iterable[Any]) -> pd.DataFrame:
         quantity of :data:`SUMMARY_QUANTITIES` present in any result:
         ``<name>`` (best value), ``<name>_lo95``, ``<name>_hi95``,
         ``<name>_constrained``; then ``reduced_chi_square``,
-        ``preferred_model``, ``warnings`` (``"; "``-joined). Quantities a
+        ``preferred_model`` (a model of the comparison, "no clear
+        preference" or "" when a reversal voids the fit), ``delta_bic``
+        (BIC of the runner-up minus the best), ``warnings`` (``"; "``-joined). Quantities a
         result does not have are NaN (and empty for ``_constrained``).
     """
     results = list(results)
@@ -119,12 +125,13 @@ def summary_table(results: Iterable[Any]) -> pd.DataFrame:
             row[f"{q}_constrained"] = bool(e.constrained) if e is not None else None
         row["reduced_chi_square"] = float(r.reduced_chi_square)
         row["preferred_model"] = r.preferred_model
+        row["delta_bic"] = float(getattr(r, "delta_bic", math.nan))
         row["warnings"] = "; ".join(r.warnings)
         rows.append(row)
     columns = ["sample", "mineral", "n_spots", "n_used"]
     for q in quantities:
         columns += [q, f"{q}_lo95", f"{q}_hi95", f"{q}_constrained"]
-    columns += ["reduced_chi_square", "preferred_model", "warnings"]
+    columns += list(SUMMARY_TAIL)
     return pd.DataFrame(rows, columns=columns)
 
 
@@ -166,6 +173,7 @@ def fit_to_dict(result: Any) -> dict[str, Any]:
         "chi_square": result.chi_square,
         "reduced_chi_square": result.reduced_chi_square,
         "preferred_model": result.preferred_model,
+        "delta_bic": float(getattr(result, "delta_bic", math.nan)),
         "comparison": result.comparison,
         "parameter_names": list(result.parameter_names),
         "correlation": np.asarray(result.correlation),

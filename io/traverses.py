@@ -369,7 +369,7 @@ def _build(raw, *, mineral, orientation, core_position_um, checks, iron, sheet) 
     if hint is not None:
         decision = locate_core(position, spots[major].to_numpy(float), usable=ok,
                                orientation=hint[0], core_position_um=hint[1], record=record)
-        decision = replace(decision, basis=hint[2])
+        decision = replace(decision, basis=hint[2], confidence="high")
     else:
         decision = locate_core(position, spots[major].to_numpy(float), usable=ok,
                                orientation=orientation, core_position_um=core_position_um,
@@ -417,4 +417,6 @@ def _build(raw, *, mineral, orientation, core_position_um, checks, iron, sheet) 
         core_position_um=decision.core_position_um,
         notes=tuple(notes),
         settings=run_settings,
+        orientation_confidence=decision.confidence,
+        orientation_basis=decision.basis,
     )

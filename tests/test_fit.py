@@ -114,8 +114,12 @@ def test_result_fields_are_complete(recovered):
     assert r.samples.shape[1] == p and r.correlation.shape == (p, p)
     assert not r.samples.flags.writeable
     np.testing.assert_allclose(np.diag(r.correlation), 1.0)
-    assert list(r.comparison["model"]) == ["fractional", "equilibrium", "retention"]
-    assert r.preferred_model == r.comparison.loc[r.comparison["bic"].idxmin(), "model"]
+    assert list(r.comparison["model"][:3]) == ["growth r free", "growth r=0", "growth r=1"]
+    assert {"processes", "retention", "delta_bic", "weight"} <= set(r.comparison.columns)
+    assert r.comparison["weight"].sum() == pytest.approx(1.0)
+    best = r.comparison.loc[r.comparison["bic"].idxmin(), "model"]
+    assert r.preferred_model in (best, "no clear preference")
+    assert (r.preferred_model == best) == (r.delta_bic >= 2.0)
     spots = r.spots
     assert len(spots) == r.n_spots
     assert (spots["model_lo95"] <= spots["model"] + 1e-9).all()

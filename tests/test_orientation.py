@@ -154,3 +154,24 @@ def test_few_spots_and_unknown_positions():
     assert d.orientation == "core-to-rim" and "too few usable spots" in d.basis
     d = locate_core([np.nan, np.nan], [80.0, 79.0])
     assert np.isnan(d.distance_um).all() and "positions unknown" in d.basis
+
+
+def test_fit_refuses_an_uncertain_orientation_before_fitting():
+    import pandas as pd
+    from zoning.fitting import fit_traverse
+
+    from zoning import Traverse
+    from zoning.exceptions import OrientationUncertainError, ZoningError
+
+    spots = pd.DataFrame({"distance_um": np.arange(0, 50.0, 5.0), "fo": np.full(10, 85.0),
+                          "status": "ok", "reason": ""})
+    tr = Traverse("FRL-X1", "FRL-X1.csv", "olivine", spots, orientation_confidence="uncertain",
+                  orientation_basis="the Fo profile is flat")
+    with pytest.raises(OrientationUncertainError, match="the Fo profile is flat") as info:
+        fit_traverse(tr, melt={"FeO": 9.5})
+    message = str(info.value)
+    assert "--orientation core-to-rim" in message and "--core-um" in message
+    assert 'orientation = "core-to-rim"' in message and "core_um" in message
+    assert isinstance(info.value, ZoningError) and isinstance(info.value, ValueError)
+    with pytest.raises(ValueError, match="orientation_confidence must be one of"):
+        Traverse("FRL-X1", "FRL-X1.csv", "olivine", spots, orientation_confidence="sure")

@@ -18,13 +18,12 @@ import numpy as np
 import openpyxl
 import pandas as pd
 import pytest
+from _tolerances import RTOL_IDENTITY
 from numpy.testing import assert_allclose
 from zoning.io._columns import OXIDES
 from zoning.io.readers import RawTable, read_export
 
 from zoning.exceptions import ProfileFormatError
-
-from _tolerances import RTOL_IDENTITY
 
 COLUMNS = ["SiO2", "TiO2", "Al2O3", "Cr2O3", "Fe2O3", "FeO", "MnO", "MgO", "NiO", "CaO",
            "Na2O", "K2O"]

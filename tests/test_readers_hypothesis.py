@@ -13,12 +13,11 @@ import math
 
 import hypothesis.strategies as st
 import numpy as np
+from _tolerances import RTOL_IDENTITY
 from hypothesis import HealthCheck, given, settings
 from zoning.io.readers import read_export
 
 from zoning.exceptions import ProfileFormatError
-
-from _tolerances import RTOL_IDENTITY
 
 SETTINGS = settings(max_examples=100, deadline=None,
                     suppress_health_check=[HealthCheck.function_scoped_fixture,

@@ -14,6 +14,7 @@ __all__ = [
     "ModelDomainError",
     "FitError",
     "ProjectError",
+    "OrientationUncertainError",
     "ZoningWarning",
     "DataQualityWarning",
     "ConvergenceWarning",
@@ -54,6 +55,16 @@ class FitError(ZoningError, RuntimeError):
 
 class ProjectError(ZoningError, ValueError):
     """A project file (TOML) or batch request is malformed."""
+
+
+class OrientationUncertainError(ZoningError, ValueError):
+    """The orientation or core of a traverse is uncertain and was not confirmed.
+
+    Raised before any fitting when the evidence for the orientation is weak
+    or disagrees (see :mod:`zoning.orientation`). The message states the
+    evidence and the command-line options and project-file keys that
+    confirm the orientation.
+    """
 
 
 class ZoningWarning(UserWarning):

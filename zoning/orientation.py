@@ -34,10 +34,17 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.ndimage import median_filter
 
-from zoning.exceptions import ProfileFormatError
+from zoning.exceptions import OrientationUncertainError, ProfileFormatError
 from zoning.traverse import ORIENTATIONS
 
-__all__ = ["LineFit", "project_traverse", "CoreDecision", "locate_core", "robust_sigma"]
+__all__ = [
+    "LineFit",
+    "project_traverse",
+    "CoreDecision",
+    "locate_core",
+    "robust_sigma",
+    "require_orientation",
+]
 
 #: Smallest change between core and rim region taken as real zoning [mol%].
 MIN_ZONING_MOL_PCT = 0.5
@@ -210,6 +217,9 @@ class CoreDecision:
         above the core) for a rim-to-rim traverse.
     basis : str
         Plain-language statement of how the decision was made.
+    confidence : {"confirmed", "high", "low", "uncertain"}
+        "confirmed" when the user gave the orientation or core, otherwise
+        how well the evidence supports the decision.
     """
 
     orientation: str
@@ -217,6 +227,7 @@ class CoreDecision:
     distance_um: np.ndarray
     side: np.ndarray
     basis: str
+    confidence: str = "low"
 
 
 def _smooth(values: np.ndarray) -> np.ndarray:
@@ -350,6 +361,7 @@ def locate_core(
         return CoreDecision(orientation or "core-to-rim", float("nan"), np.full(n, np.nan),
                             np.full(n, "", dtype=object),
                             "positions unknown; distances from the core cannot be computed")
+    user_free = orientation is None and core_position_um is None
     pmin, pmax = float(np.nanmin(p)), float(np.nanmax(p))
     order = np.argsort(p[use], kind="stable")
     ps, vs = p[use][order], v[use][order]
@@ -384,6 +396,7 @@ def locate_core(
     else:
         orientation, core, basis = _decide(ps, vs, pmin, pmax, record)
 
+    confidence = "low" if user_free else "confirmed"
     distance = np.abs(p - core)
     side = np.full(n, "", dtype=object)
     if orientation == "rim-to-rim":
@@ -393,7 +406,7 @@ def locate_core(
         if beyond.any():
             basis += (f"; {int(beyond.sum())} spot(s) lie beyond the core and are measured "
                       "by their distance from it")
-    return CoreDecision(orientation, float(core), distance, side, basis)
+    return CoreDecision(orientation, float(core), distance, side, basis, confidence)
 
 
 def _decide(ps, vs, pmin, pmax, record) -> tuple[str, float, str]:
@@ -447,3 +460,30 @@ def _decide(ps, vs, pmin, pmax, record) -> tuple[str, float, str]:
             f"neither end is clearly steeper; assuming normal zoning, the end with higher "
             f"{record} ({e_b:.1f} vs {e_a:.1f}) is the core: rim-to-core "
             "(override with --orientation if the crystal is reversely zoned)")
+
+
+def require_orientation(traverse) -> None:
+    """Refuse a traverse whose orientation is uncertain and was not confirmed.
+
+    Parameters
+    ----------
+    traverse : zoning.Traverse
+        The traverse about to be fitted.
+
+    Raises
+    ------
+    OrientationUncertainError
+        When ``traverse.orientation_confidence`` is "uncertain"; the message
+        gives the evidence and the options and project keys that confirm it.
+    """
+    if getattr(traverse, "orientation_confidence", "confirmed") != "uncertain":
+        return
+    basis = getattr(traverse, "orientation_basis", "") or "no evidence recorded"
+    raise OrientationUncertainError(
+        f"orientation uncertain for traverse {traverse.name!r} ({traverse.source}): {basis}. "
+        "It was not fitted, because a wrong core or orientation gives wrong results without "
+        "any sign. Look at the crystal (BSE image or map) and confirm: --orientation "
+        "core-to-rim (or rim-to-core, rim-to-rim) and/or --core-um 0 (core position along "
+        "the traverse [µm]); in a project file, orientation = \"core-to-rim\" and/or "
+        "core_um = 0 for this sample."
+    )

@@ -41,13 +41,18 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-__all__ = ["Traverse", "MINERALS", "ORIENTATIONS", "MAJOR_COLUMN"]
+__all__ = ["Traverse", "MINERALS", "ORIENTATIONS", "ORIENTATION_CONFIDENCES", "MAJOR_COLUMN"]
 
 #: Minerals the tool understands.
 MINERALS = ("olivine", "plagioclase")
 
 #: Possible orientations of a traverse as measured.
 ORIENTATIONS = ("core-to-rim", "rim-to-core", "rim-to-rim")
+
+#: Confidence levels of an orientation decision: "confirmed" (given by the
+#: user), "high", "low" (decided, but on one line of evidence) and
+#: "uncertain" (not decided well enough to fit; fitting refuses it).
+ORIENTATION_CONFIDENCES = ("confirmed", "high", "low", "uncertain")
 
 #: Column holding the major-element zoning record of each mineral [mol%].
 MAJOR_COLUMN = {"olivine": "fo", "plagioclase": "an"}
@@ -78,6 +83,15 @@ class Traverse:
         values below detection per column, off-line scatter, orientation).
     settings : mapping
         Reading and checking settings used (for reproducibility).
+    orientation_confidence : {"confirmed", "high", "low", "uncertain"}
+        How far the orientation and core can be trusted: "confirmed" when
+        the user gave them (``--orientation``/``--core-um`` or the project
+        keys), "high" or "low" when decided from the evidence, "uncertain"
+        when the evidence is weak or disagrees; fitting refuses an
+        "uncertain" traverse. Default "confirmed": a traverse built
+        directly in Python carries the caller's own distances from the core.
+    orientation_basis : str
+        The evidence for the orientation, in plain words.
     """
 
     name: str
@@ -88,8 +102,15 @@ class Traverse:
     core_position_um: float = 0.0
     notes: tuple[str, ...] = ()
     settings: Mapping[str, Any] = field(default_factory=dict)
+    orientation_confidence: str = "confirmed"
+    orientation_basis: str = ""
 
     def __post_init__(self):
+        if self.orientation_confidence not in ORIENTATION_CONFIDENCES:
+            raise ValueError(
+                f"orientation_confidence must be one of {', '.join(ORIENTATION_CONFIDENCES)}; "
+                f"got {self.orientation_confidence!r}."
+            )
         object.__setattr__(self, "spots", self.spots.copy())
         object.__setattr__(self, "notes", tuple(self.notes))
         object.__setattr__(self, "settings", dict(self.settings))

@@ -1105,7 +1105,7 @@ def _recover_finished(todo, folders, outcomes: dict) -> None:
 
 def _summary_frame(project: Project, outcomes: Mapping[str, SampleOutcome]) -> pd.DataFrame:
     """Rows in project order; columns in the order of ``zoning fit``, then file, error."""
-    from zoning.io.results import SUMMARY_QUANTITIES
+    from zoning.io.results import SUMMARY_QUANTITIES, SUMMARY_TAIL
 
     rows = [dict(outcomes[j.name].row) for j in project.jobs if j.name in outcomes]
     df = pd.DataFrame(rows)
@@ -1123,7 +1123,7 @@ def _summary_frame(project: Project, outcomes: Mapping[str, SampleOutcome]) -> p
     order = ["sample", "mineral", "n_spots", "n_used"]
     for q in SUMMARY_QUANTITIES:
         order += [q, f"{q}_lo95", f"{q}_hi95", f"{q}_constrained"]
-    order += ["reduced_chi_square", "preferred_model", "warnings"]
+    order += list(SUMMARY_TAIL)
     tail = ["batch_warnings", "file", "error"]
     known = [c for c in order if c in df.columns]
     other = [c for c in df.columns if c not in known and c not in tail]

@@ -1,0 +1,473 @@
+"""Stage 5 of a fit: estimates, bands, curves, diagnostics and warnings.
+
+:func:`summarise_fit` turns the best fits, the model choice and the
+posterior draws into a :class:`~zoning.fitting.results.FitResult`: one
+:class:`~zoning.fitting.results.Estimate` per fitted or derived quantity,
+the spot table and model curve with posterior envelopes, the residual runs
+and reversals, and every plain-language warning.
+"""
+
+from __future__ import annotations
+
+import platform
+import warnings
+from collections.abc import Sequence
+from dataclasses import replace
+from importlib import metadata
+
+import numpy as np
+import pandas as pd
+from zoning.fitting.bestfit import CandidateFit
+from zoning.fitting.choice import ModelChoice
+from zoning.fitting.diagnostics import residual_runs, runs_test_z
+from zoning.fitting.problem import DEFAULT_SIGMA, FitProblem
+from zoning.fitting.results import Estimate, FitResult
+from zoning.fitting.sampling import Posterior, credible_band
+
+from zoning.exceptions import CalibrationRangeWarning, ConvergenceWarning, DataQualityWarning
+
+__all__ = ["summarise_fit", "estimate_from_draws", "UNCONSTRAINED_FRACTION"]
+
+#: Fraction of the prior range above which a 95% band means "not constrained".
+UNCONSTRAINED_FRACTION = 0.75
+#: Posterior draws used for the model-curve envelope.
+N_CURVE_DRAWS = 300
+#: Points of the dense model curve.
+N_CURVE_POINTS = 200
+
+_MAJOR_LABEL = {"olivine": "Fo", "plagioclase": "An"}
+
+
+def _versions() -> dict[str, str]:
+    out = {"python": platform.python_version()}
+    for dist in ("zoning", "numpy", "scipy", "lmfit", "emcee", "pandas"):
+        try:
+            out[dist] = metadata.version(dist)
+        except metadata.PackageNotFoundError:
+            out[dist] = "unknown"
+    return out
+
+
+def estimate_from_draws(name, unit, best, draws, lower, upper) -> Estimate:
+    """Estimate of one quantity from its posterior draws and prior bounds.
+
+    Parameters
+    ----------
+    name, unit : str
+    best : float
+        Best-fit value.
+    draws : ndarray, shape (k,)
+        Posterior draws.
+    lower, upper : float
+        Prior bounds.
+
+    Returns
+    -------
+    Estimate
+        Not ``constrained`` when the band covers more than
+        :data:`UNCONSTRAINED_FRACTION` of the prior range.
+    """
+    med, lo, hi, kind = credible_band(draws, lower, upper)
+    constrained = bool((hi - lo) <= UNCONSTRAINED_FRACTION * (upper - lower))
+    note = ""
+    if not constrained:
+        note = (
+            f"{name} not constrained by these data: band covers most of "
+            f"{lower:g}-{upper:g}"
+        )
+    elif kind == "upper_limit":
+        note = f"only an upper limit: {name} < {hi:.3g} (95%)"
+    elif kind == "lower_limit":
+        note = f"only a lower limit: {name} > {lo:.3g} (95%)"
+    return Estimate(
+        name=name, unit=unit, best=float(best), median=med, lo95=lo, hi95=hi,
+        lower=float(lower), upper=float(upper), constrained=constrained, note=note,
+    )
+
+
+def _parent(prob: FitProblem, theta: np.ndarray) -> dict:
+    """Parent melt oxide of the pair and temperature at F = 0 for each row."""
+    params = prob.params(theta)
+    params = {k: v for k, v in params.items() if k not in ("growth_exponent", "core_offset_um")}
+    params["f_core"] = np.zeros(theta.shape[0]) if "f_core" in params else 0.0
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        out = prob.model.path(np.array([0.0]), strict=False, **params)
+    m = theta.shape[0]
+    oxide = np.reshape(out[prob.oxide_name], (m, -1))[:, 0]
+    temp = np.reshape(out["temperature_c"], (m, -1))[:, 0] if "temperature_c" in out else (
+        np.full(m, np.nan)
+    )
+    return {"melt_oxide": oxide, "temperature_c": temp}
+
+
+def _estimates(prob: FitProblem, theta_best, flat, rng) -> dict[str, Estimate]:
+    """Fitted, fixed and derived quantities of the sampled model."""
+    specs = prob.specs
+    free_names, lower, upper = prob.free, prob.lower, prob.upper
+    ratio_name = prob.ratio_name
+    estimates: dict[str, Estimate] = {}
+    # The reachable F is capped by the parent melt (olivine alone uses up the
+    # melt's MgO and FeO): the prior range of f_rim ends there.
+    draw_rows = flat[rng.choice(flat.shape[0], size=min(2000, flat.shape[0]), replace=False)]
+    f_reach = float(np.nanmax(prob.max_fraction(np.vstack([theta_best, draw_rows]))))
+    for j, name in enumerate(free_names):
+        hi_j = min(upper[j], f_reach) if name == "f_rim" and np.isfinite(f_reach) else upper[j]
+        estimates[name] = estimate_from_draws(
+            name, specs[name].unit, theta_best[j], flat[:, j], lower[j], hi_j
+        )
+    for name, value in prob.fixed.items():
+        if name in (ratio_name, "f_rim", "retention", "kd"):
+            estimates[name] = Estimate(
+                name=name, unit=specs[name].unit, best=value, median=value, lo95=value,
+                hi95=value, lower=float(specs[name].lower), upper=float(specs[name].upper),
+                constrained=True, note=f"{name} fixed at {value:g}",
+            )
+    if "kd" in free_names:
+        post_sd = float(np.std(flat[:, free_names.index("kd")]))
+        if post_sd > 0.8 * prob.kd_sd:
+            estimates["kd"] = replace(
+                estimates["kd"],
+                note=f"kd set by its prior ({prob.kd0:g} +/- {prob.kd_sd:g}), hardly by these "
+                "data",
+            )
+    # Derived: parent melt oxide and temperature, from the model at F = 0.
+    j_ratio = free_names.index(ratio_name)
+    derived_draws = flat[rng.choice(flat.shape[0], size=min(4000, flat.shape[0]),
+                                    replace=False)]
+    parent_best = _parent(prob, theta_best[None, :])
+    parent_draws = _parent(prob, derived_draws)
+    bound_theta = np.repeat(theta_best[None, :], 2, axis=0)
+    bound_theta[:, j_ratio] = [lower[j_ratio], upper[j_ratio]]
+    parent_bounds = _parent(prob, bound_theta)
+    ratio_est = estimates[ratio_name]
+    derived = [("melt_oxide", prob.oxide_name, "wt%")]
+    if prob.mineral == "olivine":  # plagioclase temperature is an input, not derived
+        derived.append(("temperature_c", "temperature_c", "°C"))
+    for key, name, unit in derived:
+        best_v = float(parent_best[key][0])
+        if not np.isfinite(best_v):
+            continue
+        lo_b, hi_b = np.sort(parent_bounds[key])
+        med, lo, hi, _kind = credible_band(parent_draws[key], -np.inf, np.inf)
+        estimates[name] = Estimate(
+            name=name, unit=unit, best=best_v, median=med, lo95=lo, hi95=hi,
+            lower=float(lo_b), upper=float(hi_b), constrained=ratio_est.constrained,
+            note="derived from " + ratio_name + " and the reference melt"
+            + ("" if ratio_est.constrained else "; not constrained by these data"),
+        )
+    return estimates
+
+
+def _curves(prob: FitProblem, best, frac, eq, draws):
+    """Spot table (every input row) and dense model curve with posterior bands."""
+    traverse, usable = prob.traverse, prob.usable
+    rng_range = prob.options.get("distance_range_um")
+    spots = traverse.spots
+    major = traverse.major
+    d_all = spots["distance_um"].to_numpy(float)
+    finite = np.isfinite(d_all)
+    grid = np.linspace(0.0, prob.radius_um, N_CURVE_POINTS)
+    pts = np.concatenate([d_all[finite], grid])
+    n_spot = int(finite.sum())
+    m_draw = draws.shape[0]
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        out_best = prob.predict(prob.params(best[None, :]), pts)
+        out_draw = prob.predict(prob.params(draws), pts)
+        out_frac = prob.predict(prob.params(frac[None, :]), grid)
+        out_eq = prob.predict(prob.params(eq[None, :]), grid)
+
+    def row(out, key, m=1):
+        return np.reshape(out[key], (m, -1))
+
+    best_major = row(out_best, "crystal")[0]
+    band_major = np.nanpercentile(row(out_draw, "crystal", m_draw), [2.5, 97.5], axis=0)
+
+    # Spot table, in input order.
+    used_index = set(usable.index)
+    n = len(spots)
+    sigma_all = np.full(n, np.nan)
+    col = "fo_sigma" if traverse.mineral == "olivine" else "an_sigma"
+    sigma_all[:] = DEFAULT_SIGMA[traverse.mineral]
+    if col in spots.columns:
+        file_sig = spots[col].to_numpy(float)
+        sigma_all = np.where(np.isfinite(file_sig) & (file_sig > 0), file_sig, sigma_all)
+    for k, idx in enumerate(usable.index):
+        sigma_all[spots.index.get_loc(idx)] = prob.sigma[k]
+    observed = spots[major].to_numpy(float)
+    model_v = np.full(n, np.nan)
+    lo_v = np.full(n, np.nan)
+    hi_v = np.full(n, np.nan)
+    model_v[finite] = best_major[:n_spot]
+    lo_v[finite] = band_major[0, :n_spot]
+    hi_v[finite] = band_major[1, :n_spot]
+    used = np.array([idx in used_index for idx in spots.index])
+    reason = spots["reason"].astype(str).to_numpy().copy()
+    if rng_range is not None:
+        outside = finite & ((d_all < rng_range[0]) | (d_all > rng_range[1]))
+        extra = f"outside the fitted range {rng_range[0]:g}-{rng_range[1]:g} µm"
+        reason = np.where(outside, np.where(reason == "", extra, reason + "; " + extra), reason)
+    residual = observed - model_v
+    table = {
+        "row": spots["row"].to_numpy() if "row" in spots.columns else np.arange(1, n + 1),
+        "point": spots["point"].astype(str).to_numpy() if "point" in spots.columns else (
+            np.arange(1, n + 1).astype(str)
+        ),
+        "distance_um": d_all,
+        "observed": observed,
+        "sigma": sigma_all,
+        "model": model_v,
+        "model_lo95": lo_v,
+        "model_hi95": hi_v,
+        "residual": residual,
+        "normalized_residual": residual / (sigma_all * prob.sigma_scale),
+        "used": used,
+        "status": spots["status"].astype(str).to_numpy(),
+        "reason": reason,
+    }
+    curve = {
+        "distance_um": grid,
+        "f": row(out_best, "f")[0][n_spot:],
+        "best": best_major[n_spot:],
+        "lo95": band_major[0, n_spot:],
+        "hi95": band_major[1, n_spot:],
+        "fractional": row(out_frac, "crystal")[0],
+        "equilibrium": row(out_eq, "crystal")[0],
+    }
+    for t in prob.traces:
+        tb = row(out_best, t.key)[0]
+        tband = np.nanpercentile(row(out_draw, t.key, m_draw), [2.5, 97.5], axis=0)
+        obs_all = spots[t.oxide].to_numpy(float)
+        vals = {}
+        for label, arr in (("model", tb), ("model_lo95", tband[0]), ("model_hi95", tband[1])):
+            v = np.full(n, np.nan)
+            v[finite] = arr[:n_spot]
+            vals[label] = v
+        table[f"{t.oxide}_observed"] = obs_all
+        table[f"{t.oxide}_sigma"] = np.full(n, float(t.sigma[0]))
+        table[f"{t.oxide}_model"] = vals["model"]
+        table[f"{t.oxide}_model_lo95"] = vals["model_lo95"]
+        table[f"{t.oxide}_model_hi95"] = vals["model_hi95"]
+        table[f"{t.oxide}_residual"] = obs_all - vals["model"]
+        curve[f"{t.oxide}_best"] = tb[n_spot:]
+        curve[f"{t.oxide}_lo95"] = tband[0, n_spot:]
+        curve[f"{t.oxide}_hi95"] = tband[1, n_spot:]
+    for key in sorted(out_best):
+        if key == "melt_ratio" or (key.startswith("melt_") and key.endswith("_wt")) or (
+            key == "temperature_c"
+        ):
+            curve[key] = row(out_best, key)[0][n_spot:]
+    return pd.DataFrame(table), pd.DataFrame(curve)
+
+
+def _limit_fit(choice: ModelChoice, fits: Sequence[CandidateFit], retention: str) -> np.ndarray:
+    """Best fit with r fixed (same processes as the sampled model), sampled coordinates."""
+    sampled = choice.sampled
+    for f in fits:
+        if (f.candidate.processes == sampled.candidate.processes
+                and f.candidate.retention == retention):
+            return choice.problem.expand(f.theta[None, :], f.problem)[0]
+    theta = sampled.theta.copy()
+    if "retention" in choice.problem.free:
+        theta[choice.problem.free.index("retention")] = float(retention)
+    return theta
+
+
+def summarise_fit(
+    problem: FitProblem,
+    fits: Sequence[CandidateFit],
+    choice: ModelChoice,
+    posterior: Posterior,
+    *,
+    seed: int,
+    n_grid: int = 0,
+    stacklevel: int = 2,
+) -> FitResult:
+    """Estimates, curves, diagnostics and warnings of one fit (stage 5).
+
+    Parameters
+    ----------
+    problem : FitProblem
+        The full problem.
+    fits : sequence of CandidateFit
+        Best fits of the candidate models.
+    choice : ModelChoice
+        The comparison and the sampled model.
+    posterior : Posterior
+        Draws of the sampled model.
+    seed : int
+        Seed of the fit (draws for derived quantities and curves use
+        ``seed + 1``).
+    n_grid : int, optional
+        Grid points of the start search (recorded in the diagnostics).
+    stacklevel : int, optional
+        ``stacklevel`` of the Python warnings issued (2: the caller of this
+        function).
+
+    Returns
+    -------
+    FitResult
+    """
+    prob = choice.problem
+    traverse = problem.traverse
+    sampled = choice.sampled
+    theta_best = sampled.theta
+    chain, flat, samples = posterior.chain, posterior.flat, posterior.samples
+    label = _MAJOR_LABEL[problem.mineral]
+    emit = []  # (category, text), issued in order at the end
+    warn_list = list(choice.messages)
+    if posterior.message:
+        warn_list.append(posterior.message)
+        emit.append((ConvergenceWarning, posterior.message))
+
+    rng = np.random.default_rng(seed + 1)
+    estimates = _estimates(prob, theta_best, flat, rng)
+
+    with np.errstate(all="ignore"):
+        corr = np.corrcoef(flat, rowvar=False) if flat.shape[1] > 1 else np.ones((1, 1))
+    corr = np.atleast_2d(corr)
+
+    draw_idx = rng.choice(samples.shape[0], size=min(N_CURVE_DRAWS, samples.shape[0]),
+                          replace=False)
+    spots_df, curve_df = _curves(
+        prob, theta_best, _limit_fit(choice, fits, "0"), _limit_fit(choice, fits, "1"),
+        samples[draw_idx],
+    )
+
+    # --- diagnostics ---------------------------------------------------------
+    used_rows = spots_df[spots_df["used"]].sort_values("distance_um", kind="stable")
+    runs = residual_runs(
+        used_rows["distance_um"].to_numpy(float),
+        used_rows["residual"].to_numpy(float),
+    )
+    reversals = choice.reversals
+    d = problem.distance_um
+    if len(reversals):
+        where = ", ".join(
+            f"{a:g}-{b:g} µm (+{amp:.1f} mol% {label})"
+            for a, b, amp in reversals[["start_um", "end_um", "amplitude"]].itertuples(
+                index=False
+            )
+        )
+        first = float(reversals["start_um"].iloc[0])
+        msg = (
+            f"the profile goes back towards the core composition at {where}: recharge or "
+            "mixing, which no closed-system model makes. The single fit below is not a "
+            "valid description; fit the segments separately, e.g. --range "
+            f"0:{first:g} and --range {float(reversals['end_um'].iloc[0]):g}:"
+            f"{float(np.max(d)):g}."
+        )
+        warn_list.append(msg)
+        emit.append((DataQualityWarning, msg))
+        estimates = {
+            k: replace(
+                e, constrained=False,
+                note=(e.note + "; " if e.note else "")
+                + "profile has a reversal: closed-system fit not valid",
+            )
+            for k, e in estimates.items()
+        }
+    if len(runs):
+        where = ", ".join(
+            f"{a:g}-{b:g} µm ({n} spots {'above' if s > 0 else 'below'})"
+            for a, b, s, n in runs[["start_um", "end_um", "sign", "n_spots"]].itertuples(
+                index=False
+            )
+        )
+        msg = (
+            f"residuals keep one sign over {where}, longer than chance allows (95%): the "
+            "model misses a systematic feature there (Kd, diffusion after growth, or "
+            "another process); consider fitting segments with --range A:B."
+        )
+        warn_list.append(msg)
+        emit.append((DataQualityWarning, msg))
+    notes_all = [
+        e.note for e in estimates.values() if not e.constrained and "reversal" not in e.note
+    ]
+    warn_list = notes_all + warn_list
+    include_flagged = prob.options.get("include_flagged", False)
+    n_flagged = int((traverse.spots["status"] != "ok").sum())
+    if n_flagged and not include_flagged:
+        warn_list.append(
+            f"{n_flagged} flagged spot(s) left out (see profile.csv 'reason'); "
+            "--include-flagged puts them back."
+        )
+    if prob.robust:
+        warn_list.append("robust (soft-L1) loss used: stray spots are down-weighted.")
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        prob.model.profile(d, prob.radius_um, strict=False, **prob.params(theta_best[None, :]))
+    for w in caught:
+        if issubclass(w.category, CalibrationRangeWarning):
+            text = str(w.message)
+            if text not in warn_list:
+                warn_list.append(text)
+                emit.append((CalibrationRangeWarning, text))
+    warn_list.extend(problem.notes)
+
+    diagnostics = {
+        "acceptance_fraction": chain.acceptance_fraction,
+        "n_walkers": float(chain.n_walkers),
+        "n_steps": float(chain.n_steps),
+        "burn_in": float(chain.burn_in),
+        "thin": float(chain.thin),
+        "n_starts": float(sampled.n_starts),
+        "n_converged_starts": float(sampled.n_same),
+        "n_grid": float(n_grid),
+        "sigma_scale": float(prob.sigma_scale),
+        "runs_test_z": runs_test_z(used_rows["residual"].to_numpy(float)),
+    }
+    for name, t, e in zip(prob.free, chain.tau, chain.ess, strict=True):
+        diagnostics[f"tau_{name}"] = float(t)
+        diagnostics[f"ess_{name}"] = float(e)
+
+    opts = prob.options
+    settings = {
+        "mineral": problem.mineral,
+        "melt": opts.get("melt", {}),
+        "kd_prior_mean": prob.kd0,
+        "kd_prior_sd": prob.kd_sd,
+        "fe3_fraction": opts.get("fe3_fraction", float("nan")),
+        "geometry": opts.get("geometry", ""),
+        "distance_range_um": opts.get("distance_range_um"),
+        "radius_um": prob.radius_um,
+        "free": list(prob.free),
+        "fixed": {k: float(v) for k, v in prob.fixed.items()},
+        "sigma": opts.get("sigma", ""),
+        "traces": [t.oxide for t in prob.traces],
+        "trace_sigma_wt": {t.oxide: float(t.sigma[0]) for t in prob.traces},
+        "include_flagged": bool(include_flagged),
+        "robust": bool(prob.robust),
+        "temperature_c": opts.get("temperature_c", float("nan")),
+        "seed": int(seed),
+        "n_walkers": int(chain.n_walkers),
+        "n_steps": int(chain.n_steps),
+        "burn_in": int(chain.burn_in),
+    }
+    for category, text in emit:
+        warnings.warn(f"traverse {traverse.name!r}: {text}", category, stacklevel=stacklevel)
+    return FitResult(
+        traverse=traverse,
+        mineral=problem.mineral,
+        estimates=estimates,
+        parameter_names=prob.free,
+        samples=samples,
+        correlation=corr,
+        spots=spots_df,
+        curve=curve_df,
+        comparison=choice.comparison,
+        preferred_model=choice.preferred_model,
+        delta_bic=choice.delta_bic,
+        chi_square=choice.chi_square,
+        reduced_chi_square=choice.reduced_chi_square,
+        n_spots=traverse.n_spots,
+        n_used=len(prob.usable),
+        diagnostics=diagnostics,
+        reversals=reversals,
+        residual_runs=runs,
+        warnings=tuple(warn_list),
+        settings=settings,
+        versions=_versions(),
+        seed=int(seed),
+    )
