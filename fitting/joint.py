@@ -122,6 +122,7 @@ for testing composite hypotheses. Annals of Mathematical Statistics 9,
 
 from __future__ import annotations
 
+import dataclasses
 import time
 import warnings
 from collections.abc import Mapping, Sequence
@@ -131,28 +132,34 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from scipy import optimize, stats
-from zoning.fitting.fit import (
+from zoning.fitting.bestfit import _grid_starts, _optimise
+from zoning.fitting.problem import (
     _MELT_OXIDE,
     _RATIO,
     DEFAULT_SIGMA,
     KD_PRIOR,
     KD_RELATIVE_SD,
-    N_CURVE_POINTS,
     OPTIONAL_FREE,
+    TRACES,
+    FitProblem,
+    TraceData,
     _build_model,
-    _estimate,
-    _grid_starts,
     _major_sigma,
-    _optimise,
     _parse_range,
-    _Problem,
     _select_traces,
     _soft_l1,
     _split_sigma,
-    _versions,
 )
 from zoning.fitting.results import Estimate
-from zoning.fitting.sampling import MIN_ESS, T_DOF, T_WIDEN, credible_band
+from zoning.fitting.sampling import (
+    MIN_ESS,
+    T_DOF,
+    T_WIDEN,
+    credible_band,
+    laplace_covariance,
+)
+from zoning.fitting.summary import N_CURVE_POINTS, _versions
+from zoning.fitting.summary import estimate_from_draws as _estimate
 
 from zoning import geometry as _geometry
 from zoning.exceptions import ConvergenceWarning, DataQualityWarning, FitError, ZoningError
@@ -1060,9 +1067,11 @@ def _own_fit(settings: _Settings, crystal: _Crystal, model) -> _Own:
     fixed = {n: float(specs[n].default) for n in order if n not in free}
     if "kd" not in free:
         fixed["kd"] = settings.kd0
-    traces = [(ox, key, param, obs, sig, ok)
-              for param, (ox, key, obs, sig, ok) in crystal.traces.items()]
-    prob = _Problem(
+    trace_names = {t[0]: t[1] for t in TRACES[settings.mineral]}
+    traces = tuple(TraceData(ox, trace_names.get(ox, ox), key, param, obs, sig, ok)
+                   for param, (ox, key, obs, sig, ok) in crystal.traces.items())
+    prob = FitProblem(
+        traverse=crystal.traverse, usable=crystal.usable,
         model=model, names=tuple(order), free=free, fixed=fixed,
         lower=np.array([specs[n].lower for n in free], dtype=float),
         upper=np.array([specs[n].upper for n in free], dtype=float),
@@ -1070,8 +1079,8 @@ def _own_fit(settings: _Settings, crystal: _Crystal, model) -> _Own:
         radius_um=crystal.radius_um, y=crystal.y, sigma=crystal.sigma, traces=traces,
         robust=settings.robust,
     )
-    starts, _ = _grid_starts(prob, settings.ratio)
-    theta, obj, _, _, _ = _optimise(prob, starts[:3], free)
+    starts, _ = _grid_starts(prob)
+    theta, obj, _, _, _ = _optimise(prob, starts[:3])
     if not np.isfinite(obj):
         raise FitError(
             f"crystal {crystal.name!r}: no start gave a finite model; check the reference "
@@ -1084,13 +1093,11 @@ def _own_fit(settings: _Settings, crystal: _Crystal, model) -> _Own:
     if settings.robust:
         misfit = float((1.4826 * np.median(np.abs(z[:-1]))) ** 2)
     scale = float(np.sqrt(misfit)) if misfit > 1.0 + 3.0 * np.sqrt(2.0 / dof) else 1.0
-    prob.sigma_scale = scale
+    prob = prob.with_sigma_scale(scale)
     obj_scaled = float(prob.objective(prob.residuals(prob.params(theta[None, :]), 1))[0])
     edge = prob.predict(prob.params(theta[None, :]), np.array([0.0, crystal.radius_um]))
     crystal_edge = np.reshape(edge["crystal"], -1)
-    from zoning.fitting.fit import _laplace_covariance
-
-    cov = _laplace_covariance(prob, prob.to_sampler(theta)[0])
+    cov = laplace_covariance(prob, prob.to_sampler(theta)[0])
     return _Own(prob=prob, theta=theta, objective=obj_scaled, reduced=reduced,
                 sigma_scale=scale, core=float(crystal_edge[0]), rim=float(crystal_edge[1]),
                 cov=cov)
@@ -1850,7 +1857,8 @@ def fit_sample(
         if rng_range is not None:
             dd = usable["distance_um"].to_numpy(float)
             usable = usable[(dd >= rng_range[0]) & (dd <= rng_range[1])]
-        chosen = _select_traces(tr, usable, mineral, traces, sig_trace)
+        chosen = [(t.oxide, t.name, t.key, t.param, t.observed, t.sigma, t.finite)
+                  for t in _select_traces(tr, usable, mineral, traces, sig_trace)]
         if mineral == "plagioclase" and temperature_c is None and chosen:
             if traces == "auto":
                 skipped = [c[0] for c in chosen]
@@ -1949,7 +1957,7 @@ def fit_sample(
     main_members, main_grp = groups[0]
 
     # --- crystals ------------------------------------------------------------
-    from zoning.fitting.fit import _curves
+    from zoning.fitting.summary import _curves
 
     crystal_fits = []
     for i, cr in enumerate(crystals):
@@ -1982,11 +1990,10 @@ def fit_sample(
             prob = own.prob
             dr = own_draws[i]
             dr = own.theta[None, :] if dr is None else dr[:N_CURVE_DRAWS]
-            chosen = [(ox, "", key, param, obs, sig, ok)
-                      for param, (ox, key, obs, sig, ok) in cr.traces.items()]
-            spots, curve = _curves(prob, cr.traverse, cr.usable, own.theta, own.theta,
-                                   own.theta, dr, cr.radius_um, rng_range, chosen, cr.sigma,
-                                   include_flagged)
+            spots, curve = _curves(
+                dataclasses.replace(prob, options={**prob.options,
+                                                   "distance_range_um": rng_range}),
+                own.theta, own.theta, own.theta, dr)
             z = prob.residuals(prob.params(own.theta[None, :]), 1)[0]
             chi2 = float(np.sum(z[:-1] ** 2))
             dof = max(prob.n_data - len(prob.free), 1)

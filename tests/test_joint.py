@@ -16,7 +16,7 @@ from _tolerances import RTOL_IDENTITY
 from numpy.testing import assert_allclose
 from zoning.fitting import fit_sample
 from zoning.fitting import joint as J
-from zoning.fitting.fit import _build_model, _Problem
+from zoning.fitting.problem import FitProblem, TraceData, _build_model
 
 from zoning.exceptions import CalibrationRangeWarning, DataQualityWarning, ZoningError
 from zoning.models import CrystallizationModel
@@ -113,13 +113,14 @@ def test_one_crystal_objective_equals_the_single_fit_objective():
     theta = np.array([0.75, 0.15, 0.4, 0.31, 380.0])
     free = ("melt_mg_number", "f_rim", "retention", "kd", "melt0_ni_ppm")
     specs = {s.name: s for s in model.parameters}
-    prob = _Problem(
-        model=model, names=tuple(specs), free=free,
+    prob = FitProblem(
+        traverse=cr.traverse, usable=cr.usable, model=model, names=tuple(specs), free=free,
         fixed={n: specs[n].default for n in specs if n not in free},
         lower=np.array([specs[n].lower for n in free]),
         upper=np.array([specs[n].upper for n in free]), kd0=0.30, kd_sd=0.03,
         distance_um=cr.distance_um, radius_um=cr.radius_um, y=cr.y, sigma=cr.sigma,
-        traces=[("NiO", "crystal_nio_wt", "melt0_ni_ppm", *cr.traces["melt0_ni_ppm"][2:])],
+        traces=(TraceData("NiO", "Ni", "crystal_nio_wt", "melt0_ni_ppm",
+                          *cr.traces["melt0_ni_ppm"][2:]),),
         robust=False,
     )
     single = prob.objective(prob.residuals(prob.params(theta[None, :]), 1))[0]
