@@ -27,13 +27,15 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from zoning.io.results import CAUTIONS, _fmt, summary_table
-from zoning.io.writers import standard_metadata, unique_names, write_csv, write_json
+from zoning.io.writers import unique_names, write_json, write_table
 
 __all__ = [
     "sample_summary_table",
     "crystals_table",
     "sample_to_dict",
     "write_sample_outputs",
+    "write_sample_files",
+    "sample_output_names",
     "format_sample_report",
     "JOINT_CAUTION",
 ]
@@ -187,9 +189,108 @@ def sample_to_dict(result: Any) -> dict[str, Any]:
     }
 
 
+def _crystal_folders(result: Any) -> list[tuple[Any, str]]:
+    """Crystals that get a profile table, with their sub-folder names."""
+    names = unique_names([c.name for c in result.crystals])
+    return [(c, sub) for c, sub in zip(result.crystals, names, strict=True)
+            if c.verdict != "excluded" and not c.spots.empty]
+
+
+def sample_output_names(result: Any, *, figures: bool = True, report: bool = True) -> list[str]:
+    """Relative paths :func:`write_sample_files` writes into a sample folder.
+
+    Parameters
+    ----------
+    result : SampleFitResult
+    figures, report : bool, optional
+        Whether the figures and the PDF report are written (default both).
+
+    Returns
+    -------
+    list of str
+    """
+    names = ["fit.json", "crystals.csv", "crystals.json"]
+    for _c, sub in _crystal_folders(result):
+        names += [f"{sub}/profile.csv", f"{sub}/profile.json"]
+    if figures:
+        names += [f"{stem}.{ext}" for stem in ("sample", "crystals") for ext in ("png", "pdf")]
+    if report:
+        names.append("report.pdf")
+    return names
+
+
+def write_sample_files(result: Any, folder: str | os.PathLike, *, protect=None,
+                       figures: bool = True, report: bool = True) -> list[Path]:
+    """Write one joint fit into its sample folder.
+
+    ``fit.json``, ``crystals.csv`` (with its JSON provenance sidecar), each
+    crystal's ``<crystal>/profile.csv`` (joint model band of its group, or
+    its own fit when set apart), the figures ``sample`` and ``crystals``
+    (PNG and PDF) and ``report.pdf``: the names of
+    :func:`sample_output_names`. Ownership of the folder (manifest) is the
+    caller's: :func:`write_sample_outputs` for ``zoning fit``, the batch
+    engine's build folders for ``zoning batch``.
+
+    Parameters
+    ----------
+    result : SampleFitResult
+    folder : str or path-like
+        The sample folder (created if missing).
+    protect : iterable of path-like, optional
+        Paths never to overwrite (the input files).
+    figures, report : bool, optional
+        Draw the figures / write the PDF report (default both).
+
+    Returns
+    -------
+    list of pathlib.Path
+        Every file written.
+    """
+    from zoning.io.results import band_digits
+
+    folder = Path(folder)
+    base = {"sample": result.name, "mineral": result.mineral, "seed": int(result.seed),
+            "sources": sorted({str(c.traverse.source) for c in result.crystals}),
+            "settings": dict(result.settings), "versions": dict(result.versions)}
+    written = [write_json(folder / "fit.json", sample_to_dict(result), protect=protect)]
+    table = crystals_table(result)
+    written.append(write_table(
+        table, folder / "crystals.csv", digits=band_digits(table.columns), protect=protect,
+        provenance={"content": f"one row per crystal of the joint fit of {result.name}: "
+                               "verdict, own quantities with 95% bands, consistency test",
+                    **base}))
+    for c, sub in _crystal_folders(result):
+        written.append(write_table(
+            c.spots, folder / sub / "profile.csv", digits=band_digits(c.spots.columns),
+            protect=protect,
+            provenance={"content": f"fitted profile of crystal {c.name} of sample "
+                                   f"{result.name} ({result.mineral}); model and 95% band "
+                                   "from the joint posterior of its group (own fit when set "
+                                   "apart)", "crystal": c.name,
+                        "source": str(c.traverse.source), **base}))
+    if figures or report:
+        from zoning.io import joint_figures
+        from zoning.io.figures import save_figure
+
+        drawn = joint_figures.sample_figures(result)
+        if figures:
+            for stem, fig in drawn.items():
+                written += list(save_figure(fig, folder / stem).values())
+        if report:
+            written.append(joint_figures.write_sample_report(
+                result, folder / "report.pdf", figures=list(drawn.values())))
+    return written
+
+
 def write_sample_outputs(results: Iterable[Any], out_dir: str | os.PathLike, *,
-                         protect=None) -> list[Path]:
-    """Write ``summary.csv``, ``crystals.csv`` and per sample ``fit.json`` and profiles.
+                         protect=None, provenance=None, output=None, figures: bool = True,
+                         report: bool = True) -> list[Path]:
+    """Write ``summary.csv``, ``crystals.csv`` and one folder per sample.
+
+    The output folder gets a manifest (:mod:`zoning.io.outputs`); a file of
+    the same name that zoning did not write is never replaced
+    (:class:`~zoning.exceptions.OutputRefusedError`, before anything is
+    written).
 
     Parameters
     ----------
@@ -198,36 +299,46 @@ def write_sample_outputs(results: Iterable[Any], out_dir: str | os.PathLike, *,
         Output folder (created if missing).
     protect : iterable of path-like, optional
         Paths never to overwrite (the input files).
+    provenance : mapping, optional
+        Extra provenance for the sidecars of the two tables (e.g. the sources).
+    output : zoning.io.outputs.OutputFolder, optional
+        The folder object, when the caller already checked it.
+    figures, report : bool, optional
+        Per sample: draw the figures / write the PDF report (default both).
 
     Returns
     -------
     list of pathlib.Path
         Every file written, the two tables first.
     """
+    from zoning.io.outputs import OutputFolder
+    from zoning.io.results import band_digits
+
     results = list(results)
-    out = Path(out_dir)
+    folder = output if output is not None else OutputFolder(out_dir, kind="fit")
+    subs = unique_names([r.name for r in results])
+    names = ["summary.csv", "summary.json", "crystals.csv", "crystals.json"]
+    for r, sub in zip(results, subs, strict=True):
+        names += [f"{sub}/{n}" for n in sample_output_names(r, figures=figures, report=report)]
+    folder.claim(names)
+    summary = sample_summary_table(results)
+    crystals = pd.concat([crystals_table(r) for r in results], ignore_index=True)
+    extra = dict(provenance or {})
     written = [
-        write_csv(sample_summary_table(results), out / "summary.csv",
-                  metadata=standard_metadata("one row per sample fitted jointly: shared "
-                                             "quantities and 95% bands"), protect=protect),
-        write_csv(pd.concat([crystals_table(r) for r in results], ignore_index=True),
-                  out / "crystals.csv",
-                  metadata=standard_metadata("one row per crystal of the joint fits: verdict, "
-                                             "own quantities, consistency test"),
-                  protect=protect),
+        write_table(summary, folder.path("summary.csv"), digits=band_digits(summary.columns),
+                    protect=protect,
+                    provenance={"content": "one row per sample fitted jointly: shared "
+                                           "quantities and 95% bands", **extra}),
+        write_table(crystals, folder.path("crystals.csv"),
+                    digits=band_digits(crystals.columns), protect=protect,
+                    provenance={"content": "one row per crystal of the joint fits: verdict, "
+                                           "own quantities, consistency test", **extra}),
     ]
-    for r, folder in zip(results, unique_names([r.name for r in results]), strict=True):
-        written.append(write_json(out / folder / "fit.json", sample_to_dict(r),
-                                  protect=protect))
-        for c, sub in zip(r.crystals, unique_names([c.name for c in r.crystals]), strict=True):
-            if c.verdict == "excluded" or c.spots.empty:
-                continue
-            meta = standard_metadata(
-                f"fitted profile of crystal {c.name} of sample {r.name} ({r.mineral}); model "
-                "and 95% band from the joint posterior of its group", sample=r.name,
-                seed=r.seed)
-            written.append(write_csv(c.spots, out / folder / sub / "profile.csv",
-                                     metadata=meta, protect=protect))
+    for r, sub in zip(results, subs, strict=True):
+        written += write_sample_files(r, folder.path(sub), protect=protect, figures=figures,
+                                      report=report)
+    folder.record(*names)
+    folder.finish()
     return written
 
 

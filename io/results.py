@@ -18,14 +18,16 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from zoning.io.writers import (
-    standard_metadata,
+    BAND_DIGITS,
     unique_names,
-    write_csv,
     write_json,
+    write_table,
 )
 
 __all__ = [
     "summary_table",
+    "band_digits",
+    "fit_output_names",
     "fit_to_dict",
     "write_fit_json",
     "write_profile_csv",
@@ -135,6 +137,39 @@ def summary_table(results: Iterable[Any]) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=columns)
 
 
+#: Float columns of the result tables written with :data:`BAND_DIGITS`
+#: significant digits besides every ``<q>``, ``<q>_lo95``, ``<q>_hi95``.
+_BAND_COLUMNS = ("reduced_chi_square", "delta_bic", "model", "residual",
+                 "normalized_residual", "best", "lo95", "hi95")
+
+
+def band_digits(columns: Iterable[Any]) -> dict[str, int]:
+    """Significant digits of the estimate and band columns of a result table.
+
+    Parameters
+    ----------
+    columns : iterable of str
+        Column names of ``summary.csv`` or ``profile.csv``.
+
+    Returns
+    -------
+    dict of str to int
+        :data:`zoning.io.writers.BAND_DIGITS` for every best value and band
+        (``<q>``, ``<q>_lo95``, ``<q>_hi95``, model curves and residuals);
+        other columns keep the default of
+        :func:`zoning.io.writers.write_table`.
+    """
+    columns = [str(c) for c in columns]
+    bases = {c[: -len("_lo95")] for c in columns if c.endswith("_lo95")}
+    bases |= {c[: -len("_hi95")] for c in columns if c.endswith("_hi95")}
+    out = {}
+    for c in columns:
+        if (c in bases or c.endswith(("_lo95", "_hi95", "_model", "_residual"))
+                or c in _BAND_COLUMNS):
+            out[c] = BAND_DIGITS
+    return out
+
+
 def fit_to_dict(result: Any) -> dict[str, Any]:
     """Every number of one fit as plain data (the content of ``fit.json``).
 
@@ -222,19 +257,50 @@ def write_profile_csv(result: Any, path: str | os.PathLike, *, protect=None) -> 
     -------
     pathlib.Path
     """
-    meta = standard_metadata(
-        f"fitted profile of {result.sample} ({result.mineral}); observed and model "
-        "Fo/An in mol%, trace oxides in wt%, bands are 95% posterior envelopes",
-        sample=result.sample,
-        seed=result.seed,
-    )
-    return write_csv(result.spots, path, metadata=meta, protect=protect)
+    provenance = {
+        "content": f"fitted profile of {result.sample} ({result.mineral}): every input spot "
+                   "with observed and model Fo/An [mol%] (trace oxides [wt%]), 95% posterior "
+                   "band of the model, residual, status and reason",
+        "sample": result.sample,
+        "source": str(result.traverse.source),
+        "seed": int(result.seed),
+        "settings": dict(result.settings),
+        "versions": dict(result.versions),
+    }
+    return write_table(result.spots, path, provenance=provenance,
+                       digits=band_digits(result.spots.columns), protect=protect)
+
+
+def fit_output_names(samples: Iterable[str]) -> list[str]:
+    """Relative paths :func:`write_fit_outputs` writes for these sample names.
+
+    Parameters
+    ----------
+    samples : iterable of str
+        Traverse names, in order.
+
+    Returns
+    -------
+    list of str
+        ``summary.csv``, ``summary.json`` and per traverse
+        ``<folder>/fit.json``, ``<folder>/profile.csv``, ``<folder>/profile.json``.
+    """
+    names = ["summary.csv", "summary.json"]
+    for folder in unique_names(list(samples)):
+        names += [f"{folder}/fit.json", f"{folder}/profile.csv", f"{folder}/profile.json"]
+    return names
 
 
 def write_fit_outputs(
-    results: Iterable[Any], out_dir: str | os.PathLike, *, protect=None
+    results: Iterable[Any], out_dir: str | os.PathLike, *, protect=None, provenance=None,
+    output=None,
 ) -> list[Path]:
     """Write ``summary.csv`` and, per traverse, ``fit.json`` and ``profile.csv``.
+
+    The folder gets a manifest (:mod:`zoning.io.outputs`); a file of the same
+    name that zoning did not write is never replaced
+    (:class:`~zoning.exceptions.OutputRefusedError`, before anything is
+    written).
 
     Parameters
     ----------
@@ -245,27 +311,32 @@ def write_fit_outputs(
         Output folder (created if missing).
     protect : iterable of path-like, optional
         Paths never to overwrite (the input files of the run).
+    provenance : mapping, optional
+        Extra provenance for the sidecar of ``summary.csv`` (e.g. the source).
+    output : zoning.io.outputs.OutputFolder, optional
+        The folder object, when the caller already claimed the names.
 
     Returns
     -------
     list of pathlib.Path
         Every file written, summary first.
     """
+    from zoning.io.outputs import OutputFolder
+
     results = list(results)
-    out = Path(out_dir)
-    written = [
-        write_csv(
-            summary_table(results),
-            out / "summary.csv",
-            metadata=standard_metadata(
-                "one row per fitted traverse: best values and 95% bands"
-            ),
-            protect=protect,
-        )
-    ]
-    for r, folder in zip(results, unique_names([r.sample for r in results]), strict=True):
-        written.append(write_fit_json(r, out / folder / "fit.json", protect=protect))
-        written.append(write_profile_csv(r, out / folder / "profile.csv", protect=protect))
+    folder = output if output is not None else OutputFolder(out_dir, kind="fit")
+    names = fit_output_names([r.sample for r in results])
+    folder.claim(names)
+    table = summary_table(results)
+    meta = {"content": "one row per fitted traverse: best values and 95% bands",
+            **dict(provenance or {})}
+    written = [write_table(table, folder.path("summary.csv"), provenance=meta,
+                           digits=band_digits(table.columns), protect=protect)]
+    for r, sub in zip(results, unique_names([r.sample for r in results]), strict=True):
+        written.append(write_fit_json(r, folder.path(f"{sub}/fit.json"), protect=protect))
+        written.append(write_profile_csv(r, folder.path(f"{sub}/profile.csv"), protect=protect))
+    folder.record(*names)
+    folder.finish()
     return written
 
 

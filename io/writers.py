@@ -9,11 +9,20 @@ Every writer
 * refuses to overwrite any of the paths given in ``protect=`` (the input
   files of a run), raising :class:`zoning.exceptions.ZoningError`.
 
-:func:`write_csv` also neutralises spreadsheet formula injection: a text
-cell that begins with ``=``, ``+``, ``-``, ``@``, a TAB or a carriage return
-is written with a leading apostrophe (``'``), so that a spreadsheet shows it
-as text instead of running it as a formula. Numeric cells (and text cells
-that are a plain number such as ``-3.5``) are written unchanged.
+:func:`write_table` writes the result tables (``summary.csv``,
+``points.csv``, ``profile.csv``): the header on line 1 and nothing above it,
+so ``pandas.read_csv`` and every spreadsheet open them as they are; numbers
+with the precision they carry (see :func:`write_table`); integer columns as
+integers; and the provenance (settings, versions, command) in a JSON sidecar
+``<table>.json`` beside the table.
+
+:func:`write_csv` and :func:`write_table` neutralise spreadsheet formula
+injection: a text cell whose first character, after any leading white
+space, is ``=``, ``+``, ``-``, ``@`` (or their full-width forms such as
+``＝``), a TAB or a carriage return is written with a leading apostrophe
+(``'``), so that a spreadsheet shows it as text instead of running it as a
+formula. Numeric cells (and text cells that are a plain number such as
+``-3.5``) are written unchanged.
 
 :func:`safe_name` turns a sample or traverse name into a file or folder name.
 """
@@ -39,6 +48,10 @@ import pandas as pd
 from zoning.exceptions import ZoningError
 
 __all__ = [
+    "write_table",
+    "sidecar_path",
+    "significant",
+    "BAND_DIGITS",
     "write_csv",
     "write_json",
     "write_text",
@@ -127,6 +140,27 @@ def _atomic_write(path: str | os.PathLike, data: bytes, protect) -> Path:
     return path
 
 
+def _formula_like(value: str) -> bool:
+    """Whether a spreadsheet could run ``value`` as a formula.
+
+    Leading white space (any Unicode space) is skipped, and the first
+    character is compared after compatibility normalisation (NFKC), so the
+    full-width ``＝＋－＠`` count like ``=+-@``.
+    """
+    if value.startswith(("\t", "\r")):
+        return True
+    stripped = value.lstrip()
+    if not stripped:
+        return False
+    first = unicodedata.normalize("NFKC", stripped[0])[:1]
+    if stripped[0] in ("\u2212", "\ufe63", "\ufe62"):  # minus sign, small minus/plus
+        first = "-"
+    if first not in _FORMULA_START:
+        return False
+    plain = unicodedata.normalize("NFKC", stripped).strip()
+    return not _PLAIN_NUMBER.fullmatch(plain)
+
+
 def _neutralise_cell(value: Any) -> Any:
     r"""Prefix a formula-like text cell with an apostrophe; leave others alone.
 
@@ -134,7 +168,7 @@ def _neutralise_cell(value: Any) -> Any:
     ``\n`` but not a lone ``\r`` when lines end in ``\n``).
     """
     if isinstance(value, str):
-        if value.startswith(_FORMULA_START) and not _PLAIN_NUMBER.fullmatch(value):
+        if _formula_like(value):
             value = "'" + value
         if "\r" in value:
             value = value.replace("\r\n", "\n").replace("\r", "\n")
@@ -243,6 +277,186 @@ def write_csv(
             f"# {_clean_meta(k)}: {_clean_meta(v)}\n" for k, v in metadata.items()
         )
     return _atomic_write(path, (header + body).encode("utf-8"), protect)
+
+
+#: Significant digits of best values and 95% bands in the result tables: a
+#: band is known to a few per cent at best, so four digits carry all of it.
+BAND_DIGITS = 4
+
+#: Significant digits of other floats in the result tables: measured values
+#: keep the digits they were typed with, computed ones lose only float noise
+#: (``0.9999999999999999`` is written ``1.0``).
+DEFAULT_DIGITS = 10
+
+
+def significant(value: float, digits: int) -> float:
+    """Round a float to ``digits`` significant digits [same unit].
+
+    Parameters
+    ----------
+    value : float
+    digits : int
+        At least 1.
+
+    Returns
+    -------
+    float
+        NaN and infinities are returned unchanged.
+
+    Examples
+    --------
+    >>> significant(0.9999999999999999, 10)
+    1.0
+    >>> significant(12345.678, 4)
+    12350.0
+    """
+    value = float(value)
+    if not math.isfinite(value):
+        return value
+    return float(f"{value:.{int(digits)}g}")
+
+
+def _float_texts(values: np.ndarray, digits: int, na_rep: str) -> list[str]:
+    out = []
+    fmt = f".{int(digits)}g"
+    for v in values.tolist():
+        if v != v:
+            out.append(na_rep)
+        elif v in (math.inf, -math.inf):
+            out.append("inf" if v > 0 else "-inf")
+        else:
+            out.append(repr(float(format(v, fmt))))
+    return out
+
+
+def _is_integer_dtype(dtype) -> bool:
+    return pd.api.types.is_integer_dtype(dtype) and not pd.api.types.is_bool_dtype(dtype)
+
+
+def _formatted_frame(df: pd.DataFrame, digits: Mapping[str, int] | None, default_digits: int,
+                     na_rep: str) -> pd.DataFrame:
+    """Neutralised copy of ``df`` with every number as the text it is written as."""
+    safe = _neutralise_frame(df)
+    digits = dict(digits or {})
+    columns = list(df.columns)
+    safe.columns = range(len(columns))
+    for j, name in enumerate(columns):
+        col = df.iloc[:, j]
+        dtype = col.dtype
+        if pd.api.types.is_bool_dtype(dtype):
+            continue
+        if _is_integer_dtype(dtype):
+            safe[j] = [na_rep if v is pd.NA or v is None else str(int(v))
+                       for v in col.astype(object).tolist()]
+        elif pd.api.types.is_float_dtype(dtype):
+            values = col.to_numpy(dtype=float, na_value=np.nan)
+            safe[j] = _float_texts(values, digits.get(str(name), default_digits), na_rep)
+    safe.columns = [_neutralise_cell(str(c)) for c in columns]
+    return safe
+
+
+def sidecar_path(path: str | os.PathLike) -> Path:
+    """Path of the JSON provenance sidecar of a table (``summary.csv`` -> ``summary.json``)."""
+    path = Path(path)
+    return path.with_suffix(".json")
+
+
+def _library_versions() -> dict[str, str]:
+    import platform
+    from importlib import metadata
+
+    out = {"python": platform.python_version()}
+    for dist in ("zoning", "numpy", "scipy", "pandas", "matplotlib", "lmfit", "emcee",
+                 "openpyxl"):
+        try:
+            out[dist] = metadata.version(dist)
+        except metadata.PackageNotFoundError:
+            out[dist] = ""
+    return out
+
+
+def write_table(
+    df: pd.DataFrame,
+    path: str | os.PathLike,
+    *,
+    provenance: Mapping[str, Any] | None = None,
+    digits: Mapping[str, int] | None = None,
+    default_digits: int = DEFAULT_DIGITS,
+    protect: Iterable[str | os.PathLike] | None = None,
+    na_rep: str = "",
+) -> Path:
+    """Write a result table as plain CSV plus a JSON provenance sidecar.
+
+    The CSV has the header on line 1 and no comment lines, so that
+    ``pandas.read_csv(path)`` and any spreadsheet open it as a table. Its
+    provenance goes into ``<table>.json`` beside it (see
+    :func:`sidecar_path`). Both files are written atomically; the table
+    first, the sidecar (holding the table's SHA-256) second.
+
+    Parameters
+    ----------
+    df : pandas.DataFrame
+        The table (index not written; not modified).
+    path : str or path-like
+        Destination ``.csv`` file.
+    provenance : mapping, optional
+        What the table is and how it was made (e.g. ``content``, ``project``,
+        ``settings``, ``command``); plain JSON types. ``zoning_version``,
+        ``written_utc``, the library versions and the command line are added.
+    digits : mapping of str to int, optional
+        Significant digits per float column (e.g. :data:`BAND_DIGITS` for
+        best values and bands).
+    default_digits : int, optional
+        Significant digits of the other float columns (default 10: measured
+        values keep every digit they were typed with; float noise such as
+        ``0.9999999999999999`` goes).
+    protect : iterable of path-like, optional
+        Paths never to overwrite (the input files of the run).
+    na_rep : str, optional
+        Text of missing values (default: empty cell).
+
+    Returns
+    -------
+    pathlib.Path
+        The CSV path.
+
+    Notes
+    -----
+    Integer columns (numpy or pandas nullable integer dtypes) are written as
+    integers, an empty cell where missing. Text cells that a spreadsheet
+    could run as a formula get a leading apostrophe (module docstring).
+    Same frame, same bytes: the CSV holds no date.
+    """
+    import sys
+
+    path = Path(path)
+    meta_path = sidecar_path(path)
+    if meta_path == path:
+        raise ZoningError(f"a table must end in .csv; got {str(path)!r}")
+    _check_protected(meta_path, protect)
+    body = _formatted_frame(df, digits, default_digits, na_rep).to_csv(
+        index=False, na_rep=na_rep, lineterminator="\n")
+    data = body.encode("utf-8")
+    _atomic_write(path, data, protect)
+    from zoning import __version__
+
+    record: dict[str, Any] = {
+        "table": path.name,
+        "sha256": hashlib.sha256(data).hexdigest(),
+        "rows": int(len(df)),
+        "columns": [str(c) for c in df.columns],
+        "zoning_version": __version__,
+        "written_utc": _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        "command": " ".join(["zoning", *sys.argv[1:]]) if sys.argv else "",
+        "versions": _library_versions(),
+    }
+    if digits:
+        record["significant_digits"] = {str(k): int(v) for k, v in digits.items()}
+    record["significant_digits_other"] = int(default_digits)
+    for key, value in (provenance or {}).items():
+        record[str(key)] = value
+    write_json(meta_path, record, protect=protect)
+    return path
 
 
 def write_text(

@@ -204,8 +204,12 @@ def test_all_positions_missing_flags_every_spot(tmp_path, capsys):
     (t,) = read_traverses(path)
     assert (t.spots["reason"] == "position missing").all()
     assert any(n.startswith("cannot be fitted: all 4 spots") for n in t.notes)
-    assert main(["inspect", str(path), "--out", str(tmp_path / "o")]) == 0
-    assert "core position unknown" in capsys.readouterr().out
+    # No usable spot: the tables are written (to show why) and the exit code says so.
+    assert main(["inspect", str(path), "--out", str(tmp_path / "o")]) == 1
+    captured = capsys.readouterr()
+    assert "core position unknown" in captured.out
+    assert "no usable spot in 'nodist'" in captured.err
+    assert (tmp_path / "o" / "nodist" / "points.csv").is_file()
 
 
 def test_distance_header_from_core_sets_the_orientation(tmp_path):
@@ -283,8 +287,11 @@ def test_cli_inspect_refuses_to_overwrite_its_input(tmp_path, capsys):
     folder.mkdir()
     path = folder / "points.csv"
     _plag_file(path)
+    before = path.read_bytes()
     assert main(["inspect", str(path), "--out", str(tmp_path)]) == 2
-    assert "one of the input files" in capsys.readouterr().err
+    err = capsys.readouterr().err
+    assert "refusing to write" in err and "points.csv" in err and "Nothing was written" in err
+    assert path.read_bytes() == before
 
 
 def test_inspect_as_a_subprocess(tmp_path):

@@ -2,6 +2,7 @@
 
 import argparse
 import inspect
+import re
 import shutil
 from pathlib import Path
 
@@ -83,10 +84,10 @@ kd = 0.33
 range = "10:200"
 free = ["f_core"]
 """)
-    job = read_project(path, overrides={"steps": 50}).jobs[0]
+    job = read_project(path, overrides={"steps": 150}).jobs[0]
     assert job.fit_options["melt"] == {"FeO": 10.0, "MgO": 8.0}
     assert job.fit_options["kd"] == 0.33
-    assert job.fit_options["n_steps"] == 50
+    assert job.fit_options["n_steps"] == 150
     assert job.fit_options["distance_range"] == (10.0, 200.0)
     assert job.fit_options["free"] == ("f_core",)
 
@@ -102,7 +103,6 @@ free = ["f_core"]
          r"'file' belongs in a \[samples"),
         ('[default]\n[samples."A"]\nfile = "a.csv"\n', r"unknown table \[default\]"),
         ('[samples."A"]\nkd = 0.3\n', r"has no 'file'"),
-        ('[samples."A"]\nfile = "missing.csv"\n', r"missing.csv.*not found.*relative to"),
         ('[samples."A"]\nfile = "a.csv"\nkd = "high"\n',
          r"option 'kd' in \[samples.\"A\"\].*'high'; expected a number"),
         ('[samples."A"]\nfile = "a.csv"\nrange = "5-9"\n', r"option 'range'.*A:B"),
@@ -117,6 +117,15 @@ def test_project_file_errors_name_key_table_and_remedy(tmp_path, text, match):
     path = _write(tmp_path, text)
     with pytest.raises(ProjectError, match=match):
         read_project(path)
+
+
+def test_missing_sample_file_or_folder_is_a_problem_of_that_sample_only(tmp_path):
+    (tmp_path / "adir.csv").mkdir()
+    path = _write(tmp_path, '[samples."A"]\nfile = "missing.csv"\n'
+                            '[samples."B"]\nfile = "adir.csv"\n')
+    a, b = read_project(path).jobs
+    assert re.search(r"missing.csv.*not found.*relative to", a.problem)
+    assert "is a folder, not an export file" in b.problem
 
 
 def test_missing_project_file_is_a_clear_error(tmp_path):

@@ -14,6 +14,9 @@ __all__ = [
     "ModelDomainError",
     "FitError",
     "ProjectError",
+    "OutputRefusedError",
+    "OutputLockedError",
+    "Interrupted",
     "OrientationUncertainError",
     "ZoningWarning",
     "DataQualityWarning",
@@ -55,6 +58,31 @@ class FitError(ZoningError, RuntimeError):
 
 class ProjectError(ZoningError, ValueError):
     """A project file (TOML) or batch request is malformed."""
+
+
+class OutputRefusedError(ZoningError, PermissionError):
+    """An output would replace a file or folder zoning did not write, or cannot be written.
+
+    Raised before any work is done; nothing has been written.
+    """
+
+
+class OutputLockedError(OutputRefusedError):
+    """Another run is writing into the same output folder (the message names it)."""
+
+
+class Interrupted(KeyboardInterrupt):
+    """A run was stopped by a signal (SIGINT, SIGTERM or SIGHUP) after cleaning up.
+
+    Parameters
+    ----------
+    signum : int
+        The signal number; the command line exits with ``128 + signum``.
+    """
+
+    def __init__(self, signum: int):
+        super().__init__(signum)
+        self.signum = int(signum)
 
 
 class OrientationUncertainError(ZoningError, ValueError):

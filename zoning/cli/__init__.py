@@ -5,22 +5,42 @@ Each sub-command lives in its own module of this package and exposes
 layer: the only place where the core (:mod:`zoning`), :mod:`zoning.io` and
 :mod:`zoning.fitting` meet. No traceback reaches the user: expected errors
 (:class:`zoning.exceptions.ZoningError`, missing files) are printed as one
-clear message with exit code 2.
+clear message, and warnings of libraries (numpy, scipy, matplotlib) are
+printed as one plain ``warning:`` line each, once.
+
+Exit codes (also in the README):
+
+====  =====================================================================
+0     success
+1     finished, but something could not be done: a sample or traverse
+      failed (listed), or ``inspect`` found no usable spot
+2     unusable input or settings, or an output that would replace a file
+      zoning did not write; nothing was fitted
+75    another ``zoning batch`` is writing into the same ``--out`` (try later)
+129   stopped by SIGHUP, 130 by SIGINT (Ctrl-C), 143 by SIGTERM, after
+      cleaning up
+141   the output pipe was closed (e.g. ``| head``); ends quietly
+====  =====================================================================
 """
 
 from __future__ import annotations
 
 import argparse
 import importlib
+import os
+import signal
 import sys
 import warnings
 
-from zoning.exceptions import ZoningError, ZoningWarning
+from zoning.exceptions import OutputLockedError, ZoningError, ZoningWarning
 
 __all__ = ["main"]
 
 #: Sub-command modules, in the order shown by ``zoning --help``.
 COMMANDS = ("inspect", "simulate", "fit", "batch", "demo")
+
+#: Exit codes of the command line.
+EXIT_OK, EXIT_PARTIAL, EXIT_INPUT, EXIT_LOCKED, EXIT_PIPE = 0, 1, 2, 75, 141
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -48,12 +68,48 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+_SHOWN: set[str] = set()
+
+
+def _library(filename: str) -> str:
+    for name in ("numpy", "scipy", "pandas", "matplotlib", "emcee", "lmfit", "openpyxl"):
+        if f"{os.sep}{name}{os.sep}" in filename or f"/{name}/" in filename:
+            return name
+    return ""
+
+
 def _show_warning(message, category, filename, lineno, file=None, line=None):
+    """Print a warning as one plain line: no file name, line number or class name."""
     stream = file if file is not None else sys.stderr
+    text = " ".join(str(message).split())
     if issubclass(category, ZoningWarning):
-        stream.write(f"warning: {message}\n")
+        out = f"warning: {text}\n"
     else:
-        stream.write(warnings.formatwarning(message, category, filename, lineno, line))
+        source = _library(str(filename))
+        out = f"warning ({source}): {text}\n" if source else f"warning: {text}\n"
+    if out in _SHOWN:
+        return
+    _SHOWN.add(out)
+    try:
+        stream.write(out)
+    except (OSError, ValueError):  # pragma: no cover - stderr closed
+        pass
+
+
+def _quiet_pipe() -> None:
+    """After a closed pipe: send further output nowhere, so exiting stays quiet."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError, AttributeError):  # pragma: no cover
+        pass
+
+
+def _say(text: str) -> None:
+    try:
+        print(text, file=sys.stderr)
+    except (OSError, ValueError):  # pragma: no cover - stderr closed (hang-up)
+        pass
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -67,29 +123,44 @@ def main(argv: list[str] | None = None) -> int:
     Returns
     -------
     int
-        Exit code: 0 on success, 2 on unusable input, 130 on Ctrl-C.
+        Exit code: 0 on success, 1 when part of the work failed, 2 on
+        unusable input, 75 when another batch holds the output folder,
+        128 + signal number when stopped by a signal, 141 when the output
+        pipe was closed (module docstring).
     """
     parser = build_parser()
     args = parser.parse_args(argv)
     if args.command is None:
         parser.print_help()
-        return 2
+        return EXIT_INPUT
     warnings.showwarning = _show_warning
     try:
-        return int(args.run(args) or 0)
+        code = int(args.run(args) or 0)
+        sys.stdout.flush()
+        return code
+    except BrokenPipeError:
+        _quiet_pipe()
+        return EXIT_PIPE
+    except OutputLockedError as exc:
+        _say(f"zoning {args.command}: error: {exc}")
+        return EXIT_LOCKED
     except ZoningError as exc:
-        print(f"zoning {args.command}: error: {exc}", file=sys.stderr)
-        return 2
+        _say(f"zoning {args.command}: error: {exc}")
+        return EXIT_INPUT
     except FileNotFoundError as exc:
-        print(
+        _say(
             f"zoning {args.command}: error: file not found: {exc.filename}. "
-            "Check the path (relative paths are taken from the current folder).",
-            file=sys.stderr,
+            "Check the path (relative paths are taken from the current folder)."
         )
-        return 2
-    except KeyboardInterrupt:
-        print(f"zoning {args.command}: interrupted", file=sys.stderr)
-        return 130
+        return EXIT_INPUT
+    except KeyboardInterrupt as exc:
+        signum = int(getattr(exc, "signum", signal.SIGINT))
+        try:
+            name = signal.Signals(signum).name
+        except ValueError:  # pragma: no cover
+            name = f"signal {signum}"
+        _say(f"zoning {args.command}: interrupted ({name}); finished results are kept")
+        return 128 + signum
 
 
 if __name__ == "__main__":  # pragma: no cover

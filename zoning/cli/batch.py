@@ -48,8 +48,18 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="send the work to a Dask distributed scheduler, e.g. "
                         "tcp://10.0.0.5:8786 (needs the 'dask' extra; the input files and "
                         "--out must be on a file system the workers share)")
-    p.add_argument("--force", action="store_true", help="refit every sample")
+    p.add_argument("--force", action="store_true",
+                   help="refit every sample (never deletes files zoning did not write)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--wait", type=float, default=0.0, metavar="SECONDS",
+                   help="wait up to SECONDS for another batch writing into the same --out "
+                        "(default: refuse at once, naming it)")
+    p.add_argument("--allow-outside-paths", action="store_true",
+                   help="let a project file name exports by absolute path or outside its "
+                        "own folder (refused by default)")
+    p.add_argument("--out-beside-inputs", action="store_true",
+                   help="allow --out to be the folder the exports are read from (folder "
+                        "mode); zoning's own outputs there are never read as inputs")
     g = p.add_argument_group("fit options (as for zoning fit; replace the project defaults)")
     g.add_argument("--mineral", choices=("olivine", "plagioclase"),
                    help="analysed mineral (default: detected)")
@@ -140,12 +150,32 @@ def run(args: argparse.Namespace) -> int:
     Returns
     -------
     int
-        0 when every sample was fitted (or unchanged), 1 when some failed,
-        130 on Ctrl-C (raised as KeyboardInterrupt to the entry point).
+        0 when every sample was fitted (or unchanged), 1 when some failed;
+        an interruption is raised as :class:`zoning.exceptions.Interrupted`
+        (exit code 128 + signal number from the entry point).
     """
-    from zoning.workflow import project_from_folder, read_project, run_batch
+    import os
+
+    from zoning.io.outputs import check_output_dir
+    from zoning.workflow import (
+        MAX_WORKERS_PER_CORE,
+        check_sampler_settings,
+        input_problem,
+        project_from_folder,
+        read_project,
+        run_batch,
+    )
 
     path = Path(args.path)
+    check_sampler_settings(args.walkers, args.steps, args.seed)
+    max_workers = max(8, MAX_WORKERS_PER_CORE * (os.cpu_count() or 1))
+    if args.workers is not None and not 1 <= args.workers <= max_workers:
+        raise ZoningError(
+            f"--workers must be between 1 and {max_workers} on this machine "
+            f"({os.cpu_count()} cores; each worker needs about 200 MB); got {args.workers}."
+        )
+    if not (args.wait >= 0 and args.wait < 1e7):
+        raise ZoningError(f"--wait must be a number of seconds >= 0; got {args.wait!r}.")
     opts = options_from_args(args)
     if path.is_dir():
         if "melt" not in opts:
@@ -154,27 +184,35 @@ def run(args: argparse.Namespace) -> int:
                 "e.g. zoning batch FOLDER --mineral olivine --melt FeO=9.5 (or use a "
                 "project file for per-sample settings)."
             )
-        project = project_from_folder(path, opts)
         default_out = path / "results"
-    elif path.is_file():
-        project = read_project(path, overrides=opts)
+        out = Path(args.out) if args.out else default_out
+        check_output_dir(out)
+        project = project_from_folder(path, opts)
+    elif path.exists():
+        problem = input_problem(path)
+        if problem:
+            raise ZoningError(f"{problem} Give a project file (.toml) or a folder of exports.")
         default_out = path.resolve().parent / "results"
+        out = Path(args.out) if args.out else default_out
+        check_output_dir(out)
+        project = read_project(path, overrides=opts,
+                               allow_outside_paths=args.allow_outside_paths)
     else:
         raise ZoningError(
             f"{str(path)!r} not found. Give a project file (.toml) or a folder of exports."
         )
-    if args.workers is not None and args.workers < 1:
-        raise ZoningError(f"--workers must be 1 or more; got {args.workers}.")
-    out = Path(args.out) if args.out else default_out
     client = executor = None
     if args.cluster:
         client, executor = _cluster_executor(args.cluster)
     try:
         result = run_batch(project, out, executor=executor, workers=args.workers,
-                           progress=not args.quiet, force=args.force)
+                           progress=not args.quiet, force=args.force, wait=args.wait,
+                           beside_inputs=args.out_beside_inputs)
     finally:
         if client is not None:
             client.close()
+    for note in result.notes:
+        print(f"note: {note}", file=sys.stderr)
     print(
         f"zoning batch: {len(result.outcomes)} samples: {result.n_fitted} fitted, "
         f"{result.n_unchanged} unchanged (not refitted), {result.n_failed} failed "
@@ -183,6 +221,8 @@ def run(args: argparse.Namespace) -> int:
     for o in result.outcomes:
         if o.status == "failed":
             print(f"  failed: {o.name}: {o.error}", file=sys.stderr)
+        elif o.status == "fitted" and o.note:
+            print(f"  {o.name}: {o.note}", file=sys.stderr)
     print(f"summary: {Path(result.out_dir) / 'summary.csv'}")
     print(f"reports: {Path(result.out_dir)}/<sample>/report.pdf")
     return 1 if result.n_failed else 0

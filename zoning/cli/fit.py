@@ -163,10 +163,16 @@ def run(args: argparse.Namespace) -> int:
     from zoning.exceptions import FitError
     from zoning.fitting import fit_traverse
     from zoning.io import read_traverses
-    from zoning.io.results import format_report, write_fit_outputs
+    from zoning.io.outputs import OutputFolder, check_output_dir
+    from zoning.io.results import fit_output_names, format_report, write_fit_outputs
+    from zoning.workflow import check_fittable, check_sampler_settings, input_problem
 
     sources = [Path(f) for f in args.file]
     source = sources[0]
+    for path in sources:
+        problem = input_problem(path)
+        if problem:
+            raise ZoningError(problem)
     melt = parse_melt(args.melt)
     if not melt:
         raise ZoningError(
@@ -175,8 +181,10 @@ def run(args: argparse.Namespace) -> int:
             "--melt FeO=9.5 (olivine) or --melt Na2O=3.1 (plagioclase)."
         )
     distance_range = parse_range(args.distance_range)
-    traverses = [t for s in sources for t in read_traverses(s, mineral=args.mineral)]
+    check_sampler_settings(args.walkers, args.steps, args.seed)
     out_dir = Path(args.out) if args.out else source.with_name(source.stem + "_fit")
+    check_output_dir(out_dir)
+    traverses = [t for s in sources for t in read_traverses(s, mineral=args.mineral)]
     common = dict(
         melt=melt, kd=args.kd, kd_sd=args.kd_sd, fe3_fraction=args.fe3,
         geometry=args.geometry, distance_range=distance_range, radius_um=args.radius_um,
@@ -187,10 +195,15 @@ def run(args: argparse.Namespace) -> int:
         return _run_joint(args, traverses, common, out_dir, sources)
     if args.exclude:
         raise ZoningError("--exclude applies to joint fits only; add --joint.")
+    # Before any fit: every file the fit will write must be new or zoning's own.
+    output = OutputFolder(out_dir, kind="fit")
+    output.check(fit_output_names([t.name for t in traverses]))
     results = []
     failed = 0
     for traverse in traverses:
         try:
+            check_fittable(traverse, include_flagged=args.include_flagged,
+                           distance_range=distance_range, radius_um=args.radius_um)
             result = fit_traverse(
                 traverse, **common,
                 n_walkers=64 if args.walkers is None else args.walkers,
@@ -207,7 +220,10 @@ def run(args: argparse.Namespace) -> int:
             f"no traverse of {', '.join(map(str, sources))} could be fitted (see the messages "
             "above); check the flagged spots, --range and --melt."
         )
-    written = write_fit_outputs(results, out_dir, protect=sources)
+    provenance = {"source": [str(p.resolve()) for p in sources] if len(sources) > 1
+                  else str(source.resolve()), "settings": dict(results[0].settings)}
+    written = write_fit_outputs(results, out_dir, protect=sources, provenance=provenance,
+                                output=output)
     print(f"wrote {len(written)} files to {out_dir}")
     return 1 if failed else 0
 
@@ -216,28 +232,26 @@ def _run_joint(args, traverses, common, out_dir, sources) -> int:
     """Fit every traverse as one crystal of one sample and write the joint outputs."""
     from zoning.fitting import fit_sample
     from zoning.io.joint_results import format_sample_report, write_sample_outputs
+    from zoning.io.outputs import OutputFolder
 
     if len(traverses) < 2:
         raise ZoningError(
             f"--joint needs at least two crystals; {', '.join(map(str, sources))} hold "
             f"{len(traverses)} traverse. Give more files, or fit without --joint."
         )
+    # Before the fit: the tables must be new or zoning's own (the sample
+    # folder's names are known after the fit and claimed then, before writing).
+    output = OutputFolder(out_dir, kind="fit")
+    output.check(["summary.csv", "summary.json", "crystals.csv", "crystals.json"])
     result = fit_sample(
         traverses, **common, name=args.name, f_rim=args.joint_f_rim,
         retention=args.joint_retention, exclude=_free(args.exclude),
         n_chains=32 if args.walkers is None else args.walkers, n_sweeps=args.steps,
     )
     print(format_sample_report(result))
-    written = write_sample_outputs([result], out_dir, protect=sources)
-    from zoning.io import joint_figures
-    from zoning.io.figures import save_figure
-    from zoning.io.writers import unique_names
-
-    folder = out_dir / unique_names([result.name])[0]
-    drawn = joint_figures.sample_figures(result)
-    for stem, fig in drawn.items():
-        written += list(save_figure(fig, folder / stem).values())
-    written.append(joint_figures.write_sample_report(result, folder / "report.pdf",
-                                                     figures=list(drawn.values())))
+    provenance = {"sources": [str(p.resolve()) for p in sources],
+                  "settings": dict(result.settings)}
+    written = write_sample_outputs([result], out_dir, protect=sources, provenance=provenance,
+                                   output=output)
     print(f"wrote {len(written)} files to {out_dir}")
     return 0

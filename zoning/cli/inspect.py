@@ -34,6 +34,13 @@ _KINDS = (
 _NUMBER = re.compile(r"(?<![A-Za-z\d.])-?\d+(?:\.\d+)?(?:[eE][+-]?\d+)?")
 
 
+#: Significant digits of the values inspect computes (Fo/An/Ab/Or, cation
+#: sums, projected positions): microprobe oxides carry 3-4 significant
+#: digits, so 6 keep every digit they support without float noise.
+_POINT_DIGITS = {c: 6 for c in ("fo", "an", "ab", "or", "cation_sum", "position_um",
+                                "offline_um", "distance_um", "fo_sigma", "an_sigma")}
+
+
 def reason_kind(reason: str) -> str:
     """Return the kind of one flagging reason, without spot-specific numbers.
 
@@ -194,15 +201,24 @@ def run(args: argparse.Namespace) -> int:
     Returns
     -------
     int
-        0 on success (flagged spots included); unusable input raises
-        :class:`~zoning.exceptions.ZoningError` (exit code 2 from the entry point).
+        0 on success (flagged spots included); 1 when a traverse has no usable
+        spot (the tables are still written, to show why); unusable input
+        raises :class:`~zoning.exceptions.ZoningError` (exit code 2 from the
+        entry point).
     """
+    from zoning.io.outputs import OutputFolder, check_output_dir
     from zoning.io.traverses import read_traverses
-    from zoning.io.writers import standard_metadata, unique_names, write_csv, write_text
+    from zoning.io.writers import unique_names, write_table, write_text
+    from zoning.workflow import input_problem
 
     source = Path(args.file)
+    problem = input_problem(source)
+    if problem:
+        raise ZoningError(problem)
     column_map = parse_pairs(args.column_map, "--column-map", "FeO='FeO tot'")
     checks = parse_pairs(args.check, "--check", "total_min_wt=98")
+    out_dir = Path(args.out) if args.out else Path.cwd() / f"{source.stem}{DEFAULT_OUT_SUFFIX}"
+    check_output_dir(out_dir)
     traverses = read_traverses(
         source,
         mineral=args.mineral,
@@ -213,23 +229,42 @@ def run(args: argparse.Namespace) -> int:
         sheet=_sheet(args.sheet),
         iron=args.iron,
     )
-    out_dir = Path(args.out) if args.out else Path.cwd() / f"{source.stem}{DEFAULT_OUT_SUFFIX}"
     names = unique_names(t.name for t in traverses)
+    output = OutputFolder(out_dir, kind="inspect")
+    files = [f"{folder}/{n}" for folder in names for n in ("points.csv", "points.json",
+                                                             "notes.txt")]
+    output.claim(files)
     blocks = []
+    unusable = []
     for traverse, folder in zip(traverses, names, strict=True):
-        target = out_dir / folder / "points.csv"
-        meta = standard_metadata(
-            "checked spots, one row per input row in input order",
-            source=traverse.source,
-            traverse=traverse.name,
-            mineral=traverse.mineral,
-            orientation=traverse.orientation,
-            core_position_um=f"{traverse.core_position_um:.6g}",
-            units="positions and distances in µm, oxides and totals in wt%, fo/an/ab/or in mol%",
-        )
-        write_csv(traverse.spots, target, metadata=meta, protect=[source])
-        write_text(out_dir / folder / "notes.txt",
+        target = output.path(f"{folder}/points.csv")
+        provenance = {
+            "content": "checked spots, one row per input row in input order",
+            "source": str(traverse.source),
+            "traverse": traverse.name,
+            "mineral": traverse.mineral,
+            "orientation": traverse.orientation,
+            "core_position_um": traverse.core_position_um,
+            "units": "positions and distances in µm, oxides and totals in wt%, "
+                     "fo/an/ab/or in mol%",
+        }
+        write_table(traverse.spots, target, provenance=provenance, digits=_POINT_DIGITS,
+                    protect=[source])
+        write_text(output.path(f"{folder}/notes.txt"),
                    "\n".join(traverse.notes) + "\n", protect=[source])
+        output.record(f"{folder}/points.csv", f"{folder}/points.json", f"{folder}/notes.txt")
         blocks.append(_summary(traverse, target))
+        spots = traverse.spots
+        ok = spots[(spots["status"] == "ok")]
+        if not len(ok) or not ok[traverse.major].notna().any():
+            unusable.append(traverse.name)
+    output.finish()
     print("\n\n".join(blocks), file=sys.stdout)
+    if unusable:
+        print(
+            f"zoning inspect: no usable spot in {', '.join(repr(n) for n in unusable)} "
+            "(every spot flagged or without a value; see the reasons above and in points.csv)",
+            file=sys.stderr,
+        )
+        return 1
     return 0
