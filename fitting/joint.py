@@ -1130,7 +1130,8 @@ def _own_estimates(own: _Own, settings: _Settings, rng):
         spec = specs[name]
         if draws is None:
             e = Estimate(name=name, unit=spec.unit, best=float(own.theta[j]),
-                         lower=spec.lower, upper=spec.upper, constrained=False,
+                         best_fit=float(own.theta[j]), lower=spec.lower, upper=spec.upper,
+                         constrained=False,
                          note="own fit: no usable Laplace approximation")
         else:
             e = _estimate(name, spec.unit, own.theta[j], draws[:, j], spec.lower, spec.upper)
@@ -1400,7 +1401,8 @@ def _shared_estimates(joint: _Joint, v: np.ndarray, flat: np.ndarray, rng) -> tu
     if "kd" not in joint.shared:
         sp = specs["kd"]
         est["kd"] = Estimate(name="kd", unit="1", best=s.kd0, median=s.kd0, lo95=s.kd0,
-                             hi95=s.kd0, lower=sp.lower, upper=sp.upper, constrained=True,
+                             hi95=s.kd0, best_fit=s.kd0, lower=sp.lower, upper=sp.upper,
+                             constrained=True,
                              note=f"kd fixed at {s.kd0:g}")
     else:
         sd = float(np.std(flat[:, joint.index("kd")]))
@@ -1433,7 +1435,8 @@ def _shared_estimates(joint: _Joint, v: np.ndarray, flat: np.ndarray, rng) -> tu
         if not np.isfinite(b):
             continue
         med, lo, hi, _ = credible_band(pd_[key], -np.inf, np.inf)
-        est[name] = Estimate(name=name, unit=unit, best=b, median=med, lo95=lo, hi95=hi,
+        est[name] = Estimate(name=name, unit=unit, best=med if np.isfinite(med) else b,
+                             median=med, lo95=lo, hi95=hi, best_fit=b,
                              constrained=ratio_e.constrained,
                              note="derived from " + s.ratio + " and the reference melt")
     for e in est.values():
@@ -1451,6 +1454,7 @@ def _crystal_estimates(joint: _Joint, v, flat, anchor) -> list[dict]:
         if c == anchor:
             est["f_core"] = Estimate(
                 name="f_core", unit="1", best=0.0, median=0.0, lo95=0.0, hi95=0.0,
+                best_fit=0.0,
                 lower=0.0, upper=0.95, constrained=True,
                 note="0 by definition: F counts from this crystal's nucleation (anchor)")
         else:

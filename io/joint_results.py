@@ -130,7 +130,9 @@ def crystals_table(result: Any) -> pd.DataFrame:
 
 def _estimates_dict(estimates) -> dict:
     return {
-        name: {"unit": e.unit, "best": e.best, "median": e.median, "lo95": e.lo95,
+        name: {"unit": e.unit, "best": e.best,
+               "best_fit": float(getattr(e, "best_fit", math.nan)), "median": e.median,
+               "lo95": e.lo95,
                "hi95": e.hi95, "lower": e.lower, "upper": e.upper,
                "constrained": bool(e.constrained), "note": e.note}
         for name, e in estimates.items()
