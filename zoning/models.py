@@ -237,8 +237,10 @@ class _ModelBase:
 
         Parameters
         ----------
-        f : array_like, shape (n,)
-            Crystallized mass fraction F [fraction], in [0, 1).
+        f : array_like, shape (n,) or (m, n)
+            Crystallized mass fraction F [fraction], in [0, 1). A 2-D array
+            gives each parameter set its own fractions (row i with set i;
+            one row is shared by every set).
         strict : bool, optional
             If True (default) a fraction the model cannot reach (for example
             more olivine than the melt's Mg and Fe can make) raises
@@ -260,9 +262,10 @@ class _ModelBase:
             For unknown or out-of-range parameters or fractions.
         """
         f = np.asarray(f, dtype=float)
-        if f.ndim != 1:
+        if f.ndim not in (1, 2):
             raise ModelDomainError(
-                f"f must be a 1-D array of crystallized fractions; got shape {f.shape}."
+                f"f must be a 1-D array of crystallized fractions (or 2-D, one row per "
+                f"parameter set); got shape {f.shape}."
             )
         if not np.all(np.isfinite(f)) or np.any((f < 0) | (f >= 1)):
             bad = f[~(np.isfinite(f) & (f >= 0) & (f < 1))][0]
@@ -271,9 +274,17 @@ class _ModelBase:
                 f"initial melt mass."
             )
         p, m, scalar = self._params(params)
-        fm = np.broadcast_to(f, (m, f.shape[0]))
+        if f.ndim == 2 and f.shape[0] not in (1, m):
+            if not scalar:
+                raise ModelDomainError(
+                    f"f has {f.shape[0]} rows but the parameters have {m} sets; give one "
+                    "row of fractions per parameter set (or a single row)."
+                )
+            m = f.shape[0]  # scalar parameters: the same set for every row of f
+            p = {k: np.repeat(v, m, axis=0) for k, v in p.items()}
+        fm = np.broadcast_to(f, (m, f.shape[-1]))
         out = self._evaluate(fm, p, strict=strict, stacklevel=3)
-        return _squeeze(out, scalar)
+        return _squeeze(out, scalar and f.ndim == 1)
 
     def profile(self, distance_um, radius_um, *, strict: bool = True,
                 **params) -> dict[str, np.ndarray]:

@@ -91,13 +91,22 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     add_reading_options(
         p.add_argument_group("reading options (as for zoning inspect; replace the project "
                              "defaults)"), batch=True)
+    g.add_argument("--joint", action="store_true", default=None,
+                   help="fit the traverses of each sample's file(s) together as the crystals "
+                        "of one sample (project key joint = true)")
+    g.add_argument("--exclude", metavar="NAMES",
+                   help="with --joint: crystals to leave out, comma-separated traverse names")
+    g.add_argument("--joint-f-rim", choices=("shared", "per_crystal"),
+                   help="with --joint: one F at the rim for all crystals or one each")
+    g.add_argument("--joint-retention", choices=("shared", "hierarchical"),
+                   help="with --joint: one r for the sample or r per crystal from a population")
     p.set_defaults(run=run)
     return p
 
 
 _FIT_ARGS = ("kd", "kd_sd", "fe3", "geometry", "range", "radius_um", "sigma",
              "robust", "include_flagged", "free", "temperature_c", "walkers", "steps",
-             "seed", "thermometer")
+             "seed", "thermometer", "joint", "exclude", "joint_f_rim", "joint_retention")
 
 
 def options_from_args(args: argparse.Namespace) -> dict:
