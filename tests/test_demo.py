@@ -110,4 +110,4 @@ def test_demo_finds_the_planted_answers(demo_run):
     crystals = pd.read_csv(out / "crystals.csv", comment="#", keep_default_na=False)
     verdicts = dict(zip(crystals["crystal"], crystals["verdict"], strict=True))
     assert [c for c, v in verdicts.items() if v == "likely antecryst"] == [
-        "FRL-21_olivines_FRL-21_ol7"]
+        "FRL-21 ol7"]  # the traverse name as written in the file
