@@ -1230,9 +1230,13 @@ def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
         levels.append(values)
         if spot_names and "label" not in used:
             frame["label"] = np.where(hdr_rows, "", column).astype(object)
-    keys = pd.Series(["\x00".join(parts) for parts in zip(*levels, strict=True)],
-                     dtype=object)
-    groups = keys.groupby(keys, sort=False).indices
+    # Group rows by their name levels in file order with a plain dict: pandas
+    # before 2.3 hashes object strings as C strings, so keys joined by NUL
+    # bytes would all fall into one group there.
+    rows_of: dict[str, list[int]] = {}
+    for i, parts in enumerate(zip(*levels, strict=True)):
+        rows_of.setdefault("\x00".join(parts), []).append(i)
+    groups = {key: np.asarray(pos, dtype=np.intp) for key, pos in rows_of.items()}
     column_map_out = {k: m.header for k, (_, m) in used.items()}
     group_parts = {key: key.split("\x00") for key in groups}
     names = _traverse_names(group_parts, p.stem)

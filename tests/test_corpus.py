@@ -26,7 +26,7 @@ from zoning.io.readers import read_export
 from zoning.cli import main
 from zoning.exceptions import ProfileFormatError
 
-from ._tolerances import RTOL_IDENTITY, RTOL_TABLE_3SF
+from _tolerances import RTOL_IDENTITY, RTOL_TABLE_3SF
 
 CORPUS = Path(__file__).resolve().parent / "corpus"
 sys.path.insert(0, str(CORPUS))

@@ -5,7 +5,7 @@ import pytest
 from zoning.exceptions import ModelDomainError
 from zoning.melt import DEFAULT_FE3_FRACTION, merge_melts, read_melt
 
-from ._tolerances import RTOL_TABLE_3SF
+from _tolerances import RTOL_TABLE_3SF
 
 
 def _masses():

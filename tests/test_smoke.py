@@ -32,3 +32,16 @@ def test_command_line_help_runs():
     )
     assert out.returncode == 0, out.stderr
     assert "usage: zoning" in out.stdout
+
+
+def test_test_modules_import_shared_helpers_absolutely():
+    # Relative imports between test modules ("from ._tolerances import ...")
+    # work with pytest >= 8 in importlib mode but not with the oldest pytest the
+    # test extra allows; the suite must run on both (CI runs the lower bounds).
+    import re
+    from pathlib import Path
+
+    relative = re.compile(r"^\s*from\s+\.", re.MULTILINE)
+    offenders = [p.name for p in sorted(Path(__file__).parent.glob("*.py"))
+                 if relative.search(p.read_text(encoding="utf-8"))]
+    assert offenders == [], f"use 'from _tolerances import ...' in {offenders}"
