@@ -214,7 +214,9 @@ def _spawn_batch(path: Path, out: Path, workers: int) -> subprocess.Popen:
 def _wait_for_done(out: Path, proc: subprocess.Popen, n: int = 1, timeout: float = 120.0):
     t0 = time.monotonic()
     while time.monotonic() - t0 < timeout:
-        if len(list(out.glob("*/fingerprint.json"))) >= n:
+        # Installed sample folders only (pathlib's "*" also matches the hidden build folders).
+        if len([f for f in out.glob("*/fingerprint.json")
+                if not f.parent.name.startswith(".")]) >= n:
             return
         if proc.poll() is not None:
             pytest.fail(f"batch ended early: {proc.communicate()[1]}")
