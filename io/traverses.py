@@ -33,7 +33,7 @@ from zoning.minerals import (
     join_reasons,
     structural_formula,
 )
-from zoning.orientation import locate_core, project_traverse
+from zoning.orientation import find_stray_positions, locate_core, project_traverse
 from zoning.oxides import CANONICAL_OXIDES
 from zoning.traverse import MAJOR_COLUMN, MINERALS, ORIENTATIONS, Traverse
 
@@ -331,6 +331,10 @@ def _build(raw, *, mineral, orientation, core_position_um, checks, iron, sheet) 
             "distance_um='Dist' or x_um='X' y_um='Y')."
         )
     missing_pos = ~np.isfinite(position)
+    # Stray positions (typos, stage glitches) are flagged before the core is
+    # placed and never used to place it.
+    stray_reason = find_stray_positions(position)
+    stray = stray_reason != ""
 
     spots = pd.DataFrame({
         "row": data["row"].to_numpy() if "row" in data else np.arange(1, n + 1),
@@ -358,6 +362,7 @@ def _build(raw, *, mineral, orientation, core_position_um, checks, iron, sheet) 
     to_check["read_flags"] = join_reasons(
         read_flags.to_numpy(object),
         np.where(missing_pos & read_flags.eq("").to_numpy(), "position missing", ""),
+        stray_reason,
     )
     to_check["offline_flag"] = offline_flag
     checked = check_spots(to_check, mineral, settings)
@@ -368,17 +373,25 @@ def _build(raw, *, mineral, orientation, core_position_um, checks, iron, sheet) 
         hint = _distance_header_hint(raw.column_map.get("distance_um", ""), position)
     if hint is not None:
         decision = locate_core(position, spots[major].to_numpy(float), usable=ok,
-                               orientation=hint[0], core_position_um=hint[1], record=record)
+                               orientation=hint[0], core_position_um=hint[1], record=record,
+                               trusted=~stray)
         decision = replace(decision, basis=hint[2], confidence="high")
     else:
-        decision = locate_core(position, spots[major].to_numpy(float), usable=ok,
-                               orientation=orientation, core_position_um=core_position_um,
-                               record=record)
+        decision = locate_core(
+            position, spots[major].to_numpy(float), usable=ok, orientation=orientation,
+            core_position_um=core_position_um, record=record, mineral=mineral,
+            oxides={c: spots[c].to_numpy(float) for c in oxides},
+            names=(str(raw.name), os.path.basename(source)),
+            labels=spots["label"].to_numpy(object), trusted=~stray)
     spots.insert(5, "distance_um", decision.distance_um)
     spots.insert(6, "side", decision.side)
     spots["status"] = checked["status"].to_numpy(object)
     spots["reason"] = checked["reason"].to_numpy(object)
-    notes.append(f"orientation: {decision.orientation} ({decision.basis})")
+    if decision.confidence == "uncertain":
+        notes.append(f"orientation: uncertain, not fitted until confirmed ({decision.basis})")
+    else:
+        notes.append(f"orientation: {decision.orientation}, {decision.confidence} confidence "
+                     f"({decision.basis})")
 
     n_ok = int(ok.sum())
     values = spots.loc[ok, major].to_numpy(float)

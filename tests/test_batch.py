@@ -29,10 +29,16 @@ FERROLYN = DEMO_DIR / "ferrolyn"
 FAST = "walkers = 8\nsteps = 100\nfigures = false\nreport = false\n"
 
 
-def _small_export(path: Path, n: int = 12) -> Path:
-    """First `n` spots of a demo olivine traverse, without the NiO column."""
+def _small_export(path: Path, n: int = 12, *, rim: bool = False) -> Path:
+    """First (or, with `rim`, last) `n` spots of a demo olivine traverse, without NiO.
+
+    The first spots lie in the flat core, whose orientation must be confirmed
+    (project key ``orientation``); the last ones hold the zoned rim, whose
+    orientation is found from the data.
+    """
     df = pd.read_csv(FERROLYN / "FRL-07_ol2.csv", sep=";", decimal=",", encoding="latin-1")
-    df.head(n).drop(columns=["NiO"]).to_csv(path, index=False)
+    part = df.tail(n) if rim else df.head(n)
+    part.drop(columns=["NiO"]).to_csv(path, index=False)
     return path
 
 
@@ -41,7 +47,9 @@ def _project(tmp_path: Path, names, *, defaults: str = FAST, bad: tuple = ()) ->
     data.mkdir(exist_ok=True)
     _small_export(data / "ol.csv")
     (data / "bad.csv").write_text("Point,Comment\n1,nothing here\n", encoding="utf-8")
-    lines = ["[defaults]", 'mineral = "olivine"', "melt = { FeO = 9.8 }", "seed = 3", defaults]
+    # the first spots of a core are flat: the orientation must be confirmed
+    lines = ["[defaults]", 'mineral = "olivine"', "melt = { FeO = 9.8 }", "seed = 3",
+             'orientation = "core-to-rim"', defaults]
     for name in names:
         lines += [f'[samples."{name}"]', f'file = "{"bad.csv" if name in bad else "ol.csv"}"']
     path = data / "project.toml"
@@ -172,8 +180,8 @@ def test_batch_refuses_to_replace_a_folder_that_holds_inputs(tmp_path):
 def test_folder_batch_fits_every_export(tmp_path, capsys):
     folder = tmp_path / "exports"
     folder.mkdir()
-    _small_export(folder / "a.csv")
-    _small_export(folder / "b.csv", n=11)
+    _small_export(folder / "a.csv", rim=True)
+    _small_export(folder / "b.csv", n=11, rim=True)
     out = tmp_path / "out"
     code = main(["batch", str(folder), "--mineral", "olivine", "--melt", "FeO=9.8",
                  "--walkers", "8", "--steps", "100", "--out", str(out), "--workers", "1",
@@ -214,9 +222,11 @@ def _spawn_batch(path: Path, out: Path, workers: int) -> subprocess.Popen:
 def _wait_for_done(out: Path, proc: subprocess.Popen, n: int = 1, timeout: float = 120.0):
     t0 = time.monotonic()
     while time.monotonic() - t0 < timeout:
-        # Installed sample folders only (pathlib's "*" also matches the hidden build folders).
-        if len([f for f in out.glob("*/fingerprint.json")
-                if not f.parent.name.startswith(".")]) >= n:
+        # pathlib's "*" also matches hidden folders: count only sample folders
+        # already moved into place, not the .partial-* ones still being written.
+        finished = [p for p in out.glob("*/fingerprint.json")
+                    if not p.parent.name.startswith(".")]
+        if len(finished) >= n:
             return
         if proc.poll() is not None:
             pytest.fail(f"batch ended early: {proc.communicate()[1]}")

@@ -75,6 +75,7 @@ def test_core_to_rim_and_rim_to_core_detected():
     fo = _normal_profile(pos, 200.0) + rng.normal(0, 0.1, pos.size)
     d = locate_core(pos, fo)
     assert d.orientation == "core-to-rim" and d.core_position_um == 0.0
+    assert d.confidence == "high"
     assert_allclose(d.distance_um, pos)
     assert "fastest at the high-position end" in d.basis
     d = locate_core(pos, fo[::-1])
@@ -86,7 +87,8 @@ def test_reverse_zoned_half_profile_found_by_steep_rim():
     pos = np.arange(0, 205.0, 5.0)
     an = 60 + 15 * (pos / 200.0) ** 4  # An rises towards the rim (reverse zoning)
     d = locate_core(pos, an, record="An")
-    assert d.orientation == "core-to-rim"
+    # the steep end is the rim, but normal zoning would read it the other way: asked, not guessed
+    assert d.orientation == "core-to-rim" and d.confidence == "uncertain"
 
 
 def test_rim_to_rim_off_centre_core_found():
@@ -115,10 +117,10 @@ def test_rim_to_rim_with_reversely_zoned_rims_uses_symmetry_not_maximum():
     assert np.argmax(fo) in (0, pos.size - 1)
 
 
-def test_flat_profile_is_taken_as_measured():
+def test_flat_profile_is_uncertain_and_taken_as_measured_until_confirmed():
     pos = np.arange(0, 100.0, 5.0)
     d = locate_core(pos, np.full(pos.size, 85.0))
-    assert d.orientation == "core-to-rim"
+    assert d.orientation == "core-to-rim" and d.confidence == "uncertain"
     assert "flat" in d.basis
 
 
@@ -136,6 +138,7 @@ def test_user_overrides():
     fo = _normal_profile(pos, 200.0)
     d = locate_core(pos, fo, orientation="rim-to-core")
     assert d.orientation == "rim-to-core" and d.core_position_um == 200.0
+    assert d.confidence == "confirmed"
     assert "given by the user" in d.basis
     d = locate_core(pos, fo, core_position_um=100.0)
     assert d.orientation == "rim-to-rim" and d.core_position_um == 100.0
