@@ -40,11 +40,15 @@ SECRET_LINES = ("root:x:0:0:root:/root:/bin/bash", "ferrolyn-admin:x:1000:1000::
 
 
 def small_export(path: Path, n: int = 12) -> Path:
-    """Write the first ``n`` spots of a demo olivine traverse (no NiO) as a plain CSV."""
+    """Write the last ``n`` spots of a demo olivine traverse (no NiO) as a plain CSV.
+
+    The last spots hold the zoned rim, so the orientation is found from the
+    data (a flat core alone would have to be confirmed by the user).
+    """
     df = pd.read_csv(DEMO_DIR / "ferrolyn" / "FRL-07_ol2.csv", sep=";", decimal=",",
                      encoding="latin-1")
     path.parent.mkdir(parents=True, exist_ok=True)
-    df.head(n).drop(columns=["NiO"]).to_csv(path, index=False)
+    df.tail(n).drop(columns=["NiO"]).to_csv(path, index=False)
     return path
 
 
