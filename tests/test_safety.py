@@ -438,7 +438,7 @@ def test_kill_9_of_the_parent_ends_the_workers_and_the_next_run_repairs(tmp_path
     assert {o.status for o in result.outcomes} <= {"fitted", "unchanged"}
     summary = pd.read_csv(out / "summary.csv", keep_default_na=False)
     assert summary["sample"].tolist() == names
-    assert not list(out.glob(".partial-*"))
+    assert not list(out.glob(".partial-*"))  # build folders of the dead workers removed
     assert all(verify_folder(out / n) == "" for n in names)
 
 
