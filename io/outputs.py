@@ -720,11 +720,22 @@ def process_alive(pid: int, start_id: str = "", host: str = "") -> bool:
         return True
     except OSError:  # pragma: no cover - e.g. Windows without the process
         return False
+    if _zombie(pid):
+        return False  # ended, not yet reaped (e.g. its parent was killed too)
     if start_id:
         now = _start_id(pid)
         if now and now != start_id:
             return False
     return True
+
+
+def _zombie(pid: int) -> bool:
+    """Whether ``pid`` has ended but was not reaped yet (Linux /proc; False if unknown)."""
+    try:
+        with open(f"/proc/{pid}/stat", encoding="ascii", errors="replace") as handle:
+            return handle.read().rsplit(")", 1)[1].split()[0] in ("Z", "X")
+    except (OSError, IndexError):
+        return False
 
 
 def clean_partials(out_dir: str | os.PathLike) -> list[str]:

@@ -262,25 +262,33 @@ class WorkerPool:
                     handles += [w.conn, w.process.sentinel]
                 ready = set(_wait(handles, timeout=1.0)) if handles else set()
                 for w in busy:
-                    if w.conn in ready:
-                        try:
-                            key, result = w.conn.recv()
-                        except (EOFError, OSError):
-                            continue  # died: its sentinel tells
-                        w.task = None
-                        on_result(key, result)
-                for w in list(busy):
-                    if w.task is not None and w.process.sentinel in ready:
-                        if w.conn.poll(0):  # the result arrived just before the end
-                            continue
-                        w.process.join(timeout=5)
-                        key = w.task
-                        w.task = None
-                        self._drop(w)
-                        on_result(key, WorkerLost(_death_message(w.process.exitcode)))
+                    if w.conn in ready or w.process.sentinel in ready:
+                        self._collect(w, on_result)
         except BaseException:
             self.terminate()
             raise
+
+    def _collect(self, w: _Worker, on_result: Callable[[Any, Any], None]) -> None:
+        """Take the result of a worker that became ready, or report it lost."""
+        try:
+            if w.conn.poll(0):
+                key, result = w.conn.recv()
+                w.task = None
+                on_result(key, result)
+                return
+        except (EOFError, OSError):
+            pass  # the worker closed its end: it is ending
+        else:
+            if w.process.is_alive() and w.process.sentinel not in _wait([w.process.sentinel], 0):
+                return  # woke up for nothing
+        w.process.join(timeout=5)
+        if w.process.is_alive():  # pragma: no cover - closed its pipe but hangs
+            w.process.kill()
+            w.process.join(timeout=5)
+        key = w.task
+        w.task = None
+        self._drop(w)
+        on_result(key, WorkerLost(_death_message(w.process.exitcode)))
 
     def _fill(self, pending: deque) -> None:
         started = False

@@ -1169,7 +1169,8 @@ def _error_text(exc: BaseException, job: SampleJob | None = None) -> str:
         # Never copy lines of a file that is not an export into the outputs.
         return (f"{job.file!r} is not a readable microprobe export: no header line with "
                 "recognised column names (SiO2, MgO, FeO, Point, Distance, ...). Run zoning "
-                "inspect on it to see what was read, or name the columns with column_map.")
+                "inspect on it to see what was read, or name the columns with --column-map "
+                "(project key column_map).")
     return text
 
 

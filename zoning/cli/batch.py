@@ -52,6 +52,10 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--force", action="store_true",
                    help="refit every sample (never deletes files zoning did not write)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--no-figures", dest="figures", action="store_false", default=None,
+                   help="do not draw the sample figures (project key figures = false)")
+    p.add_argument("--no-report", dest="report", action="store_false", default=None,
+                   help="do not write report.pdf per sample (project key report = false)")
     p.add_argument("--wait", type=float, default=0.0, metavar="SECONDS",
                    help="wait up to SECONDS for another batch writing into the same --out "
                         "(default: refuse at once, naming it)")
@@ -127,6 +131,9 @@ def options_from_args(args: argparse.Namespace) -> dict:
     opts.update(reading_options(args))
     if args.melt:
         opts["melt"] = parse_melt(args.melt)
+    for key in ("figures", "report"):
+        if getattr(args, key, None) is not None:
+            opts[key] = getattr(args, key)
     return opts
 
 
