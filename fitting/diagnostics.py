@@ -232,6 +232,9 @@ def _running_median(y: np.ndarray, window: int) -> np.ndarray:
     half = window // 2
     pad = [(0, 0)] * (y.ndim - 1) + [(half, half)]
     padded = np.pad(y, pad, mode="edge")
+    if window == 3:  # exact median of three by comparisons, several times faster
+        a, b, c = padded[..., :-2], padded[..., 1:-1], padded[..., 2:]
+        return np.maximum(np.minimum(a, b), np.minimum(np.maximum(a, b), c))
     windows = np.lib.stride_tricks.sliding_window_view(padded, window, axis=-1)
     return np.median(windows, axis=-1)
 

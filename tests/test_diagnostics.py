@@ -166,3 +166,16 @@ def test_reversal_threshold_is_the_same_when_simulated_in_blocks(monkeypatch):
     whole = reversal_threshold(40, 0.3, n_sim=300)
     monkeypatch.setattr(diagnostics, "_SIMULATION_BLOCK", 40 * 7)
     assert reversal_threshold(40, 0.3, n_sim=300) == whole
+
+
+def test_running_median_of_three_is_the_median():
+    from zoning.fitting.diagnostics import _running_median
+
+    rng = np.random.default_rng(4)
+    y = rng.normal(size=(5, 40))
+    y[2, 7] = np.nan
+    padded = np.pad(y, [(0, 0), (1, 1)], mode="edge")
+    expected = np.median(np.lib.stride_tricks.sliding_window_view(padded, 3, axis=-1), axis=-1)
+    np.testing.assert_array_equal(_running_median(y, 3), expected)
+    np.testing.assert_array_equal(_running_median(y[0], 5), np.median(
+        np.lib.stride_tricks.sliding_window_view(np.pad(y[0], 2, mode="edge"), 5), axis=-1))
