@@ -222,7 +222,11 @@ def _spawn_batch(path: Path, out: Path, workers: int) -> subprocess.Popen:
 def _wait_for_done(out: Path, proc: subprocess.Popen, n: int = 1, timeout: float = 120.0):
     t0 = time.monotonic()
     while time.monotonic() - t0 < timeout:
-        if len(list(out.glob("*/fingerprint.json"))) >= n:
+        # pathlib's "*" also matches hidden folders: count only sample folders
+        # already moved into place, not the .partial-* ones still being written.
+        finished = [p for p in out.glob("*/fingerprint.json")
+                    if not p.parent.name.startswith(".")]
+        if len(finished) >= n:
             return
         if proc.poll() is not None:
             pytest.fail(f"batch ended early: {proc.communicate()[1]}")

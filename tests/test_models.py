@@ -116,11 +116,14 @@ def test_contract_docstrings_have_references(cls):
 def test_parameter_order_of_the_contract():
     ol = CrystallizationModel("olivine", BASALT, traces=("Ni",))
     assert ol.parameter_names == ("melt_mg_number", "f_rim", "retention", "kd", "f_core",
-                                  "growth_exponent", "core_offset_um", "melt0_ni_ppm")
+                                  "growth_exponent", "core_offset_um", "melt0_ni_ppm",
+                                  "section_h_over_r", "diffusion_length_um",
+                                  "diffusivity_ratio_ni")
     pl = CrystallizationModel("plagioclase", BASALT, traces=("Sr", "Mg"), temperature_c=1100)
     assert pl.parameter_names == ("melt_ca_number", "f_rim", "retention", "kd", "f_core",
                                   "growth_exponent", "core_offset_um", "melt0_sr_ppm",
-                                  "melt0_mgo_wt")
+                                  "melt0_mgo_wt", "section_h_over_r", "diffusion_length_um",
+                                  "diffusivity_ratio_sr")
 
 
 def test_kd_consistency_fo_at_f0():

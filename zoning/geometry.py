@@ -14,9 +14,20 @@ the true core from the apparent core (negative values clip to 0).
 Off-centre sections: a plane cutting a sphere at distance :math:`h` from its
 centre shows a disc of apparent radius :math:`a = \sqrt{R^2 - h^2}`; a spot at
 apparent radius :math:`\rho` lies at true radius :math:`\sqrt{\rho^2 + h^2}`,
-so the zone fraction is :math:`\sqrt{\rho^2 + h^2}/\sqrt{a^2 + h^2}`. The
-apparent core is the zone at :math:`h`; the innermost :math:`(h/R)^3` of the
-crystal is not seen.
+so with :math:`s = h/R` the relative zone radius is
+
+.. math:: \xi = \sqrt{s^2 + (1 - s^2)(\rho/a)^2}.
+
+The apparent core is the zone at :math:`h`; the innermost :math:`(h/R)^3` of
+the crystal is not seen. For planes of random position and orientation that
+meet a sphere, :math:`s` is uniform on [0, 1). The same mapping holds for a
+prism growing radially ("cylinder") when the traverse runs across the prism
+(perpendicular to its long axis) and :math:`h` is the distance of the plane
+from the axis, for any tilt of the plane about that traverse; :math:`s` is
+again uniform on [0, 1) for random planes meeting a long prism. For a
+"slab" (growth in one direction) the offset of a cut changes nothing (zones
+are planes) and is not a parameter; an oblique cut stretches the profile by
+:math:`1/\sin\varphi` instead, which is not modelled.
 
 The electron beam samples a finite volume; a measured spot is the true
 profile averaged over a Gaussian of full width at half maximum ``beam_um``
@@ -29,7 +40,9 @@ hundredths of a mol% only, because the profile ends with a kink.
 
 Assumptions that can mislead: all crystals nucleate at ``F_core`` and grow
 self-similarly; the section passes through the core unless ``h`` is given;
-growth rate does not vary between crystal faces; no diffusion after growth.
+growth rate does not vary between crystal faces; the cut is normal to the
+growth faces (no stretch). Diffusion after growth is in
+:mod:`zoning.diffusion`.
 
 References
 ----------
@@ -49,6 +62,8 @@ import numpy as np
 __all__ = [
     "GEOMETRY_EXPONENT",
     "zone_fraction",
+    "section_h_over_r_from_offset",
+    "true_radius",
     "fraction_from_distance",
     "fraction_from_zone",
     "beam_offsets",
@@ -62,12 +77,58 @@ GEOMETRY_EXPONENT = {"sphere": 3.0, "cylinder": 2.0, "slab": 1.0}
 FWHM_PER_SIGMA = 2.0 * np.sqrt(2.0 * np.log(2.0))
 
 
-def zone_fraction(distance_um, radius_um, core_offset_um=0.0, section_offset_um=0.0):
+def section_h_over_r_from_offset(section_offset_um, radius_um):
+    r"""Relative section offset h/R from the offset in µm [fraction].
+
+    .. math:: s = h / \sqrt{a^2 + h^2}
+
+    Parameters
+    ----------
+    section_offset_um : float or ndarray
+        Distance h of the section plane from the crystal centre [µm].
+    radius_um : float or ndarray
+        Apparent (section) core-to-rim distance a [µm].
+
+    Returns
+    -------
+    ndarray
+        h divided by the true radius R = sqrt(a^2 + h^2).
+    """
+    h = np.asarray(section_offset_um, dtype=float)
+    return h / np.hypot(radius_um, h)
+
+
+def true_radius(radius_um, section_h_over_r):
+    r"""Return the true crystal radius from the section radius [µm].
+
+    .. math:: R = a / \sqrt{1 - s^2}
+
+    Parameters
+    ----------
+    radius_um : float or ndarray
+        Apparent core-to-rim distance a in the section [µm].
+    section_h_over_r : float or ndarray
+        Section offset s = h/R [fraction], in [0, 1).
+
+    Returns
+    -------
+    ndarray
+        R [µm].
+    """
+    s = np.asarray(section_h_over_r, dtype=float)
+    return radius_um / np.sqrt(1.0 - s * s)
+
+
+def zone_fraction(distance_um, radius_um, core_offset_um=0.0, section_offset_um=0.0,
+                  section_h_over_r=0.0):
     r"""Relative radius of the zone sampled at a distance from the core [fraction].
 
-    .. math:: \xi = \frac{\sqrt{\max(x - x_0, 0)^2 + h^2}}{\sqrt{R^2 + h^2}}
+    .. math:: \xi = \sqrt{s^2 + (1 - s^2)\left(\frac{\max(x - x_0, 0)}{a}\right)^2}
 
-    clipped to [0, 1].
+    clipped to [0, 1], with s = h/R the section offset relative to the true
+    radius; an offset given in µm is converted with
+    :func:`section_h_over_r_from_offset` (the two forms are the same mapping,
+    :math:`\sqrt{(x-x_0)^2 + h^2}/\sqrt{a^2 + h^2}`).
 
     Parameters
     ----------
@@ -75,11 +136,14 @@ def zone_fraction(distance_um, radius_um, core_offset_um=0.0, section_offset_um=
         Apparent distance from the core along the traverse [µm] (absolute
         value is used, so the profile is symmetric about the core).
     radius_um : float or ndarray
-        Apparent core-to-rim distance R of the section [µm].
+        Apparent core-to-rim distance a of the section [µm].
     core_offset_um : float or ndarray, optional
         Offset x0 of the zone centre from the apparent core [µm].
     section_offset_um : float, optional
         Distance h of the section plane from the crystal centre [µm].
+    section_h_over_r : float or ndarray, optional
+        Section offset relative to the true radius, s = h/R [fraction] (give
+        this or ``section_offset_um``).
 
     Returns
     -------
@@ -89,9 +153,11 @@ def zone_fraction(distance_um, radius_um, core_offset_um=0.0, section_offset_um=
     x = np.abs(distance_um)
     if np.any(core_offset_um):
         x = np.maximum(x - core_offset_um, 0.0)
-    h2 = np.square(section_offset_um)
-    if np.any(h2 > 0):
-        xi = np.sqrt(x * x + h2) / np.sqrt(np.square(radius_um) + h2)
+    if np.any(section_offset_um):
+        section_h_over_r = section_h_over_r_from_offset(section_offset_um, radius_um)
+    s2 = np.square(section_h_over_r)
+    if np.any(s2 > 0):
+        xi = np.sqrt(s2 + (1.0 - s2) * np.square(x / radius_um))
     else:
         xi = x / radius_um
     # x >= 0 here, so only the upper bound needs applying
@@ -99,7 +165,7 @@ def zone_fraction(distance_um, radius_um, core_offset_um=0.0, section_offset_um=
 
 
 def fraction_from_distance(distance_um, radius_um, f_core, f_rim, growth_exponent,
-                           core_offset_um=0.0, section_offset_um=0.0):
+                           core_offset_um=0.0, section_offset_um=0.0, section_h_over_r=0.0):
     r"""Crystallized fraction when the zone at ``distance_um`` grew [fraction].
 
     .. math:: F = F_{core} + (F_{rim} - F_{core})\,\xi^n
@@ -118,6 +184,8 @@ def fraction_from_distance(distance_um, radius_um, f_core, f_rim, growth_exponen
         Offset of the zone centre from the apparent core [µm].
     section_offset_um : float, optional
         Distance of the section plane from the crystal centre [µm].
+    section_h_over_r : float or ndarray, optional
+        Section offset relative to the true radius [fraction].
 
     Returns
     -------
@@ -128,7 +196,8 @@ def fraction_from_distance(distance_um, radius_um, f_core, f_rim, growth_exponen
     ----------
     .. [1] Pearce, T. H. (1984). Contrib. Mineral. Petrol. 86, 149-154.
     """
-    xi = zone_fraction(distance_um, radius_um, core_offset_um, section_offset_um)
+    xi = zone_fraction(distance_um, radius_um, core_offset_um, section_offset_um,
+                       section_h_over_r)
     return fraction_from_zone(xi**growth_exponent, f_core, f_rim)
 
 

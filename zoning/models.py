@@ -51,6 +51,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from zoning import diffusion as _diffusion
 from zoning import geometry as _geometry
 from zoning import kernels as _kernels
 from zoning.exceptions import CalibrationRangeWarning, ModelDomainError
@@ -59,6 +60,7 @@ from zoning.partitioning import (
     ATOMIC_WEIGHT,
     EXCHANGE_LAWS,
     OXIDE_MOLAR_MASS,
+    R_GAS,
     TraceLaw,
     equilibrium_crystal,
     make_trace_law,
@@ -70,12 +72,24 @@ __all__ = [
     "ConstantPartitionModel",
     "MODELS",
     "DEFAULT_BEAM_UM",
+    "SECTION_H_OVER_R_MAX",
 ]
 
 #: Default width of the beam/interaction volume, full width at half maximum,
 #: used when a convolution is asked for without a value [µm]. Typical
 #: effective lateral resolution of a focused beam in silicates (1-3 µm).
 DEFAULT_BEAM_UM = 2.0
+
+#: Upper bound of the ``section_h_over_r`` parameter: beyond it the section
+#: shows only the outermost few per cent of the crystal.
+SECTION_H_OVER_R_MAX = 0.95
+
+_SLAB_SECTION_MESSAGE = (
+    "{name} = {value!r} is not possible for geometry 'slab': zones of a slab are planes, so "
+    "a section normal to them shows the same profile wherever it cuts (an oblique cut "
+    "stretches the profile instead, which is not modelled). Keep the section offset at 0 "
+    "or use geometry 'sphere' or 'cylinder'."
+)
 
 #: Fe2O3 -> FeO conversion factor (2 M_FeO / M_Fe2O3).
 _FEO_PER_FE2O3 = 2 * OXIDE_MOLAR_MASS["FeO"] / (2 * OXIDE_MOLAR_MASS["FeO"] + ATOMIC_WEIGHT["O"])
@@ -113,7 +127,8 @@ class _ModelBase:
     parameters: tuple[ParameterSpec, ...]
     _crystal_keys: tuple[str, ...]
 
-    def __init__(self, geometry: str, beam_um: float, section_offset_um: float):
+    def __init__(self, geometry: str, beam_um: float, section_offset_um: float,
+                 rim: str = "fixed"):
         if geometry not in _geometry.GEOMETRY_EXPONENT:
             raise ModelDomainError(
                 f"unknown growth geometry {geometry!r}; expected one of "
@@ -124,6 +139,28 @@ class _ModelBase:
         self.section_offset_um = _check_scalar(
             "section_offset_um", section_offset_um, 0.0, 1e5, "[µm]"
         )
+        if geometry == "slab" and self.section_offset_um > 0:
+            raise ModelDomainError(_SLAB_SECTION_MESSAGE.format(value=section_offset_um,
+                                                                name="section_offset_um"))
+        if rim not in ("fixed", "closed"):
+            raise ModelDomainError(
+                f"unknown rim condition {rim!r} for diffusion after growth; expected 'fixed' "
+                f"(rim held at its last composition, in equilibrium with the melt) or "
+                f"'closed' (no exchange with the melt)."
+            )
+        self.rim = rim
+
+    @staticmethod
+    def _process_parameters() -> list[ParameterSpec]:
+        """Specs of the sectioning and diffusion parameters shared by the models."""
+        return [
+            ParameterSpec("section_h_over_r", "1", 0.0, SECTION_H_OVER_R_MAX, 0.0,
+                          "distance of the section plane from the crystal centre / true "
+                          "crystal radius"),
+            ParameterSpec("diffusion_length_um", "µm", 0.0, _diffusion.MAX_DIFFUSION_LENGTH_UM,
+                          0.0, "diffusion length sqrt(D t) after growth of the reference "
+                          "species at the rim composition"),
+        ]
 
     # ------------------------------------------------------------------ params
     @property
@@ -240,18 +277,23 @@ class _ModelBase:
                 **params) -> dict[str, np.ndarray]:
         r"""Evaluate the recorded profile at distances from the core.
 
-        Distance maps to F by :func:`zoning.geometry.fraction_from_distance`:
-        :math:`F = F_{core} + (F_{rim} - F_{core})((x - x_0)/R)^n`, with the
-        optional off-centre section correction, then the model is evaluated;
-        with ``beam_um > 0`` the crystal outputs are averaged over a Gaussian
-        beam of that full width at half maximum.
+        Distance maps to the relative radius of the zone in the true crystal
+        by :func:`zoning.geometry.zone_fraction` (core offset, off-centre
+        section ``section_h_over_r``), and to F by
+        :math:`F = F_{core} + (F_{rim} - F_{core})\xi^n`; the growth model is
+        evaluated there. With ``diffusion_length_um > 0`` the grown profile
+        of the true crystal (on :func:`zoning.diffusion.radial_grid`) is
+        relaxed by diffusion after growth and sampled at the spots. With
+        ``beam_um > 0`` the crystal outputs are averaged over a Gaussian beam
+        of that full width at half maximum.
 
         Parameters
         ----------
         distance_um : array_like, shape (n,)
             Distance of each spot from the core [µm], >= 0.
         radius_um : float
-            Core-to-rim distance R of the section [µm], > 0.
+            Core-to-rim distance of the section [µm], > 0 (the true radius
+            is ``radius_um / sqrt(1 - section_h_over_r**2)``).
         strict : bool, optional
             As in :meth:`path`.
         **params : float or array_like, shape (m,)
@@ -260,7 +302,11 @@ class _ModelBase:
         Returns
         -------
         dict of str to ndarray
-            As :meth:`path`, plus ``"distance_um"``.
+            As :meth:`path`, plus ``"distance_um"``; when any
+            ``diffusion_length_um`` is > 0, every crystal output ``<key>``
+            is the relaxed profile and ``"<key>_grown"`` (``"crystal_grown"``,
+            ``"crystal_nio_wt_grown"``, ...) the growth profile before
+            diffusion. Melt outputs and ``"f"`` are those of the growth.
 
         Raises
         ------
@@ -277,64 +323,126 @@ class _ModelBase:
             )
         radius = _check_scalar("radius_um", radius_um, 1e-6, 1e7, "[µm]", open_lower=True)
         p, m, scalar = self._params(params)
+        section = self._section(p["section_h_over_r"], radius)
+        length = p["diffusion_length_um"]
+        diffuse = bool(length.any())
         if self.beam_um > 0:
             off, wt = _geometry.beam_offsets(self.beam_um)
             xs = np.abs(x[:, None] + off[None, :]).ravel()  # (n*K,), mirrored at the core
         else:
             xs = x
         # the zone radius depends on the parameter set only through the core
-        # offset and the exponent; when they are shared, map the distances once
+        # offset, the section and the exponent; when they are shared, map the
+        # distances once
         exponent, offset = p["growth_exponent"], p["core_offset_um"]
         f_core = p["f_core"] if p["f_core"].any() else 0.0
         structure = None
-        if (exponent == exponent[0, 0]).all() and not offset.any():
-            # (x/R)^n shared by every parameter set: cached between calls
-            zone, increasing = self._zone_power(xs, radius, float(exponent[0, 0]))
+        shared = ((exponent == exponent[0, 0]).all() and not offset.any()
+                  and (section == section[0, 0]).all())
+        if shared:
+            # (xi)^n shared by every parameter set: cached between calls
+            xi, zone, increasing = self._zone_power(xs, radius, float(exponent[0, 0]),
+                                                    float(section[0, 0]))
             fm = _geometry.fraction_from_zone(zone, f_core, p["f_rim"])
             if increasing and (p["f_rim"] > f_core).all():
                 # every row is f_core + (f_rim - f_core) zone, increasing: the
                 # kernel locates the spots on its grid through the shared zone
                 structure = (zone[0], f_core, p["f_rim"])
         else:
-            fm = _geometry.fraction_from_distance(
-                xs[None, :], radius, f_core, p["f_rim"], exponent, offset,
-                self.section_offset_um,
-            )
+            xi = _geometry.zone_fraction(xs[None, :], radius, offset, 0.0,
+                                         section if section.any() else 0.0)
+            fm = _geometry.fraction_from_zone(xi**exponent, f_core, p["f_rim"])
+        n = x.shape[0]
+        parts = [fm]
         if self.beam_um > 0:
             centre = _geometry.fraction_from_distance(
                 x[None, :], radius, p["f_core"], p["f_rim"], p["growth_exponent"],
-                p["core_offset_um"], self.section_offset_um,
+                p["core_offset_um"], 0.0, section if section.any() else 0.0,
             )
-            fm_all = np.concatenate([centre, fm], axis=1)
-            out_all = self._evaluate(fm_all, p, strict=strict, stacklevel=3)
-            n = x.shape[0]
-            out = {k: v[:, :n] for k, v in out_all.items()}
-            k_nodes = off.shape[0]
-            for key in self._crystal_keys:
-                if key in out_all:
-                    blurred = out_all[key][:, n:].reshape(m, n, k_nodes)
-                    out[key] = blurred @ wt
+            parts.insert(0, centre)
+        if diffuse:
+            grid = _diffusion.radial_grid()
+            parts.append(_geometry.fraction_from_zone(grid[None, :] ** exponent, f_core,
+                                                      p["f_rim"]))
+        if len(parts) == 1:
+            out_all = self._evaluate(fm, p, strict=strict, stacklevel=3, f_structure=structure)
         else:
-            out = self._evaluate(fm, p, strict=strict, stacklevel=3, f_structure=structure)
+            out_all = self._evaluate(np.concatenate(parts, axis=1), p, strict=strict,
+                                     stacklevel=3)
+        n_sampled = fm.shape[1]
+        lo = n if self.beam_um > 0 else 0  # first sampled column
+        out = {k: v[:, :n] for k, v in out_all.items()}
+        keys = [k for k in self._crystal_keys if k in out_all]
+        sampled = {k: out_all[k][:, lo:lo + n_sampled] for k in keys}
+        if diffuse:
+            grown_grid = {k: out_all[k][:, lo + n_sampled:] for k in keys}
+            change = self._relax(grown_grid, p, length * np.sqrt(1.0 - section**2) / radius,
+                                 radius)
+            idx, w = _diffusion.grid_interpolation(xi)
+            positive = length > 0
+            relaxed = {}
+            for k in keys:
+                if k not in change:
+                    relaxed[k] = sampled[k]
+                    continue
+                d = change[k]
+                if idx.shape[0] == 1:  # positions shared by every parameter set
+                    delta = (w[0] * d[:, idx[0]] + w[1] * d[:, idx[0] + 1]
+                             + w[2] * d[:, idx[0] + 2] + w[3] * d[:, idx[0] + 3])
+                else:
+                    rows = np.arange(m)[:, None]
+                    delta = (w[0] * d[rows, idx] + w[1] * d[rows, idx + 1]
+                             + w[2] * d[rows, idx + 2] + w[3] * d[rows, idx + 3])
+                relaxed[k] = np.where(positive, sampled[k] + delta, sampled[k])
+        for k in keys:
+            if self.beam_um > 0:
+                k_nodes = off.shape[0]
+                out[k] = sampled[k].reshape(m, n, k_nodes) @ wt
+                if diffuse:
+                    out[k + "_grown"] = out[k]
+                    out[k] = relaxed[k].reshape(m, n, k_nodes) @ wt
+            elif diffuse:
+                out[k + "_grown"] = out[k]
+                out[k] = relaxed[k]
         dist = np.empty(out["f"].shape)
         dist[...] = x
         out["distance_um"] = dist
         return _squeeze(out, scalar)
 
-    def _zone_power(self, x, radius, exponent):
-        """Relative zone radius to the power n, shape (1, n), and whether it increases.
+    def _section(self, h_over_r, radius):
+        """Section offset h/R per parameter set, shape (m, 1), checked against the options."""
+        if self.section_offset_um > 0:
+            if h_over_r.any():
+                raise ModelDomainError(
+                    f"the section offset is given twice: section_offset_um = "
+                    f"{self.section_offset_um:g} µm in the model settings and "
+                    f"section_h_over_r = {float(h_over_r.max()):g}; give only one of them."
+                )
+            return np.full(h_over_r.shape, float(_geometry.section_h_over_r_from_offset(
+                self.section_offset_um, radius)))
+        if self.geometry == "slab" and h_over_r.any():
+            raise ModelDomainError(_SLAB_SECTION_MESSAGE.format(
+                value=float(h_over_r.max()), name="section_h_over_r"))
+        return h_over_r
+
+    def _zone_power(self, x, radius, exponent, section):
+        """Relative zone radius and its n-th power, shape (1, n), and whether it increases.
 
         The last result is cached.
         """
-        key = (x.tobytes(), radius, exponent, self.section_offset_um)
+        key = (x.tobytes(), radius, exponent, section)
         cached = getattr(self, "_zone_cache", None)
         if cached is None or cached[0] != key:
-            zone = _geometry.fraction_from_distance(x[None, :], radius, 0.0, 1.0, exponent, 0.0,
-                                                    self.section_offset_um)
+            xi = _geometry.zone_fraction(x[None, :], radius, 0.0, 0.0, section)
+            zone = xi**exponent
+            xi.flags.writeable = False
             zone.flags.writeable = False
-            cached = (key, zone, bool((zone[0, 1:] >= zone[0, :-1]).all()))
+            cached = (key, xi, zone, bool((zone[0, 1:] >= zone[0, :-1]).all()))
             self._zone_cache = cached
-        return cached[1], cached[2]
+        return cached[1], cached[2], cached[3]
+
+    def _relax(self, grown, p, length_over_radius, radius):  # pragma: no cover - abstract
+        raise NotImplementedError
 
     def _evaluate(self, f, p, *, strict, stacklevel,
                   f_structure=None):  # pragma: no cover - abstract
@@ -405,20 +513,66 @@ class CrystallizationModel(_ModelBase):
         [µm]; 0 (default) evaluates point values. :data:`DEFAULT_BEAM_UM`
         (2 µm) is the documented value to use when a convolution is wanted.
     section_offset_um : float, optional
-        Distance of the section plane from the crystal centre [µm].
+        Distance of the section plane from the crystal centre [µm], a fixed
+        setting; the same mapping as the parameter ``section_h_over_r`` (=
+        h / sqrt(radius_um^2 + h^2)), which must then stay 0. Not allowed
+        for geometry "slab".
     temperature_c : float, optional
         Temperature for the plagioclase trace laws [°C], taken as constant
         along the path and reported as ``temperature_c`` for plagioclase.
         Olivine paths report the Helz & Thornber (1987) melt temperature
-        instead.
+        instead. For plagioclase it also sets the default D_Sr/D_Mg of
+        diffusion after growth.
+    rim : {"fixed", "closed"}, optional
+        Rim condition of diffusion after growth: held at its last grown
+        composition, i.e. in equilibrium with the melt (default), or closed
+        (no exchange with the melt; the crystal keeps its mass).
+    diffusivity_ratio : mapping of str to float, optional
+        Diffusivity of trace elements relative to the reference species
+        (olivine: Fe-Mg; plagioclase: Mg), by element label; sets the
+        defaults of the parameters ``diffusivity_ratio_<element>``.
+        Defaults: olivine
+        :data:`zoning.diffusion.OLIVINE_DIFFUSIVITY_RATIOS` (Ni 1, Mn 1,
+        Ca 0.1, P 0); plagioclase Sr from the Arrhenius laws at
+        ``temperature_c`` (:func:`zoning.diffusion.plagioclase_diffusivity_ratio`).
+        A trace without a ratio cannot be diffused (an error names it when
+        ``diffusion_length_um > 0``).
 
     Attributes
     ----------
     parameters : tuple of ParameterSpec
         In order: ``melt_mg_number`` | ``melt_ca_number`` [fraction],
         ``f_rim``, ``retention``, ``kd``, ``f_core``, ``growth_exponent``,
-        ``core_offset_um``, then the initial trace contents
-        (``melt0_ni_ppm``, ``melt0_sr_ppm``, ``melt0_mgo_wt``, ``melt0_<x>_ppm``).
+        ``core_offset_um``, the initial trace contents
+        (``melt0_ni_ppm``, ``melt0_sr_ppm``, ``melt0_mgo_wt``, ``melt0_<x>_ppm``),
+        then the processes after growth: ``section_h_over_r`` [1] (0 to
+        0.95, default 0; h/R of an off-centre section, see
+        :mod:`zoning.geometry`) and ``diffusion_length_um`` [µm] (0 to
+        :data:`zoning.diffusion.MAX_DIFFUSION_LENGTH_UM`, default 0), and
+        ``diffusivity_ratio_<element>`` [1] (0 to 10) for every trace with a
+        known diffusivity ratio.
+    diffusing_keys : tuple of str
+        Crystal outputs changed by diffusion after growth (olivine: Fo and
+        every trace with a ratio; plagioclase: the traces, An is frozen).
+
+    Notes
+    -----
+    **Diffusion after growth** (:mod:`zoning.diffusion`): after the rim grew
+    the crystal stays in melt at constant temperature; diffusion inside the
+    crystal (sphere, cylinder or slab as ``geometry``) relaxes the growth
+    profile of the true crystal, which is then sampled at the spots (through
+    the section mapping and the beam average). ``diffusion_length_um`` is
+    :math:`L = \sqrt{D t}` of the reference species at the *grown rim*
+    composition: olivine Fe-Mg, with
+    :math:`D(X_{Fo}) = D_{rim}10^{-3(X_{Fo} - X_{Fo,rim})}` (Dohmen &
+    Chakraborty 2007; the equation is solved with this concentration
+    dependence), traces at ``diffusivity_ratio_<el>`` times the local Fe-Mg
+    D; plagioclase Mg, with :math:`D = D_{rim}10^{-4.1(X_{An} - X_{An,rim})}`
+    and the chemical-potential term of Costa et al. (2003), Sr at its ratio,
+    An frozen (Grove et al. 1984). Convert L to a time with
+    :func:`zoning.diffusion.diffusion_time_days`. Melt outputs are those of
+    the growth (the melt is a large reservoir). :meth:`path` ignores the
+    section and diffusion parameters (they act on positions in the crystal).
 
     Notes
     -----
@@ -449,6 +603,12 @@ class CrystallizationModel(_ModelBase):
     .. [8] Bindeman, I. N., Davis, A. M. & Drake, M. J. (1998). Geochim.
        Cosmochim. Acta 62, 1175-1193.
     .. [9] Helz, R. T. & Thornber, C. R. (1987). Bull. Volcanol. 49, 651-668.
+    .. [10] Dohmen, R. & Chakraborty, S. (2007). Phys. Chem. Minerals 34, 409-430.
+    .. [11] Costa, F., Chakraborty, S. & Dohmen, R. (2003). Geochim. Cosmochim.
+       Acta 67, 2189-2200.
+    .. [12] Grove, T. L., Baker, M. B. & Kinzler, R. J. (1984). Geochim.
+       Cosmochim. Acta 48, 2113-2121.
+    .. [13] Crank, J. (1975). The Mathematics of Diffusion, 2nd ed. Clarendon Press.
     """
 
     def __init__(
@@ -466,8 +626,10 @@ class CrystallizationModel(_ModelBase):
         beam_um: float = 0.0,
         section_offset_um: float = 0.0,
         temperature_c: float | None = None,
+        rim: str = "fixed",
+        diffusivity_ratio: Mapping[str, float] | None = None,
     ):
-        super().__init__(geometry, beam_um, section_offset_um)
+        super().__init__(geometry, beam_um, section_offset_um, rim)
         if mineral not in EXCHANGE_LAWS:
             raise ModelDomainError(
                 f"unknown mineral {mineral!r}; expected one of {sorted(EXCHANGE_LAWS)}."
@@ -513,8 +675,43 @@ class CrystallizationModel(_ModelBase):
             "kd", kd, law.kd_bounds[0], law.kd_bounds[1], "[1]"
         )
         self._setup_assemblage(assemblage, assemblage_d)
+        self._setup_diffusion(diffusivity_ratio)
         self.parameters = self._make_parameters()
         self._crystal_keys = ("crystal",) + tuple(t.crystal_key for t in self.traces)
+        self.diffusing_keys = (("crystal",) if mineral == "olivine" else ()) + tuple(
+            t.crystal_key for t in self.traces if t.element in self._ratio_defaults)
+
+    def _setup_diffusion(self, diffusivity_ratio) -> None:
+        """Default diffusivity ratio of every trace that has one (settings and defaults)."""
+        given = {}
+        for key, value in dict(diffusivity_ratio or {}).items():
+            given[str(key)] = _check_scalar(f"diffusivity_ratio[{key!r}]", value, 0.0, 1e3,
+                                            "[1]")
+        labels = [t.element for t in self.traces]
+        unknown = sorted(set(given) - set(labels))
+        if unknown:
+            raise ModelDomainError(
+                f"diffusivity_ratio given for {unknown}, which are not traces of this model; "
+                f"traces: {labels}."
+            )
+        if self.mineral == "plagioclase" and "Mg" in given and given["Mg"] != 1.0:
+            raise ModelDomainError(
+                "diffusivity_ratio of Mg in plagioclase is 1 by definition (diffusion_length_um "
+                f"is the Mg diffusion length); got {given['Mg']!r}. Give the other traces "
+                "relative to Mg."
+            )
+        defaults = {}
+        for tr in self.traces:
+            if tr.element in given:
+                defaults[tr.element] = given[tr.element]
+            elif self.mineral == "olivine":
+                if tr.element in _diffusion.OLIVINE_DIFFUSIVITY_RATIOS:
+                    defaults[tr.element] = _diffusion.OLIVINE_DIFFUSIVITY_RATIOS[tr.element]
+            else:
+                value = _diffusion.plagioclase_diffusivity_ratio(tr.element, self.temperature_c)
+                if math.isfinite(value):
+                    defaults[tr.element] = value
+        self._ratio_defaults = defaults
 
     def _setup_assemblage(self, assemblage, assemblage_d) -> None:
         """Validate the assemblage; store the shares and mass-weighted D of the others."""
@@ -605,6 +802,15 @@ class CrystallizationModel(_ModelBase):
             specs.append(ParameterSpec(tr.parameter, tr.unit, tr.c0_bounds[0], tr.c0_bounds[1],
                                        self._trace_default(tr),
                                        f"initial melt {tr.element} content"))
+        specs.extend(self._process_parameters())
+        reference = "Fe-Mg" if self.mineral == "olivine" else "Mg"
+        for tr in self.traces:
+            if tr.element not in self._ratio_defaults or (
+                    self.mineral == "plagioclase" and tr.element == "Mg"):
+                continue
+            value = self._ratio_defaults[tr.element]
+            specs.append(ParameterSpec(_ratio_name(tr), "1", 0.0, max(10.0, value), value,
+                                       f"diffusivity of {tr.element} relative to {reference}"))
         return tuple(specs)
 
     def _trace_default(self, tr: TraceLaw) -> float:
@@ -808,6 +1014,51 @@ class CrystallizationModel(_ModelBase):
             out[tr.melt_key] = melt_c
             out[tr.crystal_key] = d_pt * melt_c * tr.crystal_factor
 
+    def _relax(self, grown, p, length_over_radius, radius):
+        """Change of each diffusing crystal output on the radial grid, shape (m, N)."""
+        tau = np.square(length_over_radius)
+        species, ratios, log_cap = [], [], []
+        olivine = self.mineral == "olivine"
+        if olivine:
+            species.append(("crystal", 0.01))
+            ratios.append(1.0)
+        temp_k = self.temperature_c + 273.15
+        x_field = 0.01 * grown["crystal"]
+        for tr in self.traces:
+            if tr.element not in self._ratio_defaults:
+                raise ModelDomainError(
+                    f"no diffusivity is known for {tr.element} in {self.mineral} relative to "
+                    f"{'Fe-Mg' if olivine else 'Mg'}, so its profile cannot be diffused; give "
+                    f"diffusivity_ratio={{'{tr.element}': value}} (project key "
+                    f"diffusivity_ratio) or keep diffusion_length_um at 0."
+                )
+            species.append((tr.crystal_key, 1.0))
+            name = _ratio_name(tr)
+            ratios.append(p[name] if name in p else self._ratio_defaults[tr.element])
+            if not olivine:
+                a_j = tr.coefficients[0] if tr.kind == "plag_lattice" else 0.0
+                log_cap.append((a_j / (R_GAS * temp_k)) * x_field if a_j else None)
+        if not species:
+            return {}
+        m = tau.shape[0]
+        c0 = np.stack([np.broadcast_to(scale * grown[k], grown["crystal"].shape)
+                       for k, scale in species])
+        ratio = np.stack([np.broadcast_to(np.asarray(r, dtype=float), (m, 1)) for r in ratios])
+        dim = _diffusion.DIMENSION[self.geometry]
+        if olivine:
+            out = _diffusion.relax(c0, tau, dimension=dim, rim=self.rim, ratio=ratio,
+                                   field_slope=-_diffusion.OLIVINE_FE_EXPONENT * _LN10,
+                                   self_driven=True)
+        else:
+            cap = None
+            if any(v is not None for v in log_cap):
+                cap = np.stack([np.zeros_like(x_field) if v is None else v for v in log_cap])
+            out = _diffusion.relax(c0, tau, dimension=dim, rim=self.rim, ratio=ratio,
+                                   field=x_field,
+                                   field_slope=-_diffusion.PLAGIOCLASE_AN_EXPONENT * _LN10,
+                                   log_capacity=cap)
+        return {k: (out[i] - c0[i]) / scale for i, (k, scale) in enumerate(species)}
+
     def initial_guess(self, distance_um, major, trace=None) -> dict[str, float]:
         """Data-driven starting values for a fit.
 
@@ -908,7 +1159,7 @@ class ConstantPartitionModel(_ModelBase):
         Label of the element (used in output descriptions only).
     unit : str, optional
         Concentration unit of ``melt0`` and the outputs.
-    geometry, beam_um, section_offset_um
+    geometry, beam_um, section_offset_um, rim
         As for :class:`CrystallizationModel`.
 
     Attributes
@@ -916,7 +1167,8 @@ class ConstantPartitionModel(_ModelBase):
     parameters : tuple of ParameterSpec
         ``melt0`` (initial melt content), ``partition_coefficient`` (D, wt
         basis), ``f_rim``, ``retention``, ``f_core``, ``growth_exponent``,
-        ``core_offset_um``.
+        ``core_offset_um``, ``section_h_over_r``, ``diffusion_length_um``
+        (L = sqrt(D t) of the element itself, constant D).
 
     Notes
     -----
@@ -931,8 +1183,8 @@ class ConstantPartitionModel(_ModelBase):
     """
 
     def __init__(self, element: str = "X", unit: str = "ppm", *, geometry: str = "sphere",
-                 beam_um: float = 0.0, section_offset_um: float = 0.0):
-        super().__init__(geometry, beam_um, section_offset_um)
+                 beam_um: float = 0.0, section_offset_um: float = 0.0, rim: str = "fixed"):
+        super().__init__(geometry, beam_um, section_offset_um, rim)
         self.element = element
         self.unit = unit
         self.parameters = (
@@ -950,8 +1202,16 @@ class ConstantPartitionModel(_ModelBase):
                           "exponent n of F(x) = F_core + (F_rim - F_core)(x/R)^n"),
             ParameterSpec("core_offset_um", "µm", -100.0, 100.0, 0.0,
                           "offset of the true core from the apparent core"),
+            *self._process_parameters(),
         )
         self._crystal_keys = ("crystal",)
+        self.diffusing_keys = ("crystal",)
+
+    def _relax(self, grown, p, length_over_radius, radius):
+        c0 = grown["crystal"][None]
+        out = _diffusion.relax(c0, np.square(length_over_radius),
+                               dimension=_diffusion.DIMENSION[self.geometry], rim=self.rim)
+        return {"crystal": out[0] - c0[0]}
 
     def _evaluate(self, f, p, *, strict, stacklevel, f_structure=None):
         ratio = _kernels.retention_closed_form(f, p["partition_coefficient"], p["retention"])
@@ -970,6 +1230,14 @@ MODELS = (CrystallizationModel, ConstantPartitionModel)
 
 
 # ---------------------------------------------------------------- helpers
+_LN10 = math.log(10.0)
+
+
+def _ratio_name(tr: TraceLaw) -> str:
+    """Name of the diffusivity-ratio parameter of a trace."""
+    return f"diffusivity_ratio_{tr.element.lower()}"
+
+
 def _squeeze(out: dict, scalar: bool) -> dict:
     if scalar:
         return {k: np.ascontiguousarray(v[0]) for k, v in out.items()}
