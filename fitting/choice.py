@@ -10,7 +10,10 @@ The lowest BIC is the preferred model when it beats the runner-up by at
 least :data:`CLEAR_PREFERENCE_BIC` (2 units: Kass & Raftery 1995 call
 smaller differences "not worth more than a bare mention"); otherwise the
 answer is "no clear preference". A profile with a reversal (recharge or
-mixing) voids every closed-system model: no model is preferred.
+mixing) voids every closed-system model: no model is preferred. Reversals
+are tested against the larger of the stated sigma and the scatter the data
+show, capped at the sigma the fit used after scaling
+(:func:`zoning.fitting.diagnostics.reversal_sigma`).
 
 When the best fit is significantly worse than the stated analytical
 uncertainties allow (reduced chi-square above ``1 + 3 sqrt(2/dof)``),
@@ -34,7 +37,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 from zoning.fitting.bestfit import CandidateFit
-from zoning.fitting.diagnostics import find_reversals
+from zoning.fitting.diagnostics import find_reversals, reversal_sigma
 from zoning.fitting.problem import FitProblem
 
 from zoning.exceptions import FitError
@@ -78,6 +81,9 @@ class ModelChoice:
         :func:`zoning.fitting.diagnostics.find_reversals`).
     messages : tuple of str
         Plain-language warnings of this stage (several optima, sigma scaled).
+    reversal_sigma : float
+        Per-spot 1-sigma the reversals were tested against
+        (:func:`zoning.fitting.diagnostics.reversal_sigma`) [mol%].
     """
 
     comparison: pd.DataFrame
@@ -89,6 +95,7 @@ class ModelChoice:
     reduced_chi_square: float
     reversals: pd.DataFrame
     messages: tuple[str, ...] = ()
+    reversal_sigma: float = float("nan")
 
 
 def comparison_table(fits: Sequence[CandidateFit], n_data: int) -> pd.DataFrame:
@@ -201,7 +208,11 @@ def choose_model(problem: FitProblem, fits: Sequence[CandidateFit]) -> ModelChoi
             f"{reduced:.2f}); every sigma was multiplied by {sub.sigma_scale:.2f} so that "
             "the bands are not narrower than the data support."
         )
-    reversals = find_reversals(problem.distance_um, problem.y, problem.sigma)
+    # Reversals are judged against the noise the data actually show (never
+    # less than stated, never more than the sigma the fit used): noise three
+    # times the stated sigma must not read as recharge.
+    rev_sigma = reversal_sigma(problem.distance_um, problem.y, problem.sigma, sub.sigma_scale)
+    reversals = find_reversals(problem.distance_um, problem.y, rev_sigma)
     if len(reversals):
         preferred = ""
     return ModelChoice(
@@ -214,4 +225,5 @@ def choose_model(problem: FitProblem, fits: Sequence[CandidateFit]) -> ModelChoi
         reduced_chi_square=reduced,
         reversals=reversals,
         messages=tuple(messages),
+        reversal_sigma=rev_sigma,
     )

@@ -26,6 +26,8 @@ __all__ = [
     "runs_test_z",
     "reversal_threshold",
     "find_reversals",
+    "noise_scatter",
+    "reversal_sigma",
 ]
 
 #: Width of the running median applied before looking for reversals
@@ -281,6 +283,88 @@ def reversal_threshold(n: int, sigma: float, *, n_sim: int = 2000, seed: int = 1
         noise = rng.standard_normal((stop - start, n)) * sigma
         rises[start:stop] = _max_rise(_running_median(noise, REVERSAL_WINDOW))
     return float(max(REVERSAL_N_SIGMA * sigma, np.quantile(rises, 0.99)))
+
+
+def noise_scatter(distance_um: np.ndarray, value: np.ndarray) -> float:
+    """Spot-to-spot scatter of a profile, estimated from the data alone [unit of ``value``].
+
+    Pseudo-residuals of Gasser, Sroka & Jennen-Steinmetz (1986): for each
+    interior spot, ``e_i = a_i y_(i-1) + b_i y_(i+1) - y_i`` with the
+    linear-interpolation weights ``a_i = (x_(i+1) - x_i) / (x_(i+1) - x_(i-1))``
+    and ``b_i = 1 - a_i``, scaled by ``c_i = (a_i^2 + b_i^2 + 1)^(-1/2)`` so
+    that ``c_i e_i`` has the variance of one spot's noise wherever the
+    profile is locally linear. A smooth zoning trend (also a reversal spread
+    over several spots) hardly enters; the robust scale 1.4826 x median
+    absolute value keeps single stray spots and sharp steps from inflating it.
+
+    Parameters
+    ----------
+    distance_um : ndarray, shape (n,)
+        Distance [µm], increasing (ties are skipped).
+    value : ndarray, shape (n,)
+        Measured values.
+
+    Returns
+    -------
+    float
+        Estimated 1-sigma of one spot; NaN with fewer than 5 usable triples.
+
+    References
+    ----------
+    Gasser, T., Sroka, L. & Jennen-Steinmetz, C. (1986) Residual variance and
+    residual pattern in nonlinear regression. Biometrika 73, 625-633 (from
+    memory).
+    """
+    x = np.asarray(distance_um, dtype=float)
+    y = np.asarray(value, dtype=float)
+    ok = np.isfinite(x) & np.isfinite(y)
+    x, y = x[ok], y[ok]
+    if x.size < 7:
+        return float("nan")
+    span = x[2:] - x[:-2]
+    good = (x[1:-1] > x[:-2]) & (x[2:] > x[1:-1])
+    if good.sum() < 5:
+        return float("nan")
+    a = np.where(good, (x[2:] - x[1:-1]) / np.where(good, span, 1.0), 0.5)
+    b = 1.0 - a
+    e = a * y[:-2] + b * y[2:] - y[1:-1]
+    c = 1.0 / np.sqrt(a**2 + b**2 + 1.0)
+    return float(1.4826 * np.median(np.abs(c * e)[good]))
+
+
+def reversal_sigma(
+    distance_um: np.ndarray, value: np.ndarray, sigma: np.ndarray | float,
+    sigma_scale: float = 1.0,
+) -> float:
+    """Per-spot 1-sigma that reversals are tested against [unit of ``value``].
+
+    ``max(stated, min(stated x sigma_scale, scatter))``: never below the
+    stated analytical sigma; raised when the data scatter more than stated
+    (:func:`noise_scatter`), so that noise is never read as recharge; but not
+    beyond the sigma the fit used after scaling (the Birge ratio, which also
+    grows with a real reversal the model cannot follow, so it alone would
+    hide one).
+
+    Parameters
+    ----------
+    distance_um, value : ndarray, shape (n,)
+        The measured profile.
+    sigma : ndarray, shape (n,), or float
+        Stated per-spot 1-sigma (the median is used).
+    sigma_scale : float, optional
+        Factor the fit applied to every sigma.
+
+    Returns
+    -------
+    float
+    """
+    stated = float(np.nanmedian(np.broadcast_to(np.asarray(sigma, dtype=float),
+                                                np.shape(value))))
+    scatter = noise_scatter(distance_um, value)
+    scaled = stated * float(sigma_scale)
+    if not np.isfinite(scatter):
+        return stated
+    return float(max(stated, min(scaled, scatter)))
 
 
 def find_reversals(

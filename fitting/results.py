@@ -36,9 +36,11 @@ class Estimate:
     unit : str
         Unit ("1" for dimensionless fractions, "wt%", "ppm", "µm").
     best : float
-        Best value (maximum a posteriori from the multi-start fit).
+        Reported value: the posterior median, so that it always lies inside
+        ``[lo95, hi95]`` (for a fixed quantity, its value).
     median : float
-        Posterior median.
+        Posterior median (the same as ``best``; kept for readers of older
+        results).
     lo95, hi95 : float
         2.5 and 97.5 percentiles of the posterior (NaN when not sampled).
     lower, upper : float
@@ -50,6 +52,11 @@ class Estimate:
     note : str
         Plain-language statement (e.g. "retention not constrained by these
         data: band covers most of 0-1"), "" when there is nothing to say.
+    best_fit : float
+        Value at the best fit (least squares with the Kd prior, i.e. the
+        maximum a posteriori of the sampled model). It may lie outside the
+        band when the posterior is skewed or piled at a bound; figures of
+        the best-fit curve use it.
     """
 
     name: str
@@ -62,6 +69,7 @@ class Estimate:
     upper: float = float("nan")
     constrained: bool = True
     note: str = ""
+    best_fit: float = float("nan")
 
 
 @dataclass(frozen=True, eq=False)

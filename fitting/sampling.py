@@ -134,6 +134,28 @@ def _start_ball(best, lower, upper, n_walkers, rng, covariance=None):
     return np.clip(pos, lower + 1e-12 * (upper - lower), upper - 1e-12 * (upper - lower))
 
 
+def _finite_start(log_prob, start, best, max_halvings=40):
+    """Pull starting walkers with zero posterior towards ``best`` until all are positive.
+
+    Each walker outside the support (e.g. a melt ratio beyond its bounds
+    after the change of coordinates, or a fraction the melt cannot reach) is
+    moved half-way to the best fit, repeatedly; the best fit itself lies in
+    the support. A walker that starts at zero posterior would otherwise make
+    the sampler compare -inf with -inf (NaN) and could stay outside the prior.
+    """
+    start = np.array(start, dtype=float, copy=True)
+    lp = np.asarray(log_prob(start), dtype=float)
+    bad = ~np.isfinite(lp)
+    for _ in range(max_halvings):
+        if not bad.any():
+            break
+        start[bad] = best + 0.5 * (start[bad] - best)
+        lp[bad] = log_prob(start[bad])
+        bad = ~np.isfinite(lp)
+    start[bad] = best
+    return start
+
+
 def run_ensemble(
     log_prob: Callable[[np.ndarray], np.ndarray],
     best: np.ndarray,
@@ -180,7 +202,8 @@ def run_ensemble(
     upper = np.asarray(upper, dtype=float)
     n_par = lower.size
     rng = np.random.default_rng(seed)
-    start = _start_ball(best, lower, upper, n_walkers, rng, covariance)
+    start = _finite_start(log_prob, _start_ball(best, lower, upper, n_walkers, rng, covariance),
+                          best)
 
     def seeded(sampler):
         # emcee keeps its own legacy RandomState; seed it from our generator
@@ -234,8 +257,13 @@ def run_ensemble(
     tau = np.maximum(np.where(np.isfinite(tau), tau, float(n_kept)), 1.0)
     ess = n_kept * n_walkers / tau
     thin = max(1, int(0.5 * float(np.min(tau))))
-    flat = chain.reshape(-1, n_par)
-    thinned = chain[::thin].reshape(-1, n_par)
+    # Every walker starts where the posterior is positive and a move to a
+    # point of zero posterior is never accepted, so every kept draw has a
+    # finite log-posterior; the check below guards that invariant (a draw
+    # outside the prior would reach the derived quantities otherwise).
+    finite = np.isfinite(sampler.get_log_prob())
+    flat = chain.reshape(-1, n_par)[finite.reshape(-1)]
+    thinned = chain[::thin].reshape(-1, n_par)[finite[::thin].reshape(-1)]
     return ChainSummary(
         flat=flat,
         thinned=thinned,

@@ -24,7 +24,12 @@ from zoning.fitting.problem import DEFAULT_SIGMA, FitProblem
 from zoning.fitting.results import Estimate, FitResult
 from zoning.fitting.sampling import Posterior, credible_band
 
-from zoning.exceptions import CalibrationRangeWarning, ConvergenceWarning, DataQualityWarning
+from zoning.exceptions import (
+    CalibrationRangeWarning,
+    ConvergenceWarning,
+    DataQualityWarning,
+    ZoningError,
+)
 
 __all__ = ["summarise_fit", "estimate_from_draws", "UNCONSTRAINED_FRACTION"]
 
@@ -36,6 +41,14 @@ N_CURVE_DRAWS = 300
 N_CURVE_POINTS = 200
 
 _MAJOR_LABEL = {"olivine": "Fo", "plagioclase": "An"}
+_OXIDE_LABEL = {"mgo": "MgO", "feo": "FeO", "cao": "CaO", "na2o": "Na2O"}
+
+#: F_rim / F_max (largest F the melt can give as the one mineral) from which
+#: a fit is said to drive the melt towards exhaustion (our choice).
+EXHAUSTION_SHARE = 0.85
+#: Share of an exchanging melt oxide left at the rim below which the melt is
+#: said to be drained of it (our choice).
+EXHAUSTION_REMAINING = 0.1
 
 
 def _versions() -> dict[str, str]:
@@ -55,7 +68,7 @@ def estimate_from_draws(name, unit, best, draws, lower, upper) -> Estimate:
     ----------
     name, unit : str
     best : float
-        Best-fit value.
+        Best-fit value (kept as ``best_fit``; ``best`` is the median).
     draws : ndarray, shape (k,)
         Posterior draws.
     lower, upper : float
@@ -79,25 +92,54 @@ def estimate_from_draws(name, unit, best, draws, lower, upper) -> Estimate:
         note = f"only an upper limit: {name} < {hi:.3g} (95%)"
     elif kind == "lower_limit":
         note = f"only a lower limit: {name} > {lo:.3g} (95%)"
+    # The reported value is the median, which lies inside its own band by
+    # construction (also for one-sided bands); the best fit is kept apart.
+    reported = med if np.isfinite(med) else float(best)
     return Estimate(
-        name=name, unit=unit, best=float(best), median=med, lo95=lo, hi95=hi,
+        name=name, unit=unit, best=float(reported), median=med, lo95=lo, hi95=hi,
         lower=float(lower), upper=float(upper), constrained=constrained, note=note,
+        best_fit=float(best),
     )
 
 
 def _parent(prob: FitProblem, theta: np.ndarray) -> dict:
-    """Parent melt oxide of the pair and temperature at F = 0 for each row."""
-    params = prob.params(theta)
-    params = {k: v for k, v in params.items() if k not in ("growth_exponent", "core_offset_um")}
-    params["f_core"] = np.zeros(theta.shape[0]) if "f_core" in params else 0.0
-    with np.errstate(all="ignore"), warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        out = prob.model.path(np.array([0.0]), strict=False, **params)
+    """Parent melt oxide of the pair and temperature at F = 0 for each row.
+
+    Rows outside the prior bounds (which the sampler never keeps, but a
+    caller may pass) and rows the forward model refuses give NaN, never an
+    exception: a derived quantity must not end a fit.
+    """
+    theta = np.atleast_2d(np.asarray(theta, dtype=float))
     m = theta.shape[0]
-    oxide = np.reshape(out[prob.oxide_name], (m, -1))[:, 0]
-    temp = np.reshape(out["temperature_c"], (m, -1))[:, 0] if "temperature_c" in out else (
-        np.full(m, np.nan)
-    )
+    oxide, temp = np.full(m, np.nan), np.full(m, np.nan)
+    inside = np.all(np.isfinite(theta) & (theta >= prob.lower) & (theta <= prob.upper), axis=1)
+
+    def evaluate(rows):
+        params = prob.params(rows)
+        params = {k: v for k, v in params.items()
+                  if k not in ("growth_exponent", "core_offset_um")}
+        params["f_core"] = np.zeros(rows.shape[0]) if "f_core" in params else 0.0
+        with np.errstate(all="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            out = prob.model.path(np.array([0.0]), strict=False, **params)
+        k = rows.shape[0]
+        ox = np.reshape(out[prob.oxide_name], (k, -1))[:, 0]
+        tc = (np.reshape(out["temperature_c"], (k, -1))[:, 0] if "temperature_c" in out
+              else np.full(k, np.nan))
+        return ox, tc
+
+    idx = np.flatnonzero(inside)
+    if idx.size:
+        try:
+            oxide[idx], temp[idx] = evaluate(theta[idx])
+        except ZoningError:
+            # One refused row must not void the others: evaluate them one by
+            # one (rare path; the batched call is the normal one).
+            for i in idx:
+                try:
+                    oxide[i], temp[i] = (v[0] for v in evaluate(theta[i:i + 1]))
+                except ZoningError:
+                    pass
     return {"melt_oxide": oxide, "temperature_c": temp}
 
 
@@ -121,7 +163,7 @@ def _estimates(prob: FitProblem, theta_best, flat, rng) -> dict[str, Estimate]:
             estimates[name] = Estimate(
                 name=name, unit=specs[name].unit, best=value, median=value, lo95=value,
                 hi95=value, lower=float(specs[name].lower), upper=float(specs[name].upper),
-                constrained=True, note=f"{name} fixed at {value:g}",
+                constrained=True, note=f"{name} fixed at {value:g}", best_fit=value,
             )
     if "kd" in free_names:
         post_sd = float(np.std(flat[:, free_names.index("kd")]))
@@ -151,7 +193,8 @@ def _estimates(prob: FitProblem, theta_best, flat, rng) -> dict[str, Estimate]:
         lo_b, hi_b = np.sort(parent_bounds[key])
         med, lo, hi, _kind = credible_band(parent_draws[key], -np.inf, np.inf)
         estimates[name] = Estimate(
-            name=name, unit=unit, best=best_v, median=med, lo95=lo, hi95=hi,
+            name=name, unit=unit, best=med if np.isfinite(med) else best_v, median=med,
+            lo95=lo, hi95=hi, best_fit=best_v,
             lower=float(lo_b), upper=float(hi_b), constrained=ratio_est.constrained,
             note="derived from " + ratio_name + " and the reference melt"
             + ("" if ratio_est.constrained else "; not constrained by these data"),
@@ -259,6 +302,53 @@ def _curves(prob: FitProblem, best, frac, eq, draws):
         ):
             curve[key] = row(out_best, key)[0][n_spot:]
     return pd.DataFrame(table), pd.DataFrame(curve)
+
+
+def _exhaustion_message(prob: FitProblem, theta: np.ndarray) -> str:
+    """Warning text when the best-fit path nearly uses up the melt, else "".
+
+    Crystallizing one mineral alone, the melt runs out of the exchanging
+    cations at F_max (:meth:`zoning.models.CrystallizationModel.max_fraction`).
+    A fit whose rim sits at :data:`EXHAUSTION_SHARE` of F_max or beyond, or
+    whose melt loses all but :data:`EXHAUSTION_REMAINING` of an exchanging
+    oxide, is explained by a melt the model drains of that oxide: in a
+    real magma other minerals crystallize alongside and the melt evolves
+    differently.
+    """
+    theta = np.atleast_2d(theta)
+    params = prob.params(theta)
+    f_rim = float(np.ravel(params["f_rim"])[0])
+    f_max = float(np.ravel(prob.max_fraction(theta))[0])
+    share = f_rim / f_max if f_max > 0 else float("nan")
+    path_params = {k: v for k, v in params.items()
+                   if k not in ("growth_exponent", "core_offset_um")}
+    path_params["f_core"] = np.zeros(1) if "f_core" in path_params else 0.0
+    try:
+        with np.errstate(all="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            out = prob.model.path(np.array([0.0, min(f_rim, 0.999)]), strict=False,
+                                  **path_params)
+    except ZoningError:
+        return ""
+    drained = []
+    for key in sorted(out):
+        if key.startswith("melt_") and key.endswith("_wt"):
+            v = np.reshape(out[key], (-1, 2))[0]
+            if np.all(np.isfinite(v)) and v[0] > 0 and v[1] / v[0] < EXHAUSTION_REMAINING:
+                oxide = key[len("melt_"):-len("_wt")]
+                drained.append(f"{_OXIDE_LABEL.get(oxide, oxide)} {v[0]:.2g} -> {v[1]:.2g} wt%")
+    if not drained and not (np.isfinite(share) and share >= EXHAUSTION_SHARE):
+        return ""
+    mineral = prob.mineral
+    what = ("; melt " + ", ".join(drained)) if drained else ""
+    return (
+        f"the best fit crystallizes {mineral} to F_rim = {f_rim:.2f}, "
+        f"{100 * share:.0f}% of the {f_max:.2f} its parent melt can make as {mineral} "
+        f"alone{what}: the fit drives the melt towards exhaustion. Other minerals "
+        "crystallizing alongside are not modelled, so F_rim and r are those of a "
+        f"melt that makes only {mineral}; compare with the rim's glass or groundmass "
+        "composition before reading F_rim."
+    )
 
 
 def _limit_fit(choice: ModelChoice, fits: Sequence[CandidateFit], retention: str) -> np.ndarray:
@@ -404,6 +494,10 @@ def summarise_fit(
             if text not in warn_list:
                 warn_list.append(text)
                 emit.append((CalibrationRangeWarning, text))
+    exhausted = _exhaustion_message(prob, theta_best)
+    if exhausted:
+        warn_list.append(exhausted)
+        emit.append((DataQualityWarning, exhausted))
     warn_list.extend(problem.notes)
 
     diagnostics = {
@@ -416,6 +510,7 @@ def summarise_fit(
         "n_converged_starts": float(sampled.n_same),
         "n_grid": float(n_grid),
         "sigma_scale": float(prob.sigma_scale),
+        "reversal_sigma": float(choice.reversal_sigma),
         "runs_test_z": runs_test_z(used_rows["residual"].to_numpy(float)),
     }
     for name, t, e in zip(prob.free, chain.tau, chain.ess, strict=True):

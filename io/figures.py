@@ -400,7 +400,10 @@ def _melt_ratio_panel(ax, result) -> None:
         ax.plot([f0], [est.best], marker="*", ms=11, color=PALETTE["vermillion"],
                 linestyle="none", label="parent", zorder=5)
         if np.isfinite(est.lo95) and np.isfinite(est.hi95):
-            ax.errorbar([f0], [est.best], yerr=[[est.best - est.lo95], [est.hi95 - est.best]],
+            # Non-negative by construction (best is the median, inside its
+            # band); clipped so that a result from elsewhere cannot crash it.
+            err = [[max(est.best - est.lo95, 0.0)], [max(est.hi95 - est.best, 0.0)]]
+            ax.errorbar([f0], [est.best], yerr=err,
                         color=PALETTE["vermillion"], capsize=3, lw=1)
     ax.set_ylabel(label + " [fraction]")
     ax.legend(fontsize="x-small")

@@ -196,6 +196,7 @@ def fit_to_dict(result: Any) -> dict[str, Any]:
                 "unit": e.unit,
                 "best": e.best,
                 "median": e.median,
+                "best_fit": float(getattr(e, "best_fit", float("nan"))),
                 "lo95": e.lo95,
                 "hi95": e.hi95,
                 "lower": e.lower,
