@@ -286,3 +286,25 @@ def test_one_spot_is_refused_with_the_file_named(tmp_path, capsys):
     assert code == 2
     assert "only 1 usable spot" in err and "one.csv" in err
     assert "radius must be positive" not in err and "Traceback" not in err
+
+
+# --- cases once decided wrong by benchmarks/orientation.py ------------------
+
+def test_reverse_olivine_without_a_steeper_end_is_asked_not_read_backwards():
+    # chemistry alone (Fo, NiO, MnO all agree) cannot tell a reversely zoned crystal
+    # from a normally zoned one read backwards; the shape shows no steeper end
+    case = make_case("reverse", np.random.default_rng([20261202, 12, len("reverse"), 0]),
+                     mineral="olivine")
+    t = case.traverse
+    assert t.orientation_confidence == "uncertain", t.orientation_basis
+    assert "a reversely zoned crystal would look the same" in t.orientation_basis
+
+
+def test_oscillation_peak_with_unlike_ends_is_not_taken_as_rim_to_rim():
+    case = make_case("oscillatory",
+                     np.random.default_rng([20261202, 30, len("oscillatory"), 0]),
+                     mineral="plagioclase")
+    t = case.traverse
+    assert case.truth == "core-to-rim"
+    assert t.orientation_confidence == "uncertain", t.orientation_basis
+    assert "both rims in that reading, differ" in t.orientation_basis
