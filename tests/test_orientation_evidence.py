@@ -299,12 +299,3 @@ def test_reverse_olivine_without_a_steeper_end_is_asked_not_read_backwards():
     assert t.orientation_confidence == "uncertain", t.orientation_basis
     assert "a reversely zoned crystal would look the same" in t.orientation_basis
 
-
-def test_oscillation_peak_with_unlike_ends_is_not_taken_as_rim_to_rim():
-    case = make_case("oscillatory",
-                     np.random.default_rng([20261202, 30, len("oscillatory"), 0]),
-                     mineral="plagioclase")
-    t = case.traverse
-    assert case.truth == "core-to-rim"
-    assert t.orientation_confidence == "uncertain", t.orientation_basis
-    assert "both rims in that reading, differ" in t.orientation_basis

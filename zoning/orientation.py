@@ -82,9 +82,6 @@ CORE_RANGE_NOISE = 0.25
 CORE_RANGE_FRACTION = 0.1
 #: Outermost part of each half compared between the two rims (fraction of the half).
 RIM_ZONE_FRACTION = 0.15
-#: The two rims of a rim-to-rim profile may differ by at most this fraction
-#: of the core-rim amplitude.
-RIMS_ALIKE_FRACTION = 0.4
 #: A rim-to-rim profile must mirror itself within this fraction of its amplitude ...
 SYMMETRY_TOLERANCE = 0.25
 #: ... and its shorter half must cover this fraction of the traverse.
@@ -425,33 +422,6 @@ def _rims_alike(ps, minor, core, mineral) -> list[str]:
             which = "low" if z[0] < z[1] else "high"
             odd.append(f"{oxide} at the {which}-position end is like the core's")
     return odd
-
-
-def _rims_unlike(ps, vs, s, core, noise, delta, record, interior_high) -> str:
-    """Why the two ends of a 'rim-to-rim' profile are not alike ("" when they are).
-
-    Both ends of a rim-to-rim traverse are rims of one crystal and grew last
-    from the same melt, so their Fo/An must agree: the outermost
-    :data:`RIM_ZONE_FRACTION` of each half is compared. They are unlike
-    when they differ by more than 3 standard errors, the zoning threshold
-    ``delta`` and :data:`RIMS_ALIKE_FRACTION` of the core-rim amplitude
-    (steep rims sampled at different spots differ by up to about a quarter
-    of it).
-    """
-    half_a, half_b = core - ps[0], ps[-1] - core
-    a = ps <= ps[0] + RIM_ZONE_FRACTION * half_a
-    b = ps >= ps[-1] - RIM_ZONE_FRACTION * half_b
-    if a.sum() < 2 or b.sum() < 2:
-        return ""
-    ma, mb = float(vs[a].mean()), float(vs[b].mean())
-    se = max(noise, 1e-12) * np.sqrt(1.0 / a.sum() + 1.0 / b.sum())
-    rims = 0.5 * (ma + mb)
-    amplitude = float(np.max(s) - rims if interior_high else rims - np.min(s))
-    if (abs(ma - mb) > delta and abs(ma - mb) > TREND_Z * se
-            and abs(ma - mb) > RIMS_ALIKE_FRACTION * amplitude):
-        return (f"the two ends, both rims in that reading, differ ({record} {ma:.1f} and "
-                f"{mb:.1f}): an oscillation or a reversal inside a half-profile?")
-    return ""
 
 
 # ---------------------------------------------------------------------------
@@ -1088,10 +1058,6 @@ def _decide(ps, vs, pmin, pmax, record, mineral, minor, p, trust, oxides, names,
         if glass_sup and "rim-to-rim" not in glass_sup:
             return "rim-to-rim", shape_core, "uncertain", _uncertain(
                 f"{shape_ev.detail}, but {glass_ev.detail}", evidence, "rim-to-rim"), evidence
-        unlike = _rims_unlike(ps, vs, s, shape_core, noise, delta, record, interior_high)
-        if unlike:
-            return "rim-to-rim", shape_core, "uncertain", _uncertain(
-                f"{shape_ev.detail}, but {unlike}", evidence, "rim-to-rim"), evidence
         differ = _rims_alike(ps, minor, shape_core, mineral)
         if differ:
             return "rim-to-rim", shape_core, "uncertain", _uncertain(
