@@ -59,7 +59,7 @@ def fit_traverse(
     melt: Mapping[str, float],
     kd: float | None = None,
     kd_sd: float | None = None,
-    fe3_fraction: float = 0.10,
+    fe3_fraction: float | None = None,
     geometry: str = "sphere",
     distance_range: tuple[float, float] | None = None,
     radius_um: float | None = None,
@@ -84,7 +84,10 @@ def fit_traverse(
     melt : mapping of str to float
         Reference melt analysis [wt%]; it fixes the less compatible member
         of the exchanging pair (``FeO`` for olivine, ``Na2O`` for
-        plagioclase), e.g. ``{"FeO": 9.5}``.
+        plagioclase), e.g. ``{"FeO": 9.5}``. Read by
+        :func:`zoning.melt.read_melt`: ``FeOT``/``FeO*`` are total iron,
+        FeO + Fe2O3 set Fe3+/FeT, values the fit does not use are listed in
+        the result's warnings.
     kd : float, optional
         Mean of the Kd prior (Fe-Mg exchange for olivine, KD(Ca-Na) for
         plagioclase); default :data:`KD_PRIOR` (olivine 0.30) or the forward
@@ -94,7 +97,8 @@ def fit_traverse(
         1970), 25% of the mean for plagioclase, 10%/25% of a user Kd. Zero
         fixes Kd.
     fe3_fraction : float, optional
-        Melt Fe3+/FeT [fraction] (olivine).
+        Melt Fe3+/FeT [fraction] (olivine); default from the melt's FeO and
+        Fe2O3 when both are given, else 0.10.
     geometry : {"sphere", "cylinder", "slab"}, optional
         Growth geometry mapping distance to crystallized fraction.
     distance_range : (float, float), optional

@@ -30,6 +30,7 @@ import numpy as np
 import pandas as pd
 
 from zoning.exceptions import FitError, ZoningError
+from zoning.melt import read_melt
 from zoning.orientation import require_orientation
 from zoning.partitioning import equilibrium_crystal
 from zoning.traverse import MINERALS, Traverse
@@ -492,7 +493,8 @@ def check_mineral(traverse: Traverse) -> str:
     if traverse.mineral not in MINERALS:
         raise ZoningError(
             f"traverse {traverse.name!r} has mineral {traverse.mineral!r}; "
-            f"expected one of {MINERALS}. Pass mineral= when reading the file."
+            f"expected one of {MINERALS}. Give --mineral olivine or --mineral plagioclase "
+            "(project key mineral)."
         )
     return traverse.mineral
 
@@ -524,7 +526,7 @@ def prepare_problem(
     melt: Mapping[str, float],
     kd: float | None = None,
     kd_sd: float | None = None,
-    fe3_fraction: float = 0.10,
+    fe3_fraction: float | None = None,
     geometry: str = "sphere",
     distance_range: tuple[float, float] | None = None,
     radius_um: float | None = None,
@@ -582,7 +584,7 @@ def prepare_problem(
     if not (np.isfinite(radius) and radius > 0):
         raise ZoningError(
             f"crystal radius must be a positive number [µm]; got {radius!r} for traverse "
-            f"{traverse.name!r}. Give radius_um / --radius-um."
+            f"{traverse.name!r}. Give --radius-um (project key radius_um)."
         )
 
     sigma, trace_sigma = _split_sigma(sigma, trace_sigma, mineral)
@@ -599,9 +601,13 @@ def prepare_problem(
         else:
             raise ZoningError(
                 f"fitting {[c.oxide for c in chosen]} in plagioclase needs the temperature "
-                "of the partitioning laws; got none. Give temperature_c (--temperature-c) or "
+                "of the partitioning laws; got none. Give --temperature-c (project key "
+                "temperature_c) or "
                 "fit without traces."
             )
+    melt_input = read_melt(melt, mineral, fe3_fraction=fe3_fraction)
+    melt, fe3_fraction = melt_input.oxides, melt_input.fe3_fraction
+    notes[:0] = list(melt_input.notes)
     model = _build_model(
         mineral, melt, kd, fe3_fraction, [c.name for c in chosen], geometry, temperature_c
     )
@@ -632,6 +638,7 @@ def prepare_problem(
     options = {
         "melt": {str(k): float(v) for k, v in dict(melt).items()},
         "fe3_fraction": float(fe3_fraction),
+        "fe3_source": melt_input.fe3_source,
         "geometry": geometry,
         "distance_range_um": list(rng_range) if rng_range else None,
         "sigma": sigma_source,

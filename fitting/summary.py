@@ -524,6 +524,7 @@ def summarise_fit(
         "kd_prior_mean": prob.kd0,
         "kd_prior_sd": prob.kd_sd,
         "fe3_fraction": opts.get("fe3_fraction", float("nan")),
+        "fe3_source": opts.get("fe3_source", ""),
         "geometry": opts.get("geometry", ""),
         "distance_range_um": opts.get("distance_range_um"),
         "radius_um": prob.radius_um,

@@ -1,4 +1,4 @@
-"""Recognition of the column headers of microprobe exports.
+"""Recognition of the column headers of microprobe and laser-ablation exports.
 
 A header cell is normalised (case, sub-/superscript digits, micro signs,
 separators) and split into a base name and a unit (``"SiO2 (wt.%)"`` →
@@ -10,13 +10,18 @@ statement for the reading notes.
 
 Canonical names
 ---------------
-oxides (wt%)   ``SiO2 TiO2 Al2O3 Cr2O3 FeO Fe2O3 MnO MgO NiO CaO Na2O K2O SrO BaO P2O5``
+oxides (wt%)   ``SiO2 TiO2 Al2O3 Cr2O3 FeO Fe2O3 MnO MgO NiO CaO Na2O K2O SrO BaO P2O5``;
+               also from element ppm columns (``Sr (ppm)``, ``Ni60 ppm``), converted
+               to the oxide with the molar masses of :mod:`zoning.oxides`
 position       ``distance_um`` (distance along the traverse), ``x_um`` and
                ``y_um`` (stage coordinates), all converted to µm
-identifiers    ``point`` (point number), ``label`` (comment), ``sample``
-               (sample/traverse/crystal name; used to split a file)
+identifiers    ``point`` (point number), ``label`` (comment), ``sample``,
+               ``crystal`` and ``traverse`` (names that split a file into
+               traverses)
 others         ``total`` (the file's analytical total), ``fo_sigma`` and
-               ``an_sigma`` (per-spot 1-sigma of Fo or An)
+               ``an_sigma`` (per-spot 1-sigma of Fo or An), ``<oxide>_sigma``
+               (per-spot 1-sigma of an oxide [wt%]), ``exclude`` (spots the
+               user marked to leave out)
 """
 
 from __future__ import annotations
@@ -24,6 +29,9 @@ from __future__ import annotations
 import functools
 import re
 from dataclasses import dataclass
+
+from zoning.oxides import ATOMIC_WEIGHTS, parse_oxide_name
+from zoning.oxides import OXIDES as _OXIDE_TABLE
 
 __all__ = [
     "OXIDES",
@@ -34,6 +42,8 @@ __all__ = [
     "recognise",
     "is_unit_token",
     "position_scale",
+    "element_ppm_factor",
+    "SIGMA_KEYS",
 ]
 
 #: Canonical oxide column names, in output order.
@@ -55,18 +65,56 @@ OXIDES = (
     "P2O5",
 )
 
+#: Canonical names of the per-spot 1-sigma columns of the oxides [wt%].
+SIGMA_KEYS = tuple(f"{ox}_sigma" for ox in OXIDES)
+
+#: Columns whose values name a traverse, outermost first; a change of any splits a file.
+NAME_KEYS = ("sample", "crystal", "traverse")
+
 #: Every canonical name a header can be mapped to (keys allowed in ``column_map``).
 CANONICAL = OXIDES + (
     "point",
     "label",
-    "sample",
+    *NAME_KEYS,
     "distance_um",
     "x_um",
     "y_um",
     "total",
     "fo_sigma",
     "an_sigma",
+    *SIGMA_KEYS,
+    "exclude",
 )
+
+#: Oxide each element is reported as (total iron as FeO).
+_OXIDE_OF_ELEMENT: dict[str, str] = {}
+for _ox in _OXIDE_TABLE.values():
+    _OXIDE_OF_ELEMENT.setdefault(_ox.element, _ox.name)
+_ELEMENT_BY_LOWER = {el.lower(): el for el in _OXIDE_OF_ELEMENT}
+
+
+def element_ppm_factor(element: str) -> float:
+    """Return the factor from ppm of an element to wt% of its oxide [wt% per ppm].
+
+    Parameters
+    ----------
+    element : str
+        Element symbol, e.g. ``"Sr"`` (iron gives FeO).
+
+    Returns
+    -------
+    float
+        ``1e-4 M(oxide) / (n M(element))`` with n cations per oxide formula
+        and the molar masses of :mod:`zoning.oxides` (IUPAC 2021 atomic
+        weights).
+
+    Examples
+    --------
+    >>> round(element_ppm_factor("Sr") * 1e4, 4)  # SrO/Sr
+    1.1826
+    """
+    ox = _OXIDE_TABLE[_OXIDE_OF_ELEMENT[element]]
+    return 1e-4 * ox.molar_mass / (ox.n_cations * ATOMIC_WEIGHTS[element])
 
 _OXIDE_BY_LOWER = {ox.lower(): ox for ox in OXIDES}
 
@@ -94,7 +142,15 @@ class ColumnMatch:
     ignored_kind : str
         For unused columns: "element" (element wt%, not an oxide),
         "reported" (Fo/An/Mg# computed by the instrument), "unit" (oxide
-        in a unit other than wt% or ppm), "other"; "" for used columns.
+        in a unit other than wt% or ppm), "sigma" (a bare uncertainty
+        header such as ``±`` or ``1s``, which belongs to the column on its
+        left), "other"; "" for used columns.
+    weak : bool
+        True for a position column that is the distance only when the file
+        has no other position column (``z (µm)``, ``d [µm]``).
+    reading : str
+        How the column is read, in plain words, for the reading notes
+        (e.g. ``"SrO wt% = Sr ppm x 1.183e-4"``); "" for unused columns.
     """
 
     header: str
@@ -103,6 +159,8 @@ class ColumnMatch:
     scale: float = 1.0
     note: str = ""
     ignored_kind: str = ""
+    weak: bool = False
+    reading: str = ""
 
 
 def normalise_header(header: str) -> str:
@@ -128,8 +186,8 @@ def normalise_header(header: str) -> str:
 
 _UNIT_WORDS = (
     r"µm|um|micron|microns|micrometers?|micrometres?|mm|nm|"
-    r"wt\s*\.?\s*%|wt\s*\.?\s*pct|wt\.?|ox(?:ide)?\s*%|%|mass\s*%|ppm|mol\s*%|apfu|cations?|"
-    r"cat\.?"
+    r"wt\s*\.?\s*%|wt\s*\.?\s*pct|wt\.?|ox(?:ide)?\s*%|%|mass\s*%|ppmw?|µg/g|ug/g|mg/kg|"
+    r"mol\s*%|apfu|cations?|cat\.?"
 )
 _BRACKET_UNIT = re.compile(r"^(?P<base>.*?)\s*[\(\[]\s*(?P<unit>[^\)\]]*?)\s*[\)\]]\s*$")
 _SUFFIX_UNIT = re.compile(rf"^(?P<base>.*?)[\s/]+(?P<unit>{_UNIT_WORDS})$")
@@ -152,7 +210,7 @@ def _canonical_unit(unit: str) -> str:
     if u in ("wt%", "wt.%", "wt", "wt.", "%", "mass%", "wtpct", "wt.pct", "oxidewt%", "ox%",
              "oxide%"):
         return "wt%"
-    if u == "ppm":
+    if u in ("ppm", "ppmw", "ppm(w)", "µg/g", "ug/g", "mg/kg", "µgg-1", "ugg-1", "µg.g-1"):
         return "ppm"
     return u
 
@@ -196,18 +254,24 @@ def split_unit(normalised: str) -> tuple[str, str]:
     return h, ""
 
 
-_OXIDE_RE = re.compile(
-    r"^(?P<ox>sio2|tio2|al2o3|cr2o3|fe2o3|feo|mno|mgo|nio|cao|na2o|k2o|sro|bao|p2o5)"
-    r"(?P<tot>\s*[-_]?\s*(\*|\(t\)|\(tot\.?\)|\(total\)|t|tot\.?|total))?$"
-)
 _ELEMENT_RE = re.compile(r"^(si|ti|al|cr|fe|mn|mg|ni|ca|na|k|sr|ba|p|o)$")
-_REPORTED_RE = re.compile(r"^(fo|fa|an|ab|or|mg#|mg ?number|ca#|xfo|xan)$")
-_SIGMA_RE = re.compile(
-    r"^(?P<m>fo|an)\s*(?:err(?:or)?|sd|s\.d\.|std|stdev|sigma|σ|±|\+/-|unc(?:ertainty)?)"
-    r"\s*\.?\s*(?P<k>[12])?\s*(?:s|σ|sigma|sd)?$"
-    r"|^(?P<m2>fo|an)\s*(?P<k2>[12])\s*(?:s|σ|sigma|sd)$"
-    r"|^(?:±|σ|err|error|sd|sigma)\s*(?P<m3>fo|an)$"
+# Laser-ablation style element columns: "Sr", "Sr88", "88Sr", "Sr 88", "Mg24 ppm mean".
+_ISOTOPE_RE = re.compile(
+    r"^(?P<m1>\d{1,3})?\s*(?P<el>si|ti|al|cr|fe|mn|mg|ni|ca|na|k|sr|ba|p)\s*(?P<m2>\d{1,3})?"
+    r"(?:\s+(?P<unit>ppmw?|µg/g|ug/g|mg/kg))?(?:\s+(?P<stat>mean|avg|average|conc\.?))?$"
 )
+_REPORTED_RE = re.compile(r"^(fo|fa|an|ab|or|mg#|mg ?number|ca#|xfo|xan)$")
+# Uncertainty words; a leading 2 (2s, 2σ, 2sd, 2se, "2 sigma") marks a 2-sigma value.
+_SIGMA_WORD = (
+    r"(?:(?P<k>[12])?\s*(?:σ|sigma|s\.?d\.?|std\.?|stdev|st\.?\s*dev\.?|s\.?e\.?|err(?:or)?|"
+    r"±|\+/-|\+-|unc(?:ert(?:ainty)?)?\.?)|(?P<k2>[12])\s*s)"
+)
+_SIGMA_ONLY_RE = re.compile(rf"^(?:abs\.?\s*)?{_SIGMA_WORD}(?:\s*\((?:abs|1|2)\))?$")
+_SIGMA_TARGET = r"(?P<t>fo|an|[a-z][a-z0-9]{0,4}?\*?)"
+_SIGMA_PREFIX_RE = re.compile(rf"^{_SIGMA_WORD}\s*[\(\[]?\s*{_SIGMA_TARGET}\s*[\)\]]?$")
+_SIGMA_SUFFIX_RE = re.compile(rf"^{_SIGMA_TARGET}\s*[-_ ]?\s*{_SIGMA_WORD}$")
+_LOD_RE = re.compile(r"^(?P<t>[a-z][a-z0-9]{0,4})\s*[-_ ]?\s*(?:ppm\s*)?"
+                     r"(?:lod|l\.o\.d\.?|dl|d\.l\.|mdl|det\.?\s*lim(?:it)?\.?)$")
 _DISTANCE_RE = re.compile(
     r"^(?:rel(?:ative|\.)?\s*)?(?:dist(?:ance)?\.?|position|pos\.?|length)"
     r"(?:\s+(?:from|along|to)\s+\w+(?:\s+\w+)?)?$"
@@ -215,6 +279,7 @@ _DISTANCE_RE = re.compile(
 _X_RE = re.compile(r"^(?:stage\s*)?x(?:\s*-?\s*(?:stage|pos\.?|position|coord\.?|coordinate))?$")
 _Y_RE = re.compile(r"^(?:stage\s*)?y(?:\s*-?\s*(?:stage|pos\.?|position|coord\.?|coordinate))?$")
 _Z_RE = re.compile(r"^(?:stage\s*)?z(?:\s*-?\s*(?:stage|pos\.?|position|coord\.?|coordinate))?$")
+_D_RE = re.compile(r"^(?:d|x\s*-?\s*dist\.?|r)$")
 _POINT_RE = re.compile(
     r"^(?:point|pt|spot|no|nr|n°|#|number|num|dataset\s*/\s*point)\.?$"
     r"|^(?:point|spot|analysis|pt)\s*(?:no\.?|nr\.?|#|number|num\.?|id)$"
@@ -223,7 +288,17 @@ _LABEL_RE = re.compile(
     r"^(?:comment|comments|label|name|description|remark|remarks|note|notes|analysis|"
     r"analysis name|spot name|point name|id|spot id|point id)$"
 )
-_SAMPLE_RE = re.compile(r"^(?:sample|traverse|crystal)(?:\s*(?:name|id|no\.?))?$")
+_NAME_SUFFIX = r"(?:\s*-?\s*(?:name|id|no\.?|nr\.?|#|number|label|code))?"
+_SAMPLE_RE = re.compile(rf"^(?:sample|specimen|thin\s*section|section){_NAME_SUFFIX}$")
+_CRYSTAL_RE = re.compile(rf"^(?:grain|crystal|xtal|xl|mineral\s*grain){_NAME_SUFFIX}$")
+_TRAVERSE_RE = re.compile(
+    rf"^(?:profile|prof\.?|transect|line|line\s*scan|linescan|traverse|trav\.?|spot\s*-?\s*set|"
+    rf"spotset|scan){_NAME_SUFFIX}$"
+)
+_EXCLUDE_RE = re.compile(
+    r"^(?:bad|bad\s*spots?|bad\s*points?|marked\s*bad|is\s*bad|exclude[ds]?|exclusion|ignored?|"
+    r"reject(?:ed)?|omit(?:ted)?|discard(?:ed)?|skip(?:ped)?|outlier)\s*\??$"
+)
 _TOTAL_RE = re.compile(
     r"^(?:total|totals|sum|oxide total|total oxides|oxide sum|analytical total)$"
 )
@@ -246,6 +321,60 @@ def position_scale(unit: str) -> float:
         for anything else.
     """
     return _POSITION_FACTOR.get(unit, float("nan"))
+
+
+def _oxide_of(compact: str, base: str) -> tuple[str, bool, bool] | None:
+    """(canonical oxide, total-iron marker, digit zero read as O) or None."""
+    return parse_oxide_name(compact) or parse_oxide_name(base)
+
+
+def _element_of(text: str) -> tuple[str, str, str] | None:
+    """(element symbol, unit, isotope) of an element column, or None."""
+    m = _ISOTOPE_RE.match(text)
+    if not m:
+        return None
+    if m.group("m1") and m.group("m2"):
+        return None
+    return _ELEMENT_BY_LOWER[m.group("el")], _canonical_unit(m.group("unit") or ""), (
+        m.group("m1") or m.group("m2") or "")
+
+
+def _sigma_target(target: str) -> tuple[str, float, str] | None:
+    """Canonical sigma key, unit factor and quantity of an uncertainty target."""
+    if target in ("fo", "an"):
+        return f"{target}_sigma", 1.0, target.capitalize()
+    ox = _oxide_of(target.replace(" ", ""), target)
+    if ox is not None:
+        return f"{ox[0]}_sigma", 1.0, ox[0]
+    return None
+
+
+def _sigma_match(raw: str, base: str, unit: str) -> ColumnMatch | None:
+    """Recognise a 1- or 2-sigma uncertainty column of Fo, An or an oxide."""
+    for regex in (_SIGMA_PREFIX_RE, _SIGMA_SUFFIX_RE):
+        m = regex.match(base)
+        if not m:
+            continue
+        target = _sigma_target(m.group("t"))
+        if target is None:
+            el = _element_of(m.group("t"))
+            if el is None or not (unit == "ppm" or el[1] == "ppm"):
+                continue
+            ox = _OXIDE_OF_ELEMENT[el[0]]
+            factor = element_ppm_factor(el[0])
+            target = (f"{ox}_sigma", factor, f"{ox} (from {el[0]} ppm x {factor:.4g})")
+        key, factor, what = target
+        if key.endswith("_sigma") and key[:-6] in OXIDES and unit not in ("", "wt%", "ppm"):
+            return None
+        if unit == "ppm" and key[:-6] in OXIDES and factor == 1.0:
+            factor = 1e-4
+        two = "2" in (m.group("k"), m.group("k2"))
+        scale = factor * (0.5 if two else 1.0)
+        size = "2-sigma, halved to 1-sigma" if two else "1-sigma"
+        return ColumnMatch(raw, key, unit, scale,
+                           f"column '{raw}' read as the {size} of {what}" if two else "",
+                           reading=f"{size} uncertainty of {what}")
+    return None
 
 
 @functools.lru_cache(maxsize=4096)
@@ -273,6 +402,10 @@ def recognise(header: str) -> ColumnMatch:
     ('distance_um', 1000.0)
     >>> recognise("Mg").ignored_kind
     'element'
+    >>> recognise("Al203").canonical
+    'Al2O3'
+    >>> m = recognise("Sr (ppm)"); (m.canonical, round(m.scale * 1e4, 4))
+    ('SrO', 1.1826)
     """
     raw = str(header).strip()
     norm = normalise_header(raw)
@@ -281,41 +414,66 @@ def recognise(header: str) -> ColumnMatch:
     base, unit = split_unit(norm)
     compact = base.replace(" ", "")
 
-    m = _OXIDE_RE.match(compact) or _OXIDE_RE.match(base)
-    if m:
-        ox = _OXIDE_BY_LOWER[m.group("ox")]
-        total_marker = bool(m.group("tot"))
+    ox = _oxide_of(compact, base)
+    if ox is not None and unit and _SIGMA_ONLY_RE.match(unit):
+        sig = _sigma_match(raw, f"{base} {unit}", "")
+        if sig is not None:
+            return sig
+    if ox is not None:
+        name, total_marker, zero = ox
         if unit in ("", "wt%"):
             scale, unit_note = 1.0, ""
         elif unit == "ppm":
             scale, unit_note = 1e-4, "ppm converted to wt%"
         else:
             return ColumnMatch(
-                raw, "", unit, note=f"column '{raw}' ignored: {ox} in '{unit}', not wt%",
+                raw, "", unit, note=f"column '{raw}' ignored: {name} in '{unit}', not wt%",
                 ignored_kind="unit",
             )
         parts = []
         if total_marker:
-            parts.append(f"total Fe as {ox}")
+            parts.append(f"total Fe as {name}")
+        if zero:
+            parts.append("digit 0 in the header read as the letter O")
         if unit_note:
             parts.append(unit_note)
-        note = f"column '{raw}' read as {ox} ({'; '.join(parts)})" if parts else ""
-        return ColumnMatch(raw, ox, unit, scale, note)
+        note = f"column '{raw}' read as {name} ({'; '.join(parts)})" if parts else ""
+        reading = f"{name} wt%" + (f" ({'; '.join(parts)})" if parts else "")
+        return ColumnMatch(raw, name, unit, scale, note, reading=reading)
 
-    if _ELEMENT_RE.match(compact):
+    el = _element_of(compact) or _element_of(base)
+    if el is not None:
+        symbol, el_unit, isotope = el
+        unit = unit or el_unit
+        if unit == "ppm":
+            oxide = _OXIDE_OF_ELEMENT[symbol]
+            factor = element_ppm_factor(symbol)
+            iso = f" (isotope {isotope})" if isotope else ""
+            reading = (f"{oxide} wt% = {symbol} ppm{iso} x {factor:.4g} "
+                       f"(molar masses {oxide}/{symbol})")
+            return ColumnMatch(raw, oxide, unit, factor, f"column '{raw}' read as {reading}",
+                               reading=reading)
+        if isotope and not unit:
+            return ColumnMatch(
+                raw, "", unit, note=f"column '{raw}' ignored: {symbol} without a unit (counts "
+                f"or ppm?); write ppm in the header, e.g. '{symbol}{isotope} (ppm)', to use it",
+                ignored_kind="unit",
+            )
+        if isotope:
+            return ColumnMatch(raw, "", unit, note=f"column '{raw}' ignored: {symbol} in "
+                               f"'{unit}', not ppm", ignored_kind="unit")
         return ColumnMatch(raw, "", unit, ignored_kind="element")
 
-    m = _SIGMA_RE.match(base)
-    if m:
-        mineral = m.group("m") or m.group("m2") or m.group("m3")
-        k = m.group("k") or m.group("k2") or "1"
-        canonical = f"{mineral}_sigma"
-        if k == "2":
-            return ColumnMatch(
-                raw, canonical, unit, 0.5,
-                f"column '{raw}' read as 2-sigma and halved to 1-sigma ({canonical})",
-            )
-        return ColumnMatch(raw, canonical, unit, 1.0, "")
+    sig = _sigma_match(raw, base, unit)
+    if sig is None and unit:
+        # "σ(FeO)", "Fo (2s)": the bracket holds the quantity or the uncertainty word
+        sig = _sigma_match(raw, f"{base} {unit}", "")
+    if sig is not None:
+        return sig
+    only = _SIGMA_ONLY_RE.match(base)
+    if only:
+        two = "2" in (only.group("k"), only.group("k2"))
+        return ColumnMatch(raw, "", unit, 0.5 if two else 1.0, ignored_kind="sigma")
 
     if _REPORTED_RE.match(compact) or _REPORTED_RE.match(base):
         return ColumnMatch(raw, "", unit, ignored_kind="reported")
@@ -330,17 +488,31 @@ def recognise(header: str) -> ColumnMatch:
                     ignored_kind="unit",
                 )
             return ColumnMatch(raw, canonical, unit, position_scale(unit), "")
-    if _Z_RE.match(base):
+    if _Z_RE.match(base) or _D_RE.match(base):
+        if unit in _POSITION_FACTOR:
+            # a lone position column with a length unit ("z (µm)", "d [µm]"): the
+            # distance, unless the file has stage X/Y or a distance column
+            return ColumnMatch(raw, "distance_um", unit, position_scale(unit), "", weak=True)
         return ColumnMatch(raw, "", unit, ignored_kind="other")
 
     if _POINT_RE.match(base):
-        return ColumnMatch(raw, "point")
+        return ColumnMatch(raw, "point", reading="point number")
+    if _EXCLUDE_RE.match(base):
+        return ColumnMatch(raw, "exclude",
+                           reading="marks spots to leave out (any value but empty/0/no/false)")
     if _SAMPLE_RE.match(base):
-        return ColumnMatch(raw, "sample")
+        return ColumnMatch(raw, "sample", reading="sample name (splits the file)")
+    if _CRYSTAL_RE.match(base):
+        return ColumnMatch(raw, "crystal", reading="crystal name (splits the file)")
+    if _TRAVERSE_RE.match(base):
+        return ColumnMatch(raw, "traverse", reading="traverse name (splits the file)")
     if _LABEL_RE.match(base):
-        return ColumnMatch(raw, "label")
+        return ColumnMatch(raw, "label", reading="spot label")
     if _TOTAL_RE.match(base):
-        return ColumnMatch(raw, "total", unit)
+        return ColumnMatch(raw, "total", unit, reading="analytical total wt% (as reported)")
+    if _LOD_RE.match(base):
+        return ColumnMatch(raw, "", unit, note=f"column '{raw}' (a detection limit) not used",
+                           ignored_kind="other")
     return ColumnMatch(raw, "", unit, ignored_kind="other")
 
 

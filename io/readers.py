@@ -54,12 +54,16 @@ from zoning.io._columns import CANONICAL, OXIDES
 
 from zoning.exceptions import ProfileFormatError
 
-__all__ = ["RawTable", "read_export", "MIN_RECOGNISED", "STAGE_MM_SPAN_LIMIT"]
+__all__ = ["RawTable", "read_export", "map_hint", "MIN_RECOGNISED", "STAGE_MM_SPAN_LIMIT",
+           "DISTANCE_MM_SPAN_LIMIT"]
 
 #: A line is the header when it holds at least this many recognised column names.
 MIN_RECOGNISED = 3
 #: Stage X/Y without a unit: read as mm when the larger span is below this value.
 STAGE_MM_SPAN_LIMIT = 50.0
+#: A distance column without a unit is read as mm when its span is below this value:
+#: a traverse is tens to thousands of µm long, i.e. a few mm at most.
+DISTANCE_MM_SPAN_LIMIT = 5.0
 #: Lines searched for the header.
 _HEADER_SEARCH_LINES = 300
 _DELIMITERS = ("\t", ";", ",")
@@ -203,18 +207,16 @@ def read_export(
             "Export the traverse again."
         )
     notes: list[str] = []
-    if raw[:4] == b"PK\x03\x04" or p.suffix.lower() in (".xlsx", ".xlsm"):
-        records = _xlsx_records(p, raw, source, sheet, notes)
-        header_pos, delimiter = _find_header(
-            [cells for _, cells in records], source, user_map, delimiter_known=True,
-            line_numbers=[n for n, _ in records],
-        )
+    kind = _workbook_kind(p, raw)
+    if kind:
+        records, header_pos, delimiter = _workbook_records(p, source, kind, sheet, notes,
+                                                           user_map)
         spans: dict[int, int] = {}
     else:
-        if p.suffix.lower() in (".xls", ".ods", ".numbers"):
+        if p.suffix.lower() in (".xls", ".numbers"):
             raise ProfileFormatError(
-                f"{source}: '{p.suffix}' workbooks are not read; save the sheet as .xlsx "
-                "or as CSV and read that file."
+                f"{source}: '{p.suffix}' workbooks are not read; save the sheet as .xlsx, "
+                ".ods or CSV and read that file."
             )
         text = _decode(raw, source, notes)
         lines = re.split(r"\r\n|\r|\n", text)
@@ -243,31 +245,50 @@ def read_export(
 # decoding and splitting
 
 
+def map_hint(key: str, header: str) -> str:
+    """Return how to name a column, spelled for the command line and the project file.
+
+    Parameters
+    ----------
+    key : str
+        Canonical column name (e.g. ``"FeO"``).
+    header : str
+        Header text in the file.
+
+    Returns
+    -------
+    str
+        E.g. ``--column-map FeO='FeO tot' (project key column_map = { FeO = "FeO tot" })``.
+    """
+    return (f"--column-map {key}='{header}' (project key column_map = "
+            f'{{ {key} = "{header}" }})')
+
+
 def _check_user_map(column_map: Mapping[str, str] | None, source: str) -> dict[str, str]:
     if column_map is None:
         return {}
     if not isinstance(column_map, Mapping):
         raise ProfileFormatError(
-            f"{source}: column_map must be a mapping of canonical name to header, "
-            f"got {type(column_map).__name__}."
+            f"{source}: the column map must be a mapping of column name to header (as "
+            f"--column-map FeO='FeO tot' gives), got {type(column_map).__name__}."
         )
     out = {}
     for key, header in column_map.items():
         if key not in CANONICAL:
             raise ProfileFormatError(
-                f"{source}: column_map key {key!r} is not a known column; expected one of "
-                f"{list(CANONICAL)}."
+                f"{source}: column-map key {key!r} is not a known column; expected one of "
+                f"{', '.join(CANONICAL)} (e.g. --column-map FeO='FeO tot')."
             )
         if not isinstance(header, str) or not header.strip():
             raise ProfileFormatError(
-                f"{source}: column_map[{key!r}] must be a header text of the file, got "
-                f"{header!r}."
+                f"{source}: the column map for {key} must be a header text of the file, got "
+                f"{header!r}; give e.g. {map_hint(key, '<header>')}."
             )
         out[key] = header.strip()
     if len(set(out.values())) != len(out):
         raise ProfileFormatError(
-            f"{source}: column_map maps one header to several columns: {out}; give each "
-            "header once."
+            f"{source}: the column map gives one header to several columns: {out}; give "
+            "each header once."
         )
     return out
 
@@ -368,84 +389,181 @@ def _csv_records(lines: list[str], delimiter: str, first_line: int):
     return records, spans
 
 
-def _xlsx_records(p: Path, raw: bytes, source: str, sheet, notes: list[str]):
+def _workbook_kind(p: Path, raw: bytes) -> str:
+    """Return "xlsx", "ods" or "" (a text export)."""
+    suffix = p.suffix.lower()
+    if suffix in (".xlsx", ".xlsm"):
+        return "xlsx"
+    if suffix in (".ods",):
+        return "ods"
+    if raw[:4] == b"PK\x03\x04":
+        # an OpenDocument zip starts with its uncompressed "mimetype" member
+        return "ods" if b"opendocument.spreadsheet" in raw[:200] else "xlsx"
+    return ""
+
+
+_KIND_NAME = {"xlsx": ".xlsx", "ods": ".ods (OpenDocument)"}
+
+
+def _workbook_sheets(p: Path, source: str, kind: str) -> dict[str, list[list[str]]]:
+    """Every sheet of a workbook as rows of cell texts, in workbook order."""
+    # A damaged workbook can fail inside openpyxl/odfpy, zipfile or the XML parser
+    # with many exception types; each is turned into one clear error for the user.
     try:
-        import openpyxl
-    except ImportError as err:  # pragma: no cover - openpyxl is a dependency
-        raise ProfileFormatError(
-            f"{source}: reading .xlsx needs the 'openpyxl' package; install it or save "
-            "the sheet as CSV."
-        ) from err
-    # A damaged workbook can fail inside openpyxl, zipfile or the XML parser with
-    # many exception types; each is turned into one clear error for the user.
-    try:
-        with open(p, "rb") as fh:
-            wb = openpyxl.load_workbook(fh, read_only=True, data_only=True)
+        if kind == "xlsx":
+            import openpyxl
+
+            with open(p, "rb") as fh:
+                wb = openpyxl.load_workbook(fh, read_only=True, data_only=True)
+                try:
+                    sheets = {name: _openpyxl_rows(wb[name]) for name in wb.sheetnames}
+                finally:
+                    wb.close()
+        else:
             try:
-                records = _xlsx_sheet_rows(wb, source, sheet, notes)
-            finally:
-                wb.close()
+                import odf  # noqa: F401 - pandas reads .ods through odfpy
+            except ImportError as err:  # pragma: no cover - odfpy is a dependency
+                raise ProfileFormatError(
+                    f"{source}: reading .ods needs the 'odfpy' package; install it "
+                    "(pip install odfpy) or save the sheet as .xlsx or CSV."
+                ) from err
+            sheets = {}
+            with pd.ExcelFile(p, engine="odf") as book:
+                for name in book.sheet_names:
+                    frame = pd.read_excel(book, sheet_name=name, header=None, dtype=object)
+                    sheets[str(name)] = [[_xlsx_cell(v) for v in row]
+                                         for row in frame.itertuples(index=False)]
     except ProfileFormatError:
         raise
     except Exception as err:  # noqa: BLE001 - see comment above
         raise ProfileFormatError(
-            f"{source}: cannot be opened as an .xlsx workbook ({type(err).__name__}: {err}); "
-            "save it again as .xlsx or CSV."
+            f"{source}: cannot be opened as an {_KIND_NAME[kind]} workbook "
+            f"({type(err).__name__}: {err}); save it again as .xlsx or CSV."
         ) from err
-    notes.append("read from .xlsx; row numbers are sheet rows")
-    while records and not any(c.strip() for c in records[-1][1]):
-        records.pop()
-    if not records:
-        raise ProfileFormatError(
-            f"{source}: the sheet is empty; expected a header row and one row per spot."
-        )
-    return records
+    out = {}
+    for name, rows in sheets.items():
+        for r in rows:
+            while r and not r[-1].strip():
+                r.pop()
+        while rows and not rows[-1]:
+            rows.pop()
+        width = max((len(r) for r in rows), default=0)
+        # a sheet has no ragged rows: pad every row to the used width
+        out[name] = [r + [""] * (width - len(r)) for r in rows]
+    return out
 
 
-def _xlsx_sheet_rows(wb, source: str, sheet, notes: list[str]):
-    names = wb.sheetnames
-    if sheet is None:
-        ws = wb[names[0]]
-        if len(names) > 1:
-            notes.append(f"sheet: read '{names[0]}', the first of {len(names)} sheets "
-                         f"{names}; pass sheet= to read another")
-        else:
-            notes.append(f"sheet: '{names[0]}'")
-    elif isinstance(sheet, int) and not isinstance(sheet, bool):
-        if not 0 <= sheet < len(names):
-            raise ProfileFormatError(
-                f"{source}: sheet index {sheet} does not exist; the workbook has "
-                f"{len(names)} sheets {names} (index from 0)."
-            )
-        ws = wb[names[sheet]]
-        notes.append(f"sheet: '{names[sheet]}'")
-    else:
-        if sheet not in names:
-            raise ProfileFormatError(f"{source}: sheet {sheet!r} not found; sheets are {names}.")
-        ws = wb[sheet]
-        notes.append(f"sheet: '{sheet}'")
+def _openpyxl_rows(ws) -> list[list[str]]:
     if hasattr(ws, "reset_dimensions") and (
         ws.max_row is None or ws.max_column is None or (ws.max_row, ws.max_column) == (1, 1)
     ):
         # read-only sheets trust the stored dimension, which some writers omit or
         # leave at "A1"; then the sheet is scanned for its real size
         ws.reset_dimensions()
-    rows = [[_xlsx_cell(v) for v in values]
+    return [[_xlsx_cell(v) for v in values]
             for values in ws.iter_rows(min_row=1, values_only=True)]
-    for r in rows:
-        while r and not r[-1].strip():
-            r.pop()
-    width = max((len(r) for r in rows), default=0)
-    # a sheet has no ragged rows: pad every row to the used width
-    return [(n, r + [""] * (width - len(r))) for n, r in enumerate(rows, start=1)]
+
+
+def _sheet_list(names: list[str]) -> str:
+    return ", ".join(repr(n) for n in names)
+
+
+def _workbook_records(p: Path, source: str, kind: str, sheet, notes: list[str],
+                      user_map: dict[str, str]):
+    """Choose the sheet; return (records, header position, delimiter "")."""
+    sheets = _workbook_sheets(p, source, kind)
+    names = list(sheets)
+    if not names:
+        raise ProfileFormatError(f"{source}: the workbook holds no sheets.")
+    how = (f"sheet names are {_sheet_list(names)}; give --sheet NAME (project key "
+           f'sheet = "NAME"), or the sheet number counted from 0')
+
+    def header_of(name):
+        rows = sheets[name]
+        if not any(c.strip() for r in rows for c in r):
+            raise ProfileFormatError(f"{source}: sheet {name!r} is empty.")
+        return _find_header(rows, f"{source} (sheet {name!r})", user_map, delimiter_known=True,
+                            line_numbers=list(range(1, len(rows) + 1)))
+
+    if sheet is None:
+        chosen, pos, skipped = None, None, []
+        first_error = None
+        for name in names:
+            try:
+                pos, _ = header_of(name)
+            except ProfileFormatError as exc:
+                skipped.append(name)
+                first_error = first_error or exc
+                continue
+            chosen = name
+            break
+        if chosen is None:
+            if len(names) == 1:
+                raise first_error
+            raise ProfileFormatError(
+                f"{source}: no sheet of the workbook has a header line of analyses "
+                f"(first problem: {first_error}). The {how}."
+            )
+        if len(names) > 1:
+            others = []
+            for name in names[names.index(chosen) + 1:]:
+                try:
+                    header_of(name)
+                except ProfileFormatError:
+                    continue
+                others.append(name)
+            text = (f"sheet: read {chosen!r} (sheet {names.index(chosen) + 1} of {len(names)}: "
+                    f"{_sheet_list(names)})")
+            if skipped:
+                text += f"; {_sheet_list(skipped)} skipped: no header line of analyses"
+            if others:
+                text += (f"; {_sheet_list(others)} also hold analyses: read them with --sheet "
+                         f"NAME (project key sheet)")
+            notes.append(text)
+        else:
+            notes.append(f"sheet: {chosen!r}")
+    else:
+        if isinstance(sheet, str) and sheet in sheets:
+            chosen = sheet
+        elif isinstance(sheet, str) and sheet.strip().isdigit():
+            sheet = int(sheet.strip())
+            chosen = None
+        elif isinstance(sheet, str):
+            close = [n for n in names if n.strip().lower() == sheet.strip().lower()]
+            hint = f" Did you mean {close[0]!r}?" if close else ""
+            raise ProfileFormatError(f"{source}: sheet {sheet!r} not found.{hint} The {how}.")
+        else:
+            chosen = None
+        if chosen is None:
+            if isinstance(sheet, bool) or not isinstance(sheet, int):
+                raise ProfileFormatError(
+                    f"{source}: sheet must be a sheet name or number; got {sheet!r}. The {how}."
+                )
+            if not 0 <= sheet < len(names):
+                raise ProfileFormatError(
+                    f"{source}: sheet number {sheet} does not exist (numbers count from 0); "
+                    f"the workbook has {len(names)} sheets. The {how}."
+                )
+            chosen = names[sheet]
+        notes.append(f"sheet: read {chosen!r}, as asked"
+                     + (f" (sheets: {_sheet_list(names)})" if len(names) > 1 else ""))
+        pos, _ = header_of(chosen)
+    notes.append(f"read from {_KIND_NAME[kind]}; row numbers are sheet rows")
+    records = list(enumerate(sheets[chosen], start=1))
+    return records, pos, ""
 
 
 def _xlsx_cell(v) -> str:
-    if v is None:
+    if v is None or v is pd.NaT:
         return ""
     if isinstance(v, bool):
         return str(v)
-    if isinstance(v, float):
+    if isinstance(v, (int, np.integer)):
+        return str(int(v))
+    if isinstance(v, (float, np.floating)):
+        v = float(v)
+        if np.isnan(v):
+            return ""
         if np.isfinite(v) and v.is_integer() and abs(v) < 1e15:
             return str(int(v))
         return repr(v)
@@ -521,7 +639,7 @@ def _find_header(lines_or_cells, source: str, user_map: dict[str, str], *,
         lower = {c.lower() for c in cells}
         missing = [h for h in user_map.values() if h.lower() not in lower]
         raise ProfileFormatError(
-            f"{source}: headers {missing} named in column_map not found on the header line; "
+            f"{source}: headers {missing} named in the column map not found on the header line; "
             f"the header (line {line_numbers[i]}) has {shown}. Use the header texts exactly "
             "as in the file."
         )
@@ -538,9 +656,72 @@ def _find_header(lines_or_cells, source: str, user_map: dict[str, str], *,
         f"{source}: no header line found (no line in the first {_HEADER_SEARCH_LINES} has "
         f"{MIN_RECOGNISED} or more recognised column names such as SiO2, MgO, FeO, Point, "
         f"Distance); the line that looks most like a header (line {line_numbers[i]}) has "
-        f"{shown}. Say which column is which with a column map (column_map={{'SiO2': "
-        "'<header>', ...}}; on the command line --column-map SiO2='<header>')."
+        f"{shown}. Say which column is which with {map_hint('SiO2', '<header>')}, one "
+        "per column."
     )
+
+
+def _attach_bare_sigmas(matches, stripped, used, notes) -> None:
+    """Give a bare uncertainty header (``±``, ``1s``, ``err``) to the column on its left."""
+    by_index = {j: m for _, (j, m) in used.items()}
+    for j in sorted(matches):
+        m = matches[j]
+        if m.ignored_kind != "sigma":
+            continue
+        left = matches.get(j - 1) or by_index.get(j - 1)
+        key = ""
+        if left is not None and left.canonical in OXIDES:
+            key, what, factor = f"{left.canonical}_sigma", left.canonical, left.scale
+        elif left is not None and left.ignored_kind == "reported":
+            low = _columns.normalise_header(left.header)
+            if low in ("fo", "an"):
+                key, what, factor = f"{low}_sigma", low.capitalize(), 1.0
+        if not key:
+            where = f"after '{left.header}'" if left is not None else "first column"
+            matches[j] = _columns.ColumnMatch(
+                m.header, "", m.unit, note=f"column '{m.header}' ({where}) ignored: an "
+                "uncertainty of a column that is not used", ignored_kind="other")
+            continue
+        two = m.scale == 0.5
+        size = "2-sigma, halved to 1-sigma" if two else "1-sigma"
+        matches[j] = _columns.ColumnMatch(
+            m.header, key, left.unit, m.scale * (factor if np.isfinite(factor) else 1.0),
+            f"column '{m.header}' read as the {size} of {what} (the column on its left, "
+            f"'{left.header}')",
+            reading=f"{size} uncertainty of {what} (column on its left)")
+
+
+def _choose_weak_distance(matches, by_canonical, stripped, used, notes, source, row_word,
+                          header_line) -> None:
+    """Use a lone ``z (µm)``/``d [µm]`` column as the distance, or leave it out."""
+    weak = [j for j in by_canonical.get("distance_um", []) if matches[j].weak]
+    if not weak:
+        return
+    strong = [j for j in by_canonical.get("distance_um", []) if not matches[j].weak]
+    others = strong + by_canonical.get("x_um", []) + by_canonical.get("y_um", [])
+    if others or any(k in used for k in ("distance_um", "x_um", "y_um")):
+        for j in weak:
+            notes.append(f"column '{stripped[j]}' not used as the distance: the file has "
+                         "another position column")
+            matches[j] = _columns.ColumnMatch(stripped[j], "", matches[j].unit,
+                                              ignored_kind="other")
+        by_canonical["distance_um"] = strong
+        if not strong:
+            del by_canonical["distance_um"]
+        return
+    if len(weak) > 1:
+        names = [stripped[j] for j in weak]
+        raise ProfileFormatError(
+            f"{source}: columns {names} on {row_word} {header_line} could each be the distance "
+            f"along the traverse; choose one with --column-map distance_um='{names[0]}' "
+            f"(project key column_map = {{ distance_um = \"{names[0]}\" }})."
+        )
+    j = weak[0]
+    m = matches[j]
+    matches[j] = _columns.ColumnMatch(
+        m.header, "distance_um", m.unit, m.scale,
+        f"column '{m.header}' read as the distance along the traverse (the only position "
+        f"column, with a length unit {m.unit})")
 
 
 def _map_columns(header: list[str], source: str, user_map: dict[str, str],
@@ -558,8 +739,9 @@ def _map_columns(header: list[str], source: str, user_map: dict[str, str],
         idx = lower_index.get(header_text.lower())
         if not idx:
             raise ProfileFormatError(
-                f"{source}: column_map[{key!r}] = {header_text!r} is not a header of the "
-                f"file; headers found on {row_word} {header_line}: {[h for h in stripped if h]}."
+                f"{source}: the column map names {header_text!r} for {key}, which is not a "
+                f"header of the file; headers found on {row_word} {header_line}: "
+                f"{[h for h in stripped if h]}. Use the header text exactly as in the file."
             )
         if len(idx) > 1:
             raise ProfileFormatError(
@@ -583,8 +765,9 @@ def _map_columns(header: list[str], source: str, user_map: dict[str, str],
             m = _columns.ColumnMatch(stripped[idx[0]], key)
         used[key] = (idx[0], m)
         taken.add(idx[0])
-        notes.append(f"column '{stripped[idx[0]]}' read as {key} (column_map)")
+        notes.append(f"column '{stripped[idx[0]]}' read as {key} (column map)")
     matches = {j: _columns.recognise(h) for j, h in enumerate(stripped) if h and j not in taken}
+    _attach_bare_sigmas(matches, stripped, used, notes)
     # duplicates among used columns
     by_canonical: dict[str, list[int]] = {}
     for j, m in matches.items():
@@ -592,27 +775,30 @@ def _map_columns(header: list[str], source: str, user_map: dict[str, str],
             by_canonical.setdefault(m.canonical, []).append(j)
     dups = {h: idx for h, idx in lower_index.items() if len(idx) > 1}
     for idx in dups.values():
+        if all(_columns.recognise(stripped[j]).ignored_kind == "sigma" for j in idx):
+            continue  # bare '±' columns: each belongs to the column on its left
         if any(matches.get(j) is not None and matches[j].canonical for j in idx):
             names = [stripped[j] for j in idx]
             raise ProfileFormatError(
                 f"{source}: duplicated header {names[0]!r} on {row_word} {header_line} (columns "
                 f"{[j + 1 for j in idx]}); rename the duplicates so each header is unique, "
-                "or pick one with a column map (column_map / --column-map)."
+                f"or pick one with {map_hint('<column>', names[0])}."
             )
     ignored_other, ignored_elements, ignored_reported = [], [], []
+    _choose_weak_distance(matches, by_canonical, stripped, used, notes, source, row_word,
+                          header_line)
     for canonical, idx in by_canonical.items():
         if canonical in used:
             for j in idx:
                 notes.append(f"column '{stripped[j]}' ignored: {canonical} is taken from "
-                             f"'{used[canonical][1].header}' (column_map)")
+                             f"'{used[canonical][1].header}' (column map)")
             continue
         if len(idx) > 1:
             names = [stripped[j] for j in idx]
             raise ProfileFormatError(
                 f"{source}: columns {names} on {row_word} {header_line} all look like "
-                f"{canonical}; choose one with column_map={{'{canonical}': '{names[0]}'}} "
-                f"(command line: --column-map {canonical}='{names[0]}') or name the other "
-                "one."
+                f"{canonical}; choose one with {map_hint(canonical, names[0])}, or rename the "
+                "other one."
             )
         j = idx[0]
         used[canonical] = (j, matches[j])
@@ -640,8 +826,7 @@ def _map_columns(header: list[str], source: str, user_map: dict[str, str],
         raise ProfileFormatError(
             f"{source}: no oxide columns recognised on header {row_word} {header_line}; headers "
             f"found: {[h for h in stripped if h]}. Expected oxide wt% columns such as SiO2, "
-            "FeO, MgO, CaO; name them with column_map={'MgO': '<header>', ...} (command "
-            "line: --column-map MgO='<header>')."
+            f"FeO, MgO, CaO; name them with {map_hint('MgO', '<header>')}, one per column."
         )
     return used, notes
 
@@ -757,11 +942,6 @@ def _is_number(text: str) -> bool:
     return bool(_NUMERIC_CELL_RE.match(text.strip()))
 
 
-def _safe_group(text: str) -> str:
-    s = re.sub(r"[^\w.+-]+", "_", text.strip(), flags=re.UNICODE).strip("._")
-    return s or "unnamed"
-
-
 class _Flags:
     """Reader flags of each output row, in the order they were raised."""
 
@@ -874,7 +1054,8 @@ def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
     flags.add_many(np.flatnonzero(hdr_rows), "duplicate header row repeated inside the data")
     for i in np.flatnonzero([r in spans for r in rows]) if spans else ():
         flags.add(i, f"quoted cell spans lines {rows[i]}-{spans[rows[i]]}")
-    numeric_cols = [j for k, (j, _) in used.items() if k not in ("point", "label", "sample")]
+    text_keys = ("point", "label", "exclude", *_columns.NAME_KEYS)
+    numeric_cols = [j for k, (j, _) in used.items() if k not in text_keys]
     max_used = max(numeric_cols)
     lens = lengths[idx]
     for i in np.flatnonzero((lens < n_header) & (lens <= max_used) & ~hdr_rows):
@@ -904,7 +1085,7 @@ def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
 
     # summary rows, recognised from the point, label or sample cell or the first cell
     probe = list(dict.fromkeys(
-        [used[k][0] for k in ("point", "label", "sample") if k in used] + [0]))
+        [used[k][0] for k in ("point", "label", *_columns.NAME_KEYS) if k in used] + [0]))
     is_summary = np.zeros(n, dtype=bool)
     for j in probe:
         col = S[:, j]
@@ -953,14 +1134,34 @@ def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
             notes.append(f"{what} from '{m.header}' in {unit}{conv}")
             used[key] = (used[key][0], _columns.ColumnMatch(m.header, key, unit, scale))
         elif key == "distance_um":
-            notes.append(f"distance from '{m.header}': no unit given, read as µm")
-            used[key] = (used[key][0], _columns.ColumnMatch(m.header, key, "µm", 1.0))
+            finite = out[key][np.isfinite(out[key])]
+            span = float(finite.max() - finite.min()) if finite.size else 0.0
+            if finite.size > 1 and 0 < span < DISTANCE_MM_SPAN_LIMIT:
+                out[key] = out[key] * 1000.0
+                unit = "mm"
+                notes.append(f"distance from '{m.header}': no unit given; span {span:g} < "
+                             f"{DISTANCE_MM_SPAN_LIMIT:g}, so read as mm and converted to µm "
+                             "(write the unit in the header to say otherwise)")
+            else:
+                unit = "µm"
+                notes.append(f"distance from '{m.header}': no unit given; span {span:g} >= "
+                             f"{DISTANCE_MM_SPAN_LIMIT:g}, so read as µm")
+            used[key] = (used[key][0], _columns.ColumnMatch(
+                m.header, key, unit, _columns.position_scale(unit),
+                reading=f"distance along the traverse [{unit}: no unit in the header, read "
+                        f"as {unit} because the values span {span:g}]"))
     stage = [k for k in ("x_um", "y_um") if k in used and not np.isfinite(used[k][1].scale)]
     if stage:
         spans_xy = [np.nanmax(out[k]) - np.nanmin(out[k]) for k in stage
                     if np.isfinite(out[k]).any()]
         span = float(max(spans_xy)) if spans_xy else 0.0
         heads = "/".join(f"'{used[k][1].header}'" for k in stage)
+        unit = "mm" if span < STAGE_MM_SPAN_LIMIT else "µm"
+        for k in stage:
+            used[k] = (used[k][0], _columns.ColumnMatch(
+                used[k][1].header, k, unit, _columns.position_scale(unit),
+                reading=f"stage {k[0].upper()} [{unit}: no unit in the header, read as {unit} "
+                        f"because the largest X/Y span is {span:g}]"))
         if span < STAGE_MM_SPAN_LIMIT:
             for k in stage:
                 out[k] = out[k] * 1000.0
@@ -978,9 +1179,16 @@ def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
         parse(key, key, scale, " wt%, background-corrected")
     if "total" in used:
         parse("total", "total_reported", 1.0, " wt%")
-    for key in ("fo_sigma", "an_sigma"):
+    for key in ("fo_sigma", "an_sigma", *_columns.SIGMA_KEYS):
         if key in used:
-            parse(key, key, used[key][1].scale, "")
+            scale = used[key][1].scale
+            if (key in _columns.SIGMA_KEYS and not used[key][1].unit
+                    and units_row.get(used[key][0]) == "ppm"):
+                scale = scale * 1e-4
+            parse(key, key, scale, " (an uncertainty cannot be negative)")
+    if "exclude" in used:
+        _flag_excluded(S[:, used["exclude"][0]], hdr_rows | is_summary,
+                       used["exclude"][1].header, flags, notes)
     if oxide_keys:
         no_oxide = np.ones(n, dtype=bool)
         for key in oxide_keys:
@@ -994,12 +1202,12 @@ def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
     out["read_flags"] = flags.column()
 
     order = ["row", "point", "label", "distance_um", "x_um", "y_um", *OXIDES,
-             "total_reported", "fo_sigma", "an_sigma", "read_flags"]
+             "total_reported", "fo_sigma", "an_sigma", *_columns.SIGMA_KEYS, "read_flags"]
     frame = pd.DataFrame({k: out[k] for k in order if k in out})
     for k in ("point", "label", "read_flags"):
         frame[k] = frame[k].astype(object)
 
-    # traverses: blank-line blocks with name lines, then an explicit sample column
+    # traverses: blank-line blocks with name lines, then sample / crystal / traverse columns
     split_notes: list[str] = []
     block_of_row = np.cumsum(kind == "name")[idx]
     if block_names:
@@ -1010,82 +1218,218 @@ def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
                            "separated blocks by their name lines")
     else:
         block_text = np.full(n, "", dtype=object)
-    if "sample" in used:
-        samp, note = _sample_groups(S[:, used["sample"][0]], hdr_rows | is_summary,
-                                    used["sample"][1].header)
+    levels = [block_text]
+    for key in _columns.NAME_KEYS:
+        if key not in used:
+            levels.append(np.full(n, "", dtype=object))
+            continue
+        column = S[:, used[key][0]]
+        values, note, spot_names = _name_groups(column, hdr_rows | is_summary,
+                                                used[key][1].header, key)
         split_notes.append(note)
-    else:
-        samp = np.full(n, "", dtype=object)
-    keys = pd.Series(block_text + "\x00" + samp, dtype=object)
+        levels.append(values)
+        if spot_names and "label" not in used:
+            frame["label"] = np.where(hdr_rows, "", column).astype(object)
+    keys = pd.Series(["\x00".join(parts) for parts in zip(*levels, strict=True)],
+                     dtype=object)
     groups = keys.groupby(keys, sort=False).indices
     column_map_out = {k: m.header for k, (_, m) in used.items()}
+    group_parts = {key: key.split("\x00") for key in groups}
+    names = _traverse_names(group_parts, p.stem)
+    if len(groups) == 1 and "distance_um" in out:
+        split_notes.extend(_restart_note(out["distance_um"], rows, row_word))
+    readings = _column_readings(header_cells, used)
 
     tables = []
-    names_seen: set[str] = set()
     for key, positions in groups.items():
         mask = np.zeros(n, dtype=bool)
         mask[positions] = True
-        parts = [x for x in key.split("\x00", 1) if x]
-        if len(groups) == 1 or not parts:
-            name = p.stem
-        else:
-            name = p.stem + "_" + "_".join(_safe_group(x) for x in parts)
-        base, k = name, 2
-        while name in names_seen:
-            name, k = f"{base}_{k}", k + 1
-        names_seen.add(name)
+        parts = [x for x in group_parts[key] if x]
         tnotes = list(notes) + split_notes
         if len(groups) > 1:
-            tnotes.append(f"this traverse: rows of {' / '.join(repr(x) for x in parts)} "
-                          f"({int(mask.sum())} rows)")
+            tnotes.append(f"this traverse: {names[key]!r}, rows of "
+                          f"{' / '.join(repr(x) for x in parts)} ({int(mask.sum())} rows)")
         tnotes.extend(_count_notes(counts, mask))
-        tables.append(RawTable(name, source, frame[mask].reset_index(drop=True),
+        tnotes.extend(readings)
+        tables.append(RawTable(names[key], source, frame[mask].reset_index(drop=True),
                                column_map_out, tuple(tnotes)))
     return tables
 
 
-def _sample_groups(values: np.ndarray, skip: np.ndarray, header: str) -> tuple[np.ndarray, str]:
-    """Group key per row from a sample/traverse/crystal column, and a note.
+def _traverse_names(group_parts: dict[str, list[str]], stem: str) -> dict[str, str]:
+    """Name each group by the names written in the file.
+
+    The innermost name level the file has (traverse, else crystal, else
+    sample, else block) names a traverse as written; outer levels that vary
+    are put in front, joined by a space, only where needed to tell two
+    traverses apart. One group takes the traverse or crystal name written in
+    the file, else the file stem.
+    """
+    keys = list(group_parts)
+    if len(keys) == 1:
+        parts = group_parts[keys[0]]
+        # levels: block, sample, crystal, traverse
+        for value in (parts[3], parts[2]):
+            if value:
+                return {keys[0]: value}
+        return {keys[0]: stem}
+    n_levels = len(next(iter(group_parts.values())))
+    present = [lv for lv in range(n_levels) if any(group_parts[k][lv] for k in keys)]
+    varying = [lv for lv in range(n_levels)
+               if len({group_parts[k][lv] for k in keys}) > 1]
+    if present:
+        chosen = [present[-1]]
+        outer = [lv for lv in reversed(varying) if lv != present[-1]]
+        for extra in [None, *outer]:
+            if extra is not None:
+                chosen = sorted([*chosen, extra])
+            names = {k: " ".join(group_parts[k][lv] for lv in chosen if group_parts[k][lv])
+                     for k in keys}
+            if len(set(names.values())) == len(keys) and all(names.values()):
+                return names
+    names = {k: " ".join(x for x in group_parts[k] if x) or stem for k in keys}
+    out, seen = {}, set()
+    for k in keys:
+        name, i = names[k], 2
+        while name in seen:
+            name, i = f"{names[k]} ({i})", i + 1
+        seen.add(name)
+        out[k] = name
+    return out
+
+
+def _restart_note(distance: np.ndarray, rows: np.ndarray, row_word: str) -> list[str]:
+    """Say so when the distance falls back to its start: the file may hold several traverses."""
+    d = np.asarray(distance, dtype=float)
+    ok = np.isfinite(d)
+    if ok.sum() < 4:
+        return []
+    dd, rr = d[ok], rows[ok]
+    with np.errstate(over="ignore", invalid="ignore"):  # absurd values such as 1e308
+        span = dd.max() - dd.min()
+        steps = np.diff(dd)
+    if not (np.isfinite(span) and span > 0):
+        return []
+    # a fall of more than half the span in one step, in an otherwise increasing column
+    falls = np.flatnonzero(steps < -0.5 * span)
+    if not falls.size or (steps < 0).sum() > falls.size + 0.1 * steps.size:
+        return []
+    where = ", ".join(f"{row_word} {rr[i + 1]}" for i in falls[:5])
+    return [f"the distance falls back to its start at {where}: the file may hold "
+            f"{falls.size + 1} traverses one after the other; name the column that tells them "
+            "apart with --column-map traverse='<header>' (project key column_map = "
+            '{ traverse = "<header>" })']
+
+
+_FALSY = frozenset({"", "0", "0.0", "no", "n", "false", "f", "ok", "good", "keep", "none",
+                    "nan", "-", "--", "use", "kept"})
+_PLAIN_TRUE = frozenset({"1", "1.0", "yes", "y", "true", "t", "x", "*", "bad", "exclude",
+                         "excluded", "ignore", "ignored", "reject", "rejected", "omit",
+                         "omitted", "skip", "discard", "discarded"})
+
+
+def _flag_excluded(cells: np.ndarray, skip: np.ndarray, header: str, flags, notes) -> None:
+    """Flag every spot whose cell in a bad-spot column holds a true value."""
+    n_marked = 0
+    for i, cell in enumerate(cells):
+        text = str(cell).strip()
+        if skip[i] or text.lower() in _FALSY:
+            continue
+        if text.lower() in _PLAIN_TRUE:
+            flags.add(i, f"marked to leave out in the file (column '{header}')")
+        else:
+            flags.add(i, f"marked to leave out in the file (column '{header}': "
+                         f"'{text[:60]}')")
+        n_marked += 1
+    notes.append(f"column '{header}' marks spots to leave out: {n_marked} marked, flagged "
+                 "with the reason (empty, 0, no, false, ok mean keep)")
+
+
+def _column_readings(header_cells: list[str], used) -> list[str]:
+    """One line per column saying how it was read (for notes.txt)."""
+    by_index = {j: (k, m) for k, (j, m) in used.items()}
+    lines = ["how each column was read:"]
+    for j, h in enumerate(header_cells):
+        if not h:
+            continue
+        if j in by_index:
+            key, m = by_index[j]
+            if key in ("distance_um", "x_um", "y_um") and m.reading:
+                text = m.reading
+            elif key in ("distance_um", "x_um", "y_um"):
+                what = {"distance_um": "distance along the traverse", "x_um": "stage X",
+                        "y_um": "stage Y"}[key]
+                unit = m.unit or "no unit"
+                conv = "" if m.unit == "µm" else ", converted to µm"
+                text = f"{what} [{unit}{conv}]"
+            else:
+                text = m.reading or key
+            lines.append(f"  '{h}' -> {text}")
+        else:
+            m = _columns.recognise(h)
+            why = {
+                "element": "not used (element wt%, not an oxide)",
+                "reported": "not used (computed by the instrument; recalculated from the "
+                            "oxides)",
+                "sigma": "not used (an uncertainty of a column that is not used)",
+            }.get(m.ignored_kind, "not used")
+            prefix = f"column '{m.header}' "
+            if m.note.startswith(prefix) and m.ignored_kind in ("unit", "other"):
+                why = m.note[len(prefix):]
+            lines.append(f"  '{h}' -> {why}")
+    return lines
+
+
+def _name_groups(values: np.ndarray, skip: np.ndarray, header: str,
+                 what: str) -> tuple[np.ndarray, str, bool]:
+    """Group value per row from a sample/crystal/traverse column, a note, spot names?.
 
     Rows whose cell is empty (and summary or repeated-header rows) join the
-    group of the row above (the first rows join the first group). Values are
-    used as they are when each value covers at least two rows; otherwise a
-    trailing spot number is stripped (``FRL-07a_03`` → ``FRL-07a``) and the
-    prefixes are used when each covers at least two rows; otherwise the file
-    is not split.
+    group of the row above (the first rows join the first group). The values
+    are used exactly as written: two different values are never merged
+    (``prof 1`` and ``prof 2`` stay two traverses). Only when every row has
+    its own value (the column holds spot names such as ``FRL-07a_03``) is a
+    trailing spot number after a separator stripped, and the file split by
+    the prefixes if that gives groups of several spots; otherwise such a
+    column is read as spot names and does not split the file.
     """
     n = len(values)
     vals = np.where(skip, "", values).astype(object)
     has = vals != ""
     none = np.full(n, "", dtype=object)
     if not has.any():
-        return none, f"sample column '{header}' is empty; file not split"
+        return none, f"{what} column '{header}' is empty; file not split", False
     last = np.maximum.accumulate(np.where(has, np.arange(n), -1))
     last[last < 0] = int(np.argmax(has))
     v = vals[last]
-    uniq, counts = np.unique(v.astype(str), return_counts=True)
+    uniq = list(dict.fromkeys(v.tolist()))
     if len(uniq) == 1:
-        return none, f"sample column '{header}' holds one value {str(uniq[0])!r}; file not split"
-    how = "its values"
-    n_groups = len(uniq)
-    if (counts < 2).any():
-        prefix = np.array([re.sub(r"[\s_\-.:/#]*\d+$", "", x) for x in v], dtype=object)
-        puniq, pcounts = np.unique(prefix.astype(str), return_counts=True)
-        if 1 < len(puniq) < len(uniq) and (pcounts >= 2).all() and (prefix != "").all():
-            v, n_groups = prefix, len(puniq)
-            how = "the value prefixes before a trailing spot number"
+        return (v, f"{what} column '{header}' holds one value {str(uniq[0])!r}; file not "
+                "split", False)
+    how = "its values as written"
+    n_spots = int(has.sum())
+    if n_spots >= 3 and len(set(vals[has].tolist())) == n_spots:
+        prefix = np.array([re.sub(r"[\s_\-.:/#]+\d+$", "", x) for x in v], dtype=object)
+        stripped = prefix != v
+        puniq = list(dict.fromkeys(prefix.tolist()))
+        if stripped.all() and (prefix != "").all() and 1 <= len(puniq) < n_spots:
+            if len(puniq) == 1:
+                return (prefix, f"{what} column '{header}' holds spot names of one "
+                        f"{what} {puniq[0]!r}; file not split", True)
+            v, uniq = prefix, puniq
+            how = "the spot names without their trailing spot number (every row has its own name)"
         else:
             return none, (
-                f"sample column '{header}' has {len(uniq)} different values, some on one row "
-                "only; file not split (name the traverse column with column_map, or fix the "
-                "column, to split it)"
-            )
+                f"{what} column '{header}' has a different value on every row: read as spot "
+                "names, file not split (name the column that tells traverses apart with "
+                "--column-map traverse='<header>')"
+            ), True
     runs = int(1 + (v[1:] != v[:-1]).sum())
-    note = f"split on sample column '{header}' by {how} into {n_groups} traverses"
-    if runs != n_groups:
+    note = f"split on {what} column '{header}' by {how} into {len(uniq)} groups"
+    if runs != len(uniq):
         note += (f" (values not contiguous: {runs} runs; the rows of each value are gathered "
                  "in file order)")
-    return v, note
+    return v, note, how != "its values as written"
 
 
 def _first_block_name(line_before: list[str]) -> str:

@@ -34,7 +34,7 @@ from zoning.minerals import (
     structural_formula,
 )
 from zoning.orientation import find_stray_positions, locate_core, project_traverse
-from zoning.oxides import CANONICAL_OXIDES
+from zoning.oxides import CANONICAL_OXIDES, OXIDES
 from zoning.traverse import MAJOR_COLUMN, MINERALS, ORIENTATIONS, Traverse
 
 __all__ = ["read_traverses", "build_traverse", "quality_settings"]
@@ -113,6 +113,44 @@ def _distance_header_hint(header: str, position: np.ndarray):
                 f"the distance column '{header}' is measured from the rim: core at the far "
                 f"end, {finite.max():.4g} µm")
     return None
+
+
+def _record_sigma_from_oxides(spots: pd.DataFrame, mineral: str):
+    """1-sigma of Fo or An per spot propagated from the oxide 1-sigma columns [mol%].
+
+    First-order propagation of independent oxide uncertainties through
+    Fo = 100 Mg/(Mg + Fe) (all Fe as Fe2+) or An = 100 Ca/(Ca + Na + K) in
+    moles; a missing sigma of a minor member (K2O) counts as zero. Returns
+    (values, note); note is "" when the needed sigma columns are absent.
+    """
+    def moles(oxide):
+        ox = OXIDES[oxide]
+        wt = spots[oxide].to_numpy(float) if oxide in spots else np.zeros(len(spots))
+        sd = (spots[f"{oxide}_sigma"].to_numpy(float) if f"{oxide}_sigma" in spots
+              else np.full(len(spots), np.nan))
+        factor = ox.n_cations / ox.molar_mass
+        return np.nan_to_num(wt) * factor, sd * factor
+
+    if mineral == "olivine":
+        needed = ("MgO", "FeO")
+        if not all(f"{c}_sigma" in spots for c in needed):
+            return None, ""
+        (m, sm), (f, sf) = moles("MgO"), moles("FeO")
+        total = m + f
+        sigma = 100.0 / total**2 * np.hypot(f * sm, m * sf)
+        what = "FeO and MgO"
+    else:
+        needed = ("CaO", "Na2O")
+        if not all(f"{c}_sigma" in spots for c in needed):
+            return None, ""
+        (c, sc), (n, sn), (k, sk) = moles("CaO"), moles("Na2O"), moles("K2O")
+        sk = np.nan_to_num(sk)
+        total = c + n + k
+        sigma = 100.0 / total**2 * np.sqrt(((n + k) * sc) ** 2 + (c * sn) ** 2 + (c * sk) ** 2)
+        what = "CaO, Na2O" + (" and K2O" if "K2O_sigma" in spots else " (K2O sigma taken as 0)")
+    record = _RECORD[mineral]
+    return sigma, (f"{record} 1-sigma per spot propagated from the file's {what} 1-sigma "
+                   "columns (first order, independent errors)")
 
 
 def read_traverses(
@@ -261,7 +299,8 @@ def _build(raw, *, mineral, orientation, core_position_um, checks, iron, sheet) 
     if not oxides:
         raise ProfileFormatError(
             f"{where}: no oxide columns were recognised; expected columns such as SiO2, "
-            "FeO, MgO, CaO, Na2O. Pass column_map (--column-map MgO='MgO wt.%') to name them."
+            "FeO, MgO, CaO, Na2O. Name them with --column-map MgO='MgO wt.%' (project key "
+            'column_map = { MgO = "MgO wt.%" }).'
         )
     notes: list[str] = list(raw.notes)
     read_flags = (data["read_flags"].fillna("").astype(str) if "read_flags" in data
@@ -327,8 +366,9 @@ def _build(raw, *, mineral, orientation, core_position_um, checks, iron, sheet) 
     else:
         raise ProfileFormatError(
             f"{where}: no position information; expected a distance column (µm or mm) or "
-            "stage X and Y columns. Name them with column_map (--column-map "
-            "distance_um='Dist' or x_um='X' y_um='Y')."
+            "stage X and Y columns. Name them with --column-map distance_um='Dist' (or "
+            "--column-map x_um='X' --column-map y_um='Y'; project key column_map = "
+            '{ distance_um = "Dist" }).'
         )
     missing_pos = ~np.isfinite(position)
     # Stray positions (typos, stage glitches) are flagged before the core is
@@ -357,6 +397,14 @@ def _build(raw, *, mineral, orientation, core_position_um, checks, iron, sheet) 
     sigma_col = f"{major}_sigma"
     spots[sigma_col] = (pd.to_numeric(data[sigma_col], errors="coerce").to_numpy(float)
                         if sigma_col in data else np.nan)
+    oxide_sigmas = [f"{c}_sigma" for c in CANONICAL_OXIDES if f"{c}_sigma" in data.columns]
+    for c in oxide_sigmas:
+        spots[c] = pd.to_numeric(data[c], errors="coerce").to_numpy(float)
+    if sigma_col not in data and oxide_sigmas:
+        derived, note = _record_sigma_from_oxides(spots, mineral)
+        if note:
+            spots[sigma_col] = derived
+            notes.append(note)
 
     to_check = spots.copy()
     to_check["read_flags"] = join_reasons(

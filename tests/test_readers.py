@@ -151,7 +151,7 @@ def test_distance_in_mm_is_converted_to_um(tmp_path):
 def test_distance_without_unit_is_read_as_um_and_said_so(tmp_path):
     t = only(read_export(write_export(tmp_path / "d.csv", distance_header="Distance")))
     assert_allclose(t.data["distance_um"], [0, 12.5, 25, 37.5], rtol=RTOL_IDENTITY)
-    assert "distance from 'Distance': no unit given, read as µm" in t.notes
+    assert "distance from 'Distance': no unit given; span 37.5 >= 5, so read as µm" in t.notes
 
 
 @pytest.mark.parametrize(
@@ -310,10 +310,10 @@ def test_sample_column_splits_the_file_into_named_traverses(tmp_path):
         encoding="utf-8",
     )
     tables = read_export(path)
-    assert [t.name for t in tables] == ["FRL-07_ol1", "FRL-07_ol_2"]
+    assert [t.name for t in tables] == ["ol1", "ol 2"]
     assert [t.data["row"].tolist() for t in tables] == [[2, 3, 4], [5, 6]]
     assert tables[0].data["read_flags"].iloc[2] == "summary row (average) — not an analysis"
-    assert any("split on sample column 'Sample' by its values into 2 traverses" in n
+    assert any("split on sample column 'Sample' by its values as written into 2 groups" in n
                for n in tables[0].notes)
 
 
@@ -325,7 +325,9 @@ def test_sample_column_of_spot_names_is_split_by_prefix(tmp_path):
         encoding="utf-8",
     )
     tables = read_export(path)
-    assert [t.name for t in tables] == ["p_FRL-07a", "p_FRL-07b"]
+    assert [t.name for t in tables] == ["FRL-07a", "FRL-07b"]
+    # the spot names become the labels
+    assert tables[0].data["label"].tolist() == ["FRL-07a_01", "FRL-07a_02"]
 
 
 def test_sample_column_with_one_value_does_not_split(tmp_path):
@@ -358,8 +360,7 @@ def test_blank_line_separated_blocks_with_name_lines(tmp_path):
         encoding="utf-8",
     )
     tables = read_export(path)
-    assert [t.name for t in tables] == ["blocks_Traverse_A", "blocks_Traverse_B",
-                                        "blocks_Traverse_C"]
+    assert [t.name for t in tables] == ["Traverse A", "Traverse B", "Traverse C"]
     assert [t.data["row"].tolist() for t in tables] == [[3, 4], [8], [12]]
     assert tables[1].data["MgO"].tolist() == [43.58]
     assert all((t.data["read_flags"] == "").all() for t in tables)
@@ -443,10 +444,14 @@ def test_xlsx_sheet_selection(tmp_path):
             w, sheet_name="ol3", index=False)
     assert only(read_export(path, sheet="ol3")).data["MgO"].tolist() == [49.42]
     assert only(read_export(path, sheet=1)).data["MgO"].tolist() == [49.42]
-    with pytest.raises(ProfileFormatError, match=r"sheet 'nope' not found; sheets are"):
+    with pytest.raises(ProfileFormatError, match=r"sheet 'nope' not found. The sheet names are "
+                                                 r"'info', 'ol3'; give --sheet NAME"):
         read_export(path, sheet="nope")
-    with pytest.raises(ProfileFormatError, match="no header line found"):
-        read_export(path)
+    # without --sheet, the first sheet that holds analyses is read, and the notes say so
+    t = only(read_export(path))
+    assert t.data["MgO"].tolist() == [49.42]
+    assert ("sheet: read 'ol3' (sheet 2 of 2: 'info', 'ol3'); 'info' skipped: no header "
+            "line of analyses") in t.notes
 
 
 def test_column_map_overrides_recognition(tmp_path):
@@ -465,9 +470,9 @@ def test_column_map_overrides_recognition(tmp_path):
 
 def test_column_map_errors_name_what_is_wrong(tmp_path):
     path = write_export(tmp_path / "m.csv")
-    with pytest.raises(ProfileFormatError, match=r"column_map key 'Silica' is not a known"):
+    with pytest.raises(ProfileFormatError, match=r"column-map key 'Silica' is not a known"):
         read_export(path, column_map={"Silica": "SiO2"})
-    with pytest.raises(ProfileFormatError, match=r"headers \['SiO2 %'\] named in column_map "
+    with pytest.raises(ProfileFormatError, match=r"headers \['SiO2 %'\] named in the column map "
                                                  r"not found on the header line; the header "
                                                  r"\(line 1\) has \['Point', 'Comment', "):
         read_export(path, column_map={"SiO2": "SiO2 %", "MgO": "MgO"})

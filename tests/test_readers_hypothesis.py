@@ -227,8 +227,8 @@ def test_sample_column_split_keeps_every_row_once(tmp_path, case):
     tables = read_export(path)
     assert [t.data["row"].tolist() for t in tables] == list(rows_by_group.values())
     if len(rows_by_group) > 1:
-        assert [t.name for t in tables] == [
-            "FRL_" + g.replace(" ", "_") for g in rows_by_group]
+        # each traverse keeps the name written in the file
+        assert [t.name for t in tables] == list(rows_by_group)
 
 
 @settings(max_examples=25, deadline=None,
@@ -254,3 +254,134 @@ def test_xlsx_rows_keep_sheet_row_numbers_and_values(tmp_path, cells, n_title):
     assert t.data["row"].tolist() == list(range(first, first + len(cells)))
     np.testing.assert_allclose(t.data["SiO2"], [x for x, _ in cells], rtol=RTOL_IDENTITY)
     assert t.data["FeO"].isna().all()
+
+
+# ---------------------------------------------------------------------------
+# header recognition and splitting of long tables
+
+from zoning.io._columns import OXIDES as _OXIDES  # noqa: E402
+from zoning.io._columns import element_ppm_factor, recognise  # noqa: E402
+
+_OXIDE_UNITS = ["", " wt%", " (wt%)", " [wt.%]", "(wt%)", "_wt%", " (wt. %)"]
+
+
+@st.composite
+def oxide_header(draw):
+    """An oxide header as typed by people: case, digit 0 for O, unit, total-iron marker."""
+    oxide = draw(st.sampled_from(_OXIDES))
+    text = oxide
+    if draw(st.booleans()):
+        text = text.replace("O", "0")
+    text = draw(st.sampled_from([text, text.lower(), text.upper()]))
+    if oxide == "FeO" and draw(st.booleans()):
+        text += draw(st.sampled_from(["T", "t", "*", "(tot)", " total", "(T)"]))
+    return oxide, text + draw(st.sampled_from(_OXIDE_UNITS))
+
+
+@settings(max_examples=300, deadline=None)
+@given(oxide_header())
+def test_oxide_headers_in_any_typed_spelling_are_recognised(case):
+    oxide, header = case
+    m = recognise(header)
+    assert (m.canonical, m.scale) == (oxide, 1.0)
+    # no oxide name and no unit here contains the digit 0, so a 0 is a typed letter O
+    assert ("digit 0" in m.reading) == ("0" in header)
+
+
+_ELEMENTS = {"Ni": ["58", "60", "62"], "Sr": ["86", "88"], "Mg": ["24", "25", "26"],
+             "Ba": ["137", "138"], "Ti": ["47", "49"], "Mn": ["55"], "Ca": ["43", "44"]}
+
+
+@st.composite
+def ppm_header(draw):
+    """Laser-ablation style element headers in ppm: Sr88 (ppm), 88Sr ppm, Ni_ppm ..."""
+    element = draw(st.sampled_from(sorted(_ELEMENTS)))
+    mass = draw(st.sampled_from(["", *_ELEMENTS[element]]))
+    name = draw(st.sampled_from([element + mass, mass + element]))
+    if mass and draw(st.booleans()):
+        name = f"{element} {mass}" if name.startswith(element) else name
+    unit = draw(st.sampled_from([" (ppm)", " ppm", "_ppm", " [ppm]", " (µg/g)", " ug/g"]))
+    return element, name + unit
+
+
+@settings(max_examples=200, deadline=None)
+@given(ppm_header())
+def test_element_ppm_headers_become_the_oxide_with_the_molar_mass_factor(case):
+    element, header = case
+    m = recognise(header)
+    assert m.canonical != ""
+    assert math.isclose(m.scale, element_ppm_factor(element), rel_tol=RTOL_IDENTITY)
+    assert f"{element} ppm" in m.reading and m.canonical in m.reading
+
+
+@st.composite
+def sigma_header(draw):
+    target = draw(st.sampled_from(["Fo", "An", "FeO", "MgO", "CaO", "Na2O", "NiO"]))
+    k = draw(st.sampled_from(["", "1", "2"]))
+    word = draw(st.sampled_from(["σ", "sigma", "sd", "err", "error", "±", "unc",
+                                 "uncertainty"]))
+    if k and word not in ("σ", "sigma", "sd"):
+        word = draw(st.sampled_from(["σ", "sigma", "sd", "s"]))
+    form = draw(st.sampled_from(["prefix", "suffix"]))
+    if form == "prefix" and word != "s":
+        header = f"{k}{word}({target})"
+    else:
+        word = "s" if word == "s" and not k else word
+        sep = draw(st.sampled_from([" ", "_", ""]))
+        header = f"{target}{sep}{k}{word}" if (k or word != "s") else f"{target} 1s"
+    return target, 2 if k == "2" else 1, header
+
+
+@settings(max_examples=300, deadline=None)
+@given(sigma_header())
+def test_uncertainty_headers_feed_the_sigma_of_their_quantity(case):
+    target, k, header = case
+    m = recognise(header)
+    key = f"{target.lower()}_sigma" if target in ("Fo", "An") else f"{target}_sigma"
+    assert m.canonical == key, header
+    assert m.scale == (0.5 if k == 2 else 1.0), header
+
+
+_TRAVERSE_NAMES = ["prof 1", "prof 2", "prof 12", "Prof 1", "prof_1", "ol3-A", "line 2",
+                   "FRL-07 ol1", "1", "2"]
+
+
+@st.composite
+def long_table(draw):
+    """A long table with a traverse column (any header spelling) and maybe a sample column."""
+    names = draw(st.lists(st.sampled_from(_TRAVERSE_NAMES), min_size=1, max_size=5,
+                          unique=True))
+    samples = draw(st.sampled_from([None, ["FRL-21"], ["FRL-21", "FRL-22"]]))
+    groups = [(s, n) for s in (samples or [""]) for n in names]
+    sizes = [draw(st.integers(1, 5)) for _ in groups]
+    if max(sizes) < 2:
+        sizes[0] = 2
+    order = [g for g, size in zip(groups, sizes, strict=True) for _ in range(size)]
+    if draw(st.booleans()):
+        order = draw(st.permutations(order))
+    header = draw(st.sampled_from(["Profile", "profile_name", "TRANSECT", "Traverse ID",
+                                   "Line", "Spot set name", "Grain"]))
+    cols = (["Sample"] if samples else []) + [header, "Distance (µm)", "SiO2", "FeO", "MgO"]
+    lines = [",".join(cols)]
+    for i, (s, n) in enumerate(order):
+        lines.append(",".join(([s] if samples else []) + [n, str(10 * (i % 7)), "40.81",
+                                                          "9.55", "49.42"]))
+    return "\n".join(lines) + "\n", order
+
+
+@SETTINGS
+@given(long_table())
+def test_long_tables_split_on_every_distinct_name_and_never_merge(tmp_path, case):
+    text, order = case
+    path = tmp_path / "long.csv"
+    path.write_text(text, encoding="utf-8")
+    tables = read_export(path)
+    distinct = list(dict.fromkeys(order))
+    assert len(tables) == len(distinct)
+    assert len({t.name for t in tables}) == len(tables)
+    for t, group in zip(tables, distinct, strict=True):
+        expected_rows = [i + 2 for i, g in enumerate(order) if g == group]
+        assert t.data["row"].tolist() == expected_rows
+        # the name is the one written in the file (with the sample in front if needed)
+        assert group[1] in t.name or (len(distinct) == 1 and t.name == group[1])
+    assert sorted(r for t in tables for r in t.data["row"]) == list(range(2, len(order) + 2))

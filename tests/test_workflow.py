@@ -170,3 +170,101 @@ def test_zoning_batch_accepts_every_zoning_fit_option():
         return {s for a in p._actions for s in a.option_strings}
 
     assert options(fit_cli) <= options(batch_cli)
+
+
+def test_reading_options_are_project_keys_in_defaults_and_samples(tmp_path):
+    path = _write(tmp_path, """
+[defaults]
+melt = { FeO = 9.5 }
+fe3 = 0.12
+sheet = "olivine"
+iron = "charge-balance"
+check = { total_min_wt = 98.0, total_max_wt = 101.0 }
+column_map = { FeO = "FeO" }
+
+[samples."A"]
+file = "a.csv"
+orientation = "rim-to-core"
+core_um = 12.5
+check = { total_min_wt = 97.5 }
+column_map = { MgO = "MgO" }
+sheet = 1
+
+[samples."B"]
+file = "a.csv"
+melt = { FeO = 8.1, Fe2O3 = 1.6 }
+""")
+    a, b = read_project(path).jobs
+    assert a.read_options == {
+        "sheet": 1, "iron": "charge-balance", "orientation": "rim-to-core",
+        "core_position_um": 12.5, "checks": {"total_min_wt": 97.5, "total_max_wt": 101.0},
+        "column_map": {"FeO": "FeO", "MgO": "MgO"},
+    }
+    assert a.fit_options["fe3_fraction"] == 0.12
+    # FeO + Fe2O3 in the sample's melt set its Fe3+/FeT: the default fe3 does not apply
+    assert "fe3_fraction" not in b.fit_options
+    assert b.fit_options["melt"] == {"FeO": 8.1, "Fe2O3": 1.6}
+    assert b.read_options["sheet"] == "olivine"
+
+
+@pytest.mark.parametrize(
+    ("text", "match"),
+    [
+        ('[samples."A"]\nfile = "a.csv"\ncore_position_um = 3\n', r"now called 'core_um'"),
+        ('[samples."A"]\nfile = "a.csv"\nchecks = { total_min_wt = 98 }\n',
+         r"now called 'check'"),
+        ('[samples."A"]\nfile = "a.csv"\ncheck = { total_mn_wt = 98 }\n',
+         r"known quality-check settings \(not 'total_mn_wt'\): .*total_min_wt"),
+        ('[samples."A"]\nfile = "a.csv"\norientation = "core-rim"\n',
+         r"'core-to-rim', 'rim-to-core', 'rim-to-rim'"),
+        ('[samples."A"]\nfile = "a.csv"\niron = "Fe2O3"\n', r"'FeO', 'reported'"),
+        ('[samples."A"]\nfile = "a.csv"\nsheet = true\n', r"sheet name in quotes or a sheet"),
+        ('[samples."A"]\nfile = "a.csv"\ncolumn_map = { FeO = 3 }\n',
+         r'column_map = \{ FeO = "FeO tot"'),
+        ('[samples."A"]\nfile = "a.csv"\nfe3 = 1.5\n', r"fraction Fe3\+/FeT in \[0, 1\)"),
+    ],
+)
+def test_reading_option_errors_name_the_key_and_the_fix(tmp_path, text, match):
+    with pytest.raises(ProjectError, match=match):
+        read_project(_write(tmp_path, text))
+
+
+def test_inspect_fit_and_batch_share_every_reading_option():
+    from zoning.cli import batch as batch_cli
+    from zoning.cli import inspect as inspect_cli
+
+    def options(module):
+        parser = argparse.ArgumentParser()
+        p = module.add_parser(parser.add_subparsers())
+        return {s: (a.choices and tuple(a.choices), a.type, a.nargs, type(a).__name__)
+                for a in p._actions for s in a.option_strings}
+
+    reading = {"--column-map", "--sheet", "--orientation", "--core-um", "--check", "--iron",
+               "--mineral"}
+    got = [options(m) for m in (inspect_cli, fit_cli, batch_cli)]
+    for opts in got:
+        assert reading <= set(opts)
+    for name in reading:
+        assert got[0][name] == got[1][name] == got[2][name], name
+
+
+def test_command_line_reading_options_become_the_same_read_keywords():
+    from zoning.cli import batch as batch_cli
+    from zoning.cli import inspect as inspect_cli
+    from zoning.cli._reading import reading_options
+    from zoning.workflow import read_keywords
+
+    argv = ["--column-map", "FeO=FeO tot", "--sheet", "2", "--orientation", "rim-to-core",
+            "--core-um", "4", "--check", "total_min_wt=98", "--iron", "reported",
+            "--mineral", "olivine"]
+    parsed = []
+    for module, extra in ((inspect_cli, []), (fit_cli, ["--melt", "FeO=9"]),
+                          (batch_cli, ["--melt", "FeO=9"])):
+        parser = argparse.ArgumentParser()
+        module.add_parser(parser.add_subparsers(dest="command"))
+        args = parser.parse_args([module.__name__.rsplit(".", 1)[-1], "x.csv", *argv, *extra])
+        parsed.append(read_keywords(reading_options(args)))
+    assert parsed[0] == parsed[1] == parsed[2] == {
+        "mineral": "olivine", "column_map": {"FeO": "FeO tot"}, "sheet": "2",
+        "orientation": "rim-to-core", "core_position_um": 4.0,
+        "checks": {"total_min_wt": 98.0}, "iron": "reported"}

@@ -669,7 +669,8 @@ class CrystallizationModel(_ModelBase):
         ):
             raise ModelDomainError(
                 "the plagioclase Sr/Mg partitioning laws need a temperature; got none. Give "
-                "temperature_c=... [°C] or a constant D with trace_d."
+                "--temperature-c [°C] (project key temperature_c) or a constant D with "
+                "--trace-d Sr=D."
             )
         self.kd = law.kd_default if kd is None else _check_scalar(
             "kd", kd, law.kd_bounds[0], law.kd_bounds[1], "[1]"
@@ -750,8 +751,8 @@ class CrystallizationModel(_ModelBase):
                 if comp not in table:
                     raise ModelDomainError(
                         f"no partition coefficient of {comp} for {name!r} in the assemblage; "
-                        f"known minerals {sorted(ASSEMBLAGE_D_DEFAULTS)}. Give it with "
-                        f"assemblage_d={{'{name}': {{'{comp}': D}}}}."
+                        f"known minerals {sorted(ASSEMBLAGE_D_DEFAULTS)}. Give D of {comp} "
+                        f"for {name} in the assemblage partition coefficients (assemblage_d)."
                     )
                 d = _check_scalar(f"assemblage_d[{name!r}][{comp!r}]", table[comp], 0.0, 1e4,
                                   "[1]")
@@ -1285,7 +1286,8 @@ def _check_melt(melt: Mapping[str, float], law) -> dict[str, float]:
     if law.other_oxide not in out:
         raise ModelDomainError(
             f"the reference melt for {law.mineral} needs {law.other_oxide} [wt%]; got "
-            f"{sorted(out)}. Give e.g. melt={{'{law.other_oxide}': ...}} from a glass or "
+            f"{sorted(out)}. Give e.g. --melt {law.other_oxide}=<wt%> (project key melt = "
+            f"{{ {law.other_oxide} = <wt%> }}) from a glass or "
             "whole-rock analysis."
         )
     return out

@@ -9,6 +9,7 @@ for the others the full standard value.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass
 
 import numpy as np
@@ -23,6 +24,7 @@ __all__ = [
     "FEO_PER_FE2O3",
     "total_iron_as_feo",
     "oxide_moles",
+    "parse_oxide_name",
 ]
 
 #: Standard atomic weights [g/mol], IUPAC/CIAAW 2021 (conventional values for
@@ -178,3 +180,48 @@ def oxide_moles(oxides: pd.DataFrame) -> pd.DataFrame:
     masses = np.array([OXIDES[c].molar_mass for c in cols])
     values = oxides[cols].to_numpy(dtype=float) / masses
     return pd.DataFrame(values, index=oxides.index, columns=cols)
+
+
+_OXIDE_NAME_RE = re.compile(
+    r"^(?P<ox>sio2|tio2|al2o3|cr2o3|fe2o3|feo|mno|mgo|nio|cao|na2o|k2o|sro|bao|p2o5)"
+    r"(?P<tot>\s*[-_]?\s*(\*|\(t\)|\(tot\.?\)|\(total\)|t|tot\.?|total))?$"
+)
+_OXIDE_BY_LOWER = {name.lower(): name for name in OXIDES}
+
+
+def parse_oxide_name(text: str) -> tuple[str, bool, bool] | None:
+    """Recognise an oxide name as people write it.
+
+    Parameters
+    ----------
+    text : str
+        E.g. ``"SiO2"``, ``"sio2"``, ``"FeOT"``, ``"FeO*"``, ``"FeO(tot)"``,
+        ``"Al203"`` (digit zero for the letter O). Sub- and superscript
+        digits, case and spaces do not matter; units must be removed first.
+
+    Returns
+    -------
+    (str, bool, bool) or None
+        Canonical oxide, whether a total-iron marker (T, t, *, tot, total)
+        follows it, and whether the digit 0 was read as the letter O; None
+        when the text is not an oxide name.
+
+    Examples
+    --------
+    >>> parse_oxide_name("FeOT")
+    ('FeO', True, False)
+    >>> parse_oxide_name("Al203")
+    ('Al2O3', False, True)
+    """
+    t = str(text).translate(str.maketrans("₀₁₂₃₄₅₆₇₈₉⁰¹²³⁴⁵⁶⁷⁸⁹", "01234567890123456789"))
+    t = t.strip().lower().replace("_", " ")
+    for candidate in (t.replace(" ", ""), t):
+        m = _OXIDE_NAME_RE.match(candidate)
+        if m:
+            return _OXIDE_BY_LOWER[m.group("ox")], bool(m.group("tot")), False
+    compact = t.replace(" ", "")
+    if "0" in compact:
+        m = _OXIDE_NAME_RE.match(compact.replace("0", "o"))
+        if m:
+            return _OXIDE_BY_LOWER[m.group("ox")], bool(m.group("tot")), True
+    return None

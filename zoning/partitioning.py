@@ -356,7 +356,7 @@ class TraceLaw:
                     f"D_Ni of Hart & Davis (1978) used at melt MgO "
                     f"{vmin:.3g}-{vmax:.3g} wt%, outside its calibration "
                     f"range of about {lo:g}-{hi:g} wt%; treat Ni results as extrapolated "
-                    f"or give a constant D with trace_d={{'Ni': D}}.",
+                    "or give a constant D (zoning simulate --trace-d Ni=D).",
                     CalibrationRangeWarning,
                     stacklevel=stacklevel,
                 )
@@ -410,7 +410,7 @@ def make_trace_law(mineral: str, element: str, constant_d: float | None = None) 
         if not np.isfinite(d) or d <= 0:
             raise ModelDomainError(
                 f"constant partition coefficient for {element!r} must be a positive finite "
-                f"number; got {constant_d!r}. Give e.g. trace_d={{{element!r}: 0.5}}."
+                f"number; got {constant_d!r}. Give e.g. --trace-d {element}=0.5."
             )
         key = element.lower()
         return TraceLaw(
@@ -471,7 +471,7 @@ def make_trace_law(mineral: str, element: str, constant_d: float | None = None) 
     known = {"olivine": "'Ni'", "plagioclase": "'Sr', 'Mg'"}.get(mineral, "none")
     raise ModelDomainError(
         f"no partitioning law for trace {element!r} in {mineral}; known: {known}. "
-        f"Give a constant partition coefficient with trace_d={{{element!r}: D}}."
+        f"Give a constant partition coefficient with --trace-d {element}=D."
     )
 
 

@@ -13,8 +13,18 @@ to fit them::
     file = "FRL-07_ol1.csv"   # relative to the project file
     range = "0:180"           # any option of `zoning fit`, overriding [defaults]
 
+    [samples."FRL-09 prof 2"]
+    file = "FRL-09_long.xlsx"
+    sheet = "olivine"         # reading options too: column_map, sheet, orientation,
+    traverse = "prof 2"       # core_um, check, iron (as on the command line)
+    column_map = { traverse = "Line" }
+
 The option names are exactly those of ``zoning fit`` with underscores for
-dashes; :data:`FIT_OPTIONS` and :data:`READ_OPTIONS` map them onto the keyword
+dashes (``--core-um`` is ``core_um``, ``--check total_min_wt=98`` is
+``check = { total_min_wt = 98 }``); tables (``melt``, ``column_map``,
+``check``) given both in ``[defaults]`` and in a sample are merged key by key,
+and a sample melt with FeO and Fe2O3 sets its own Fe3+/FeT instead of a
+default ``fe3``; :data:`FIT_OPTIONS` and :data:`READ_OPTIONS` map them onto the keyword
 arguments of :func:`zoning.fitting.fit_traverse` and
 :func:`zoning.io.read_traverses` (the one place where that mapping lives).
 
@@ -50,7 +60,8 @@ import numpy as np
 import pandas as pd
 
 from zoning.exceptions import OutputRefusedError, ProjectError, ZoningError
-from zoning.traverse import MINERALS
+from zoning.minerals import IRON_OPTIONS
+from zoning.traverse import MINERALS, ORIENTATIONS
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -74,13 +85,14 @@ __all__ = [
     "read_project",
     "project_from_folder",
     "resolve_options",
+    "read_keywords",
     "run_sample",
     "run_batch",
     "fingerprint",
 ]
 
 #: File suffixes taken as microprobe exports when a folder is given.
-EXPORT_SUFFIXES = (".csv", ".txt", ".tsv", ".xlsx")
+EXPORT_SUFFIXES = (".csv", ".txt", ".tsv", ".xlsx", ".ods")
 
 
 def _as_float(key: str, value: Any) -> float:
@@ -166,10 +178,55 @@ def _as_names(key: str, value: Any) -> tuple[str, ...]:
     raise TypeError('a list of names, e.g. ["f_core", "growth_exponent"]')
 
 
-def _as_table(key: str, value: Any) -> dict[str, Any]:
+def _as_column_map(key: str, value: Any) -> dict[str, str]:
+    if not isinstance(value, Mapping) or not all(
+        isinstance(v, str) and v.strip() for v in value.values()
+    ):
+        raise TypeError('a table of column = "header in the file", e.g. '
+                        'column_map = { FeO = "FeO tot", traverse = "Line" }')
+    return {str(k): str(v) for k, v in value.items()}
+
+
+def _as_check(key: str, value: Any) -> dict[str, float]:
+    from dataclasses import fields
+
+    from zoning.minerals import QualitySettings
+
     if not isinstance(value, Mapping):
-        raise TypeError("a table, e.g. { SiO2 = \"Si wt%\" }")
-    return dict(value)
+        raise TypeError("a table of setting = number, e.g. check = { total_min_wt = 98 }")
+    known = [f.name for f in fields(QualitySettings)]
+    out = {}
+    for name, v in value.items():
+        if name not in known:
+            raise TypeError(f"known quality-check settings (not {name!r}): {', '.join(known)}")
+        out[str(name)] = _as_float(key, v)
+    return out
+
+
+def _as_sheet(key: str, value: Any) -> str | int:
+    if isinstance(value, bool):
+        raise TypeError("a sheet name in quotes or a sheet number counted from 0")
+    if isinstance(value, int) and value >= 0:
+        return value
+    if isinstance(value, str) and value.strip():
+        return value
+    raise TypeError("a sheet name in quotes or a sheet number counted from 0")
+
+
+def _as_choice(choices: tuple[str, ...]):
+    def convert(key: str, value: Any) -> str:
+        if not isinstance(value, str) or value not in choices:
+            raise TypeError(f"one of {', '.join(repr(c) for c in choices)}")
+        return value
+
+    return convert
+
+
+def _as_fe3(key: str, value: Any) -> float:
+    v = _as_float(key, value)
+    if not 0.0 <= v < 1.0:
+        raise TypeError("a fraction Fe3+/FeT in [0, 1), e.g. fe3 = 0.15")
+    return v
 
 
 #: Project-file option -> (:func:`zoning.fitting.fit_traverse` keyword, converter).
@@ -178,7 +235,7 @@ FIT_OPTIONS: dict[str, tuple[str, Callable[[str, Any], Any]]] = {
     "melt": ("melt", _as_melt),
     "kd": ("kd", _as_float),
     "kd_sd": ("kd_sd", _as_float),
-    "fe3": ("fe3_fraction", _as_float),
+    "fe3": ("fe3_fraction", _as_fe3),
     "geometry": ("geometry", _as_str),
     "range": ("distance_range", _as_range),
     "radius_um": ("radius_um", _as_float),
@@ -193,13 +250,22 @@ FIT_OPTIONS: dict[str, tuple[str, Callable[[str, Any], Any]]] = {
 }
 
 #: Project-file option -> (:func:`zoning.io.read_traverses` keyword, converter).
+#: The names are those of the reading options of ``zoning inspect``/``fit``/``batch``.
 READ_OPTIONS: dict[str, tuple[str, Callable[[str, Any], Any]]] = {
     "mineral": ("mineral", _as_mineral),
-    "column_map": ("column_map", _as_table),
-    "orientation": ("orientation", _as_str),
-    "core_position_um": ("core_position_um", _as_float),
-    "checks": ("checks", _as_table),
+    "column_map": ("column_map", _as_column_map),
+    "sheet": ("sheet", _as_sheet),
+    "orientation": ("orientation", _as_choice(ORIENTATIONS)),
+    "core_um": ("core_position_um", _as_float),
+    "check": ("checks", _as_check),
+    "iron": ("iron", _as_choice(IRON_OPTIONS)),
 }
+
+#: Option names of earlier versions, with the name to use now.
+_RENAMED = {"checks": "check", "core_position_um": "core_um"}
+
+#: Options whose tables are merged key by key ([defaults], then the sample).
+_MERGED_TABLES = ("column_map", "check")
 
 #: Options of the batch itself: which outputs to draw (both default true).
 OUTPUT_OPTIONS: dict[str, tuple[str, Callable[[str, Any], Any]]] = {
@@ -251,6 +317,8 @@ def resolve_options(
         if key not in valid:
             close = difflib.get_close_matches(key, valid, n=1)
             hint = f" Did you mean {close[0]!r}?" if close else ""
+            if key in _RENAMED:
+                hint = f" It is now called {_RENAMED[key]!r}."
             if key == "file" and table_kind != "sample":
                 hint = " 'file' belongs in a [samples.\"<name>\"] table."
             raise ProjectError(
@@ -430,6 +498,51 @@ class Project:
         return tuple(sorted(files))
 
 
+def read_keywords(options: Mapping[str, Any], *, where: str = "the command-line options"
+                  ) -> dict[str, Any]:
+    """Keyword arguments of :func:`zoning.io.read_traverses` from reading options.
+
+    The one translation used by ``zoning inspect``, ``zoning fit`` and
+    ``zoning batch`` (and project files), so that the three read a file the
+    same way.
+
+    Parameters
+    ----------
+    options : mapping
+        Project-file option names (``mineral``, ``column_map``, ``sheet``,
+        ``orientation``, ``core_um``, ``check``, ``iron``); other options are
+        ignored.
+    where : str, optional
+        Where the options come from, for error messages.
+
+    Returns
+    -------
+    dict
+    """
+    chosen = {k: v for k, v in options.items() if k in READ_OPTIONS}
+    resolved = resolve_options(chosen, where=where)
+    return _split(resolved)[0]
+
+
+def _merge(defaults: Mapping[str, Any], opts: Mapping[str, Any]) -> dict[str, Any]:
+    """Sample options over the defaults; melt and tables merged key by key."""
+    from zoning.melt import merge_melts
+
+    merged = {**defaults, **opts}
+    if "melt" in defaults and "melt" in opts:
+        merged["melt"] = merge_melts(defaults["melt"], opts["melt"])
+    for key in _MERGED_TABLES:
+        if key in defaults and key in opts:
+            merged[key] = {**defaults[key], **opts[key]}
+    # FeO + Fe2O3 in a sample's melt set its Fe3+/FeT; a default fe3 does not apply
+    melt = opts.get("melt", {})
+    if "fe3" in defaults and "fe3" not in opts and any(
+        str(k).strip().lower() in ("fe2o3", "fe203") for k in melt
+    ):
+        del merged["fe3"]
+    return merged
+
+
 def _split(options: Mapping[str, Any]) -> tuple[dict, dict, dict]:
     read = {READ_OPTIONS[k][0]: v for k, v in options.items() if k in READ_OPTIONS}
     fit = {FIT_OPTIONS[k][0]: v for k, v in options.items() if k in FIT_OPTIONS}
@@ -546,7 +659,7 @@ def read_project(
     _check_job_settings({FIT_OPTIONS[k][0]: v for k, v in defaults.items() if k in FIT_OPTIONS},
                         f"[defaults] of {str(path)!r}")
     if overrides:
-        defaults.update(resolve_options(overrides, where="the command-line options"))
+        defaults = _merge(defaults, resolve_options(overrides, where="the command-line options"))
     samples = data.get("samples", {})
     if not isinstance(samples, Mapping) or not samples:
         raise ProjectError(
@@ -567,9 +680,7 @@ def read_project(
             )
         file, problem = _project_file_problem(opts.pop("file"), base, allow_outside_paths)
         traverse = opts.pop("traverse", "")
-        merged = {**defaults, **opts}
-        if "melt" in defaults and "melt" in opts:
-            merged["melt"] = {**defaults["melt"], **opts["melt"]}
+        merged = _merge(defaults, opts)
         _check_job_settings({FIT_OPTIONS[k][0]: v for k, v in merged.items() if k in FIT_OPTIONS},
                             where)
         jobs.append(_make_job(str(name), file, traverse, merged, problem))

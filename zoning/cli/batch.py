@@ -14,6 +14,7 @@ import argparse
 import sys
 from pathlib import Path
 
+from zoning.cli._reading import add_reading_options, reading_options
 from zoning.exceptions import ZoningError
 
 __all__ = ["add_parser", "run", "options_from_args"]
@@ -64,7 +65,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     g.add_argument("--mineral", choices=("olivine", "plagioclase"),
                    help="analysed mineral (default: detected)")
     g.add_argument("--melt", action="append", metavar="OXIDE=WT",
-                   help="reference melt analysis [wt%%], repeatable, e.g. --melt FeO=9.5")
+                   help="reference melt analysis [wt%%], repeatable, e.g. --melt FeO=9.5 "
+                        "(FeOT=... for total iron; FeO and Fe2O3 together set Fe3+/FeT)")
     g.add_argument("--kd", type=float, help="mean of the Kd prior")
     g.add_argument("--kd-sd", type=float, help="1-sigma of the Kd prior (0 fixes Kd)")
     g.add_argument("--fe3", type=float, help="melt Fe3+/FeT")
@@ -84,11 +86,14 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     g.add_argument("--walkers", type=int, help="sampler walkers")
     g.add_argument("--steps", type=int, help="sampler steps")
     g.add_argument("--seed", type=int, help="random seed")
+    add_reading_options(
+        p.add_argument_group("reading options (as for zoning inspect; replace the project "
+                             "defaults)"), batch=True)
     p.set_defaults(run=run)
     return p
 
 
-_FIT_ARGS = ("mineral", "kd", "kd_sd", "fe3", "geometry", "range", "radius_um", "sigma",
+_FIT_ARGS = ("kd", "kd_sd", "fe3", "geometry", "range", "radius_um", "sigma",
              "robust", "include_flagged", "free", "temperature_c", "walkers", "steps",
              "seed")
 
@@ -108,6 +113,7 @@ def options_from_args(args: argparse.Namespace) -> dict:
     from zoning.cli.fit import parse_melt
 
     opts = {k: getattr(args, k) for k in _FIT_ARGS if getattr(args, k, None) is not None}
+    opts.update(reading_options(args))
     if args.melt:
         opts["melt"] = parse_melt(args.melt)
     return opts

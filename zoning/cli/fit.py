@@ -10,6 +10,7 @@ import argparse
 import sys
 from pathlib import Path
 
+from zoning.cli._reading import add_reading_options, reading_options
 from zoning.exceptions import ZoningError
 
 __all__ = ["add_parser", "run", "parse_melt", "parse_range"]
@@ -17,6 +18,9 @@ __all__ = ["add_parser", "run", "parse_melt", "parse_range"]
 
 def parse_melt(items: list[str] | None) -> dict[str, float]:
     """Parse repeated ``OXIDE=WT`` options into a mapping [wt%].
+
+    Names are kept as given (``FeOT``, ``FeO*``, ``Fe2O3`` ...); they are
+    read by :func:`zoning.melt.read_melt` when fitting.
 
     Parameters
     ----------
@@ -26,6 +30,12 @@ def parse_melt(items: list[str] | None) -> dict[str, float]:
     Returns
     -------
     dict of str to float
+
+    Raises
+    ------
+    ZoningError
+        An item without ``=``, a value that is not a non-negative number, or
+        a name given twice.
     """
     melt: dict[str, float] = {}
     for item in items or []:
@@ -39,6 +49,8 @@ def parse_melt(items: list[str] | None) -> dict[str, float]:
                 f"--melt expects OXIDE=WT with a non-negative number [wt%]; got {item!r}. "
                 "Give e.g. --melt FeO=9.5."
             )
+        if name.strip() in melt:
+            raise ZoningError(f"--melt gives {name.strip()} twice; give it once.")
         melt[name.strip()] = number
     return melt
 
@@ -95,16 +107,19 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
             "the crystallized fraction at the rim and r with 95% bands."
         ),
     )
-    p.add_argument("file", help="microprobe export (CSV, TXT or XLSX)")
+    p.add_argument("file", help="microprobe export (CSV, TXT, XLSX or ODS)")
     p.add_argument("--mineral", choices=("olivine", "plagioclase"),
                    help="analysed mineral (default: detected from the analyses)")
     p.add_argument("--melt", action="append", metavar="OXIDE=WT",
                    help="reference melt analysis [wt%%], repeatable, e.g. --melt FeO=9.5 "
-                        "(olivine) or --melt Na2O=3.1 (plagioclase)")
+                        "(olivine; FeOT=... for total iron, FeO and Fe2O3 together set "
+                        "Fe3+/FeT) or --melt Na2O=3.1 (plagioclase)")
     p.add_argument("--kd", type=float, help="mean of the Kd prior (olivine Fe-Mg default "
                    "0.30; plagioclase KD(Ca-Na))")
     p.add_argument("--kd-sd", type=float, help="1-sigma of the Kd prior (0 fixes Kd)")
-    p.add_argument("--fe3", type=float, default=0.10, help="melt Fe3+/FeT (default 0.10)")
+    p.add_argument("--fe3", type=float,
+                   help="melt Fe3+/FeT (default: from the melt FeO and Fe2O3 when both are "
+                        "given, else 0.10)")
     p.add_argument("--temperature-c", type=float,
                    help="temperature [°C] of the plagioclase Sr/Mg partitioning laws "
                         "(SrO/MgO profiles are fitted only when it is given)")
@@ -129,6 +144,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                         "2000 plagioclase)")
     p.add_argument("--out", help="output folder (default: <file name>_fit)")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    add_reading_options(p.add_argument_group("reading options (as for zoning inspect)"))
     p.set_defaults(run=run)
     return p
 
@@ -150,7 +166,12 @@ def run(args: argparse.Namespace) -> int:
     from zoning.io import read_traverses
     from zoning.io.outputs import OutputFolder, check_output_dir
     from zoning.io.results import fit_output_names, format_report, write_fit_outputs
-    from zoning.workflow import check_fittable, check_sampler_settings, input_problem
+    from zoning.workflow import (
+        check_fittable,
+        check_sampler_settings,
+        input_problem,
+        read_keywords,
+    )
 
     source = Path(args.file)
     problem = input_problem(source)
@@ -167,7 +188,11 @@ def run(args: argparse.Namespace) -> int:
     check_sampler_settings(args.walkers, args.steps, args.seed)
     out_dir = Path(args.out) if args.out else source.with_name(source.stem + "_fit")
     check_output_dir(out_dir)
-    traverses = read_traverses(source, mineral=args.mineral)
+    traverses = read_traverses(source, **read_keywords(reading_options(args)))
+    for traverse in traverses:
+        for note in traverse.notes:
+            if note.startswith(("sheet: read", "this traverse: ")):
+                print(f"{traverse.name}: {note}")
     # Before any fit: every file the fit will write must be new or zoning's own.
     output = OutputFolder(out_dir, kind="fit")
     output.check(fit_output_names([t.name for t in traverses]))

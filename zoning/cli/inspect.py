@@ -15,6 +15,7 @@ import sys
 from collections import Counter
 from pathlib import Path
 
+from zoning.cli._reading import add_reading_options, parse_pairs, reading_options
 from zoning.exceptions import ZoningError
 
 __all__ = ["add_parser", "run", "parse_pairs", "reason_kind", "DEFAULT_OUT_SUFFIX"]
@@ -62,38 +63,6 @@ def reason_kind(reason: str) -> str:
     return _NUMBER.sub("#", reason)
 
 
-def parse_pairs(items: list[str] | None, option: str, example: str) -> dict[str, str]:
-    """Parse repeated ``KEY=VALUE`` options into a dict.
-
-    Parameters
-    ----------
-    items : list of str
-        Values as given on the command line.
-    option : str
-        Option name, for the message (e.g. ``"--column-map"``).
-    example : str
-        An example value, for the message.
-
-    Returns
-    -------
-    dict of str to str
-
-    Raises
-    ------
-    ZoningError
-        When an item has no ``=`` or an empty key.
-    """
-    out: dict[str, str] = {}
-    for item in items or []:
-        key, sep, value = item.partition("=")
-        if not sep or not key.strip() or not value.strip():
-            raise ZoningError(
-                f"{option} expects KEY=VALUE; got {item!r}. Give e.g. {option} {example}."
-            )
-        out[key.strip()] = value.strip()
-    return out
-
-
 def add_parser(subparsers) -> argparse.ArgumentParser:
     """Register ``zoning inspect`` on the sub-command parsers.
 
@@ -116,39 +85,15 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
             "and the reason for any flag."
         ),
     )
-    p.add_argument("file", help="microprobe export (CSV, TXT or XLSX)")
+    p.add_argument("file", help="microprobe export (CSV, TXT, XLSX or ODS)")
     p.add_argument("--mineral", choices=("olivine", "plagioclase"),
                    help="analysed mineral (default: detected from the oxides)")
     p.add_argument("--out", metavar="DIR",
                    help=f"output folder (default: <file name>{DEFAULT_OUT_SUFFIX} in the "
                         "current folder)")
-    p.add_argument("--column-map", action="append", metavar="CANON=HEADER",
-                   help="use the file column HEADER for the quantity CANON, repeatable, e.g. "
-                        "--column-map FeO='FeO tot' --column-map distance_um=Dist. CANON is "
-                        "an oxide (SiO2, FeO, ...), point, label, sample, distance_um, x_um, "
-                        "y_um, total, fo_sigma or an_sigma")
-    p.add_argument("--orientation", choices=("core-to-rim", "rim-to-core", "rim-to-rim"),
-                   help="orientation along increasing position (default: decided from the "
-                        "profile; the basis is printed)")
-    p.add_argument("--core-um", type=float, metavar="X",
-                   help="position of the core along the traverse [µm] (default: found from "
-                        "the profile)")
-    p.add_argument("--sheet", help="worksheet of an .xlsx file (name or 0-based number; "
-                                   "default: the first)")
-    p.add_argument("--iron", choices=("FeO", "reported", "charge-balance"), default="FeO",
-                   help="iron in the structural formula: all as FeO (default), Fe2O3 as "
-                        "reported, or Fe3+ by charge balance (Droop 1987)")
-    p.add_argument("--check", action="append", metavar="NAME=VALUE",
-                   help="change a quality-check threshold, repeatable, e.g. --check "
-                        "total_min_wt=98 (names as in zoning.minerals.QualitySettings)")
+    add_reading_options(p)
     p.set_defaults(run=run)
     return p
-
-
-def _sheet(value: str | None):
-    if value is None:
-        return None
-    return int(value) if value.strip().isdigit() else value
 
 
 def _summary(traverse, written: Path) -> str:
@@ -168,7 +113,8 @@ def _summary(traverse, written: Path) -> str:
         for kind, count in sorted(kinds.items(), key=lambda kv: (-kv[1], kv[0])):
             lines.append(f"    {count:5d}  {kind}")
     for note in traverse.notes:
-        if note.startswith(("mineral ", "orientation: ", "cannot be fitted")):
+        if note.startswith(("sheet: read", "mineral ", "orientation: ", "cannot be fitted",
+                            "split on ", "this traverse: ")):
             lines.append(f"  {note}")
     if traverse.core_position_um == traverse.core_position_um:  # finite
         lines.append(f"  core at {traverse.core_position_um:.4g} µm along the traverse")
@@ -209,26 +155,15 @@ def run(args: argparse.Namespace) -> int:
     from zoning.io.outputs import OutputFolder, check_output_dir
     from zoning.io.traverses import read_traverses
     from zoning.io.writers import unique_names, write_table, write_text
-    from zoning.workflow import input_problem
+    from zoning.workflow import input_problem, read_keywords
 
     source = Path(args.file)
     problem = input_problem(source)
     if problem:
         raise ZoningError(problem)
-    column_map = parse_pairs(args.column_map, "--column-map", "FeO='FeO tot'")
-    checks = parse_pairs(args.check, "--check", "total_min_wt=98")
     out_dir = Path(args.out) if args.out else Path.cwd() / f"{source.stem}{DEFAULT_OUT_SUFFIX}"
     check_output_dir(out_dir)
-    traverses = read_traverses(
-        source,
-        mineral=args.mineral,
-        column_map=column_map or None,
-        orientation=args.orientation,
-        core_position_um=args.core_um,
-        checks=checks or None,
-        sheet=_sheet(args.sheet),
-        iron=args.iron,
-    )
+    traverses = read_traverses(source, **read_keywords(reading_options(args)))
     names = unique_names(t.name for t in traverses)
     output = OutputFolder(out_dir, kind="inspect")
     files = [f"{folder}/{n}" for folder in names for n in ("points.csv", "points.json",
