@@ -54,6 +54,14 @@ TRUTH = {
 }
 
 
+#: Invented multi-crystal sample fitted jointly by the demo: six olivines that grew
+#: from one melt (cores nucleated at different F, rims together at F = 0.15) and
+#: one antecryst carried in from a melt 0.06 higher in Mg#.
+FRL21 = dict(melt={"FeO": 9.8}, kd=0.30, melt_mg_number=0.76, f_rim=0.15, retention=0.30,
+             melt0_ni_ppm=420.0, f_core=(0.0, 0.02, 0.035, 0.05, 0.07, 0.09),
+             radius_um=(320.0, 280.0, 260.0, 240.0, 210.0, 190.0), n=26, seed=2101,
+             antecryst=dict(melt_mg_number=0.82, f_rim=0.09, radius_um=300.0))
+
 #: Melt temperature assumed for the plagioclase Sr partitioning law [°C] (invented).
 PLAG_TEMPERATURE_C = 1150.0
 
@@ -266,6 +274,33 @@ def _make_xlsx_deterministic(path: Path) -> None:
     path.write_bytes(buf.getvalue())
 
 
+def make_frl21() -> pd.DataFrame:
+    """FRL-21: seven olivine traverses in one CSV (a Crystal column), fitted jointly."""
+    t = FRL21
+    rng = np.random.default_rng(t["seed"])
+    model = CrystallizationModel("olivine", t["melt"], kd=t["kd"], traces=("Ni",))
+    shared = {k: t[k] for k in ("melt_mg_number", "f_rim", "retention", "melt0_ni_ppm")}
+    crystals = [(dict(shared, f_core=fc), r) for fc, r in zip(t["f_core"], t["radius_um"],
+                                                               strict=True)]
+    a = t["antecryst"]
+    crystals.append((dict(shared, melt_mg_number=a["melt_mg_number"], f_rim=a["f_rim"]),
+                     a["radius_um"]))
+    parts = []
+    for i, (params, radius) in enumerate(crystals):
+        d = np.round(np.linspace(0.0, radius - 4.0, t["n"]), 1)
+        prof = model.profile(d, radius, **params)
+        fo = prof["crystal"] + rng.normal(0.0, 0.15, len(d))
+        wt = olivine_oxides(fo, prof["crystal_nio_wt"] + rng.normal(0.0, 0.01, len(d)), rng)
+        df = pd.DataFrame({"Crystal": f"FRL-21 ol{i + 1}", "Point": np.arange(1, len(d) + 1),
+                           "Distance (µm)": d})
+        df = pd.concat([df, _round(wt)], axis=1)
+        df["Total"] = _round(wt).sum(axis=1).round(3)
+        parts.append(df)
+    out = pd.concat(parts, ignore_index=True)
+    out.to_csv(OUT / "FRL-21_olivines.csv", index=False, encoding="utf-8", lineterminator="\n")
+    return out
+
+
 def make_pl2() -> pd.DataFrame:
     """FRL-12 pl2: CSV with distance in mm, a glass hit and summary rows at the end."""
     t = TRUTH["FRL-12 pl2"]
@@ -341,6 +376,15 @@ melt = {{ Na2O = 3.1 }}
 kd = 2.0
 kd_sd = 0.3
 temperature_c = {plag_t:.0f}
+
+# Seven olivines of one thin section fitted together (one parent melt, Kd and r;
+# each crystal its own F_core); the antecryst test names the crystal that does
+# not belong.
+[samples."FRL-21 olivines"]
+file = "FRL-21_olivines.csv"
+mineral = "olivine"
+melt = {{ FeO = 9.8 }}
+joint = true
 """
 
 #: Sampler lengths written into the demo project (short: the demo must be fast).
@@ -355,7 +399,7 @@ def main(argv: list[str] | None = None) -> int:
     if argv:
         OUT = Path(argv[0])
     OUT.mkdir(parents=True, exist_ok=True)
-    for make in (make_ol1, make_ol2, make_ol3, make_frl03, make_pl1, make_pl2):
+    for make in (make_ol1, make_ol2, make_ol3, make_frl03, make_pl1, make_pl2, make_frl21):
         make()
     (OUT / "project.toml").write_text(
         PROJECT.format(walkers=DEMO_WALKERS, steps=DEMO_STEPS, plag_t=PLAG_TEMPERATURE_C),

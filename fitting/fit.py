@@ -74,6 +74,7 @@ def fit_traverse(
     n_walkers: int = 64,
     n_steps: int | None = None,
     progress: bool = False,
+    thermometer: str = "helz_thornber_1987",
 ) -> FitResult:
     """Fit a crystallization model to one traverse and sample its posterior.
 
@@ -98,7 +99,8 @@ def fit_traverse(
         fixes Kd.
     fe3_fraction : float, optional
         Melt Fe3+/FeT [fraction] (olivine); default from the melt's FeO and
-        Fe2O3 when both are given, else 0.10.
+        Fe2O3 when both are given, else 0.10 (recorded as the default in the
+        methods of the result).
     geometry : {"sphere", "cylinder", "slab"}, optional
         Growth geometry mapping distance to crystallized fraction.
     distance_range : (float, float), optional
@@ -133,6 +135,11 @@ def fit_traverse(
         default steps :data:`DEFAULT_N_STEPS` of the mineral.
     progress : bool, optional
         Show the sampler's progress bar.
+    thermometer : str, optional
+        Olivine: glass-MgO thermometer of the reported melt temperature
+        (:data:`zoning.thermometry.THERMOMETERS`, default Helz & Thornber
+        1987). Warns once (CalibrationRangeWarning) when the best-fit melt
+        path leaves its calibration range.
 
     Returns
     -------
@@ -174,6 +181,7 @@ def fit_traverse(
         include_flagged=include_flagged,
         robust=robust,
         temperature_c=temperature_c,
+        thermometer=thermometer,
     )
     starts, n_grid = shared_starts(problem)
     fits = fit_candidates(problem, starts=starts)

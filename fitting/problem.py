@@ -456,7 +456,8 @@ def _major_sigma(used, mineral, sigma):
     return out, f"default {DEFAULT_SIGMA[mineral]:g} mol% (common practice)"
 
 
-def _build_model(mineral, melt, kd, fe3_fraction, traces, geometry, temperature_c):
+def _build_model(mineral, melt, kd, fe3_fraction, traces, geometry, temperature_c,
+                 thermometer="helz_thornber_1987"):
     from zoning.models import CrystallizationModel
 
     return CrystallizationModel(
@@ -467,6 +468,7 @@ def _build_model(mineral, melt, kd, fe3_fraction, traces, geometry, temperature_
         traces=tuple(traces),
         geometry=geometry,
         temperature_c=temperature_c,
+        thermometer=thermometer,
     )
 
 
@@ -537,6 +539,7 @@ def prepare_problem(
     include_flagged: bool = False,
     robust: bool = False,
     temperature_c: float | None = None,
+    thermometer: str = "helz_thornber_1987",
 ) -> FitProblem:
     """Check the settings and lay out the fit of one traverse (stage 1).
 
@@ -609,7 +612,8 @@ def prepare_problem(
     melt, fe3_fraction = melt_input.oxides, melt_input.fe3_fraction
     notes[:0] = list(melt_input.notes)
     model = _build_model(
-        mineral, melt, kd, fe3_fraction, [c.name for c in chosen], geometry, temperature_c
+        mineral, melt, kd, fe3_fraction, [c.name for c in chosen], geometry, temperature_c,
+        thermometer,
     )
     specs = {spec.name: spec for spec in model.parameters}
     kd0, kd_sd = _kd_prior(mineral, kd, kd_sd, specs)
@@ -639,6 +643,8 @@ def prepare_problem(
         "melt": {str(k): float(v) for k, v in dict(melt).items()},
         "fe3_fraction": float(fe3_fraction),
         "fe3_source": melt_input.fe3_source,
+        "kd_default": kd is None,
+        "thermometer": model.thermometer,
         "geometry": geometry,
         "distance_range_um": list(rng_range) if rng_range else None,
         "sigma": sigma_source,

@@ -148,6 +148,11 @@ class FitResult:
         Versions of zoning, Python, numpy, scipy, lmfit, emcee, pandas.
     seed : int
         Seed of the random generator used (reproducibility).
+    methods : tuple of zoning.references.MethodUse
+        Every published method the result rests on (forward-model laws,
+        thermometer, Kd prior, sampler, model choice), with its citation
+        key; the report's methods paragraph and reference list and
+        ``fit.json`` are written from it.
     """
 
     traverse: Traverse
@@ -172,6 +177,7 @@ class FitResult:
     settings: Mapping[str, Any] = field(default_factory=dict)
     versions: Mapping[str, str] = field(default_factory=dict)
     seed: int = 0
+    methods: tuple = ()
 
     def __post_init__(self):
         object.__setattr__(self, "samples", _readonly(self.samples))
@@ -179,6 +185,7 @@ class FitResult:
         object.__setattr__(self, "parameter_names", tuple(self.parameter_names))
         object.__setattr__(self, "estimates", dict(self.estimates))
         object.__setattr__(self, "warnings", tuple(self.warnings))
+        object.__setattr__(self, "methods", tuple(self.methods))
         object.__setattr__(self, "diagnostics", dict(self.diagnostics))
         object.__setattr__(self, "settings", dict(self.settings))
         object.__setattr__(self, "versions", dict(self.versions))

@@ -46,6 +46,11 @@ DEFAULT_N_STEPS = {"olivine": 600, "plagioclase": 2000}
 #: Share of the sampler steps discarded as burn-in.
 BURN_FRACTION = 0.25
 
+#: Citation keys (:mod:`zoning.references`) of the sampler, its moves and its
+#: convergence measure.
+CITATIONS = ("foreman_mackey_2013", "goodman_weare_2010", "ter_braak_2006",
+             "ter_braak_vrugt_2008", "gelman_1996", "sokal_1997")
+
 #: Minimum effective sample size per quantity before the chain is trusted.
 MIN_ESS = 1000.0
 #: Minimum chain length after burn-in, in autocorrelation times (emcee

@@ -20,6 +20,7 @@ import pandas as pd
 from zoning.fitting.bestfit import CandidateFit
 from zoning.fitting.choice import ModelChoice
 from zoning.fitting.diagnostics import residual_runs, runs_test_z
+from zoning.fitting.methods import fit_methods
 from zoning.fitting.problem import DEFAULT_SIGMA, FitProblem
 from zoning.fitting.results import Estimate, FitResult
 from zoning.fitting.sampling import Posterior, credible_band
@@ -30,6 +31,7 @@ from zoning.exceptions import (
     DataQualityWarning,
     ZoningError,
 )
+from zoning.thermometry import THERMOMETERS
 
 __all__ = ["summarise_fit", "estimate_from_draws", "UNCONSTRAINED_FRACTION"]
 
@@ -487,7 +489,10 @@ def summarise_fit(
         warn_list.append("robust (soft-L1) loss used: stray spots are down-weighted.")
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        prob.model.profile(d, prob.radius_um, strict=False, **prob.params(theta_best[None, :]))
+        best_out = prob.model.profile(d, prob.radius_um, strict=False,
+                                      **prob.params(theta_best[None, :]))
+        if prob.model.thermometer:  # the reported melt temperatures, parent to rim
+            THERMOMETERS[prob.model.thermometer].check_range(best_out["melt_mgo_wt"])
     for w in caught:
         if issubclass(w.category, CalibrationRangeWarning):
             text = str(w.message)
@@ -536,6 +541,7 @@ def summarise_fit(
         "include_flagged": bool(include_flagged),
         "robust": bool(prob.robust),
         "temperature_c": opts.get("temperature_c", float("nan")),
+        "thermometer": prob.model.thermometer,
         "seed": int(seed),
         "n_walkers": int(chain.n_walkers),
         "n_steps": int(chain.n_steps),
@@ -566,4 +572,10 @@ def summarise_fit(
         settings=settings,
         versions=_versions(),
         seed=int(seed),
+        methods=prob.model.methods() + fit_methods(
+            problem.mineral, kd_mean=prob.kd0, kd_sd=prob.kd_sd,
+            kd_default=bool(opts.get("kd_default", True)),
+            fe3_fraction=opts.get("fe3_fraction", float("nan")),
+            fe3_source=opts.get("fe3_source", "given"),
+            sigma_scale=prob.sigma_scale),
     )

@@ -182,9 +182,17 @@ def fit_to_dict(result: Any) -> dict[str, Any]:
     dict
         Sample, source, mineral, estimates, model comparison, chi-square,
         diagnostics, correlation matrix, reversals, residual runs, warnings,
-        settings, versions and seed. Posterior draws and the spot/curve
-        tables are in ``profile.csv`` and not repeated here.
+        settings, versions and seed; ``methods``: every published method the
+        result rests on (``role``, citation ``key`` of
+        :data:`zoning.references.REFERENCES`, short ``citation``, ``detail``)
+        and ``references``: the full reference of each key used.
+        Posterior draws and the spot/curve tables are in ``profile.csv`` and
+        not repeated here.
     """
+    from zoning.references import cite
+
+    methods = list(getattr(result, "methods", ()))
+    keys = list(dict.fromkeys(m.key for m in methods if m.key))
     return {
         "sample": result.sample,
         "source": str(result.traverse.source),
@@ -222,6 +230,8 @@ def fit_to_dict(result: Any) -> dict[str, Any]:
         "versions": dict(result.versions),
         "seed": int(result.seed),
         "traverse_notes": list(result.traverse.notes),
+        "methods": [m.as_dict() for m in methods],
+        "references": {k: cite(k) for k in keys},
     }
 
 

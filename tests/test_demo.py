@@ -55,7 +55,8 @@ def test_demo_files_are_packaged_by_the_package_data_globs():
 def test_demo_project_covers_the_scenario():
     jobs = read_project(FERROLYN / "project.toml").jobs
     minerals = [j.read_options["mineral"] for j in jobs]
-    assert minerals.count("olivine") == 4 and minerals.count("plagioclase") == 2
+    assert minerals.count("olivine") == 5 and minerals.count("plagioclase") == 2
+    assert [j.name for j in jobs if j.joint] == ["FRL-21 olivines"]
     suffixes = {j.file.rsplit(".", 1)[1] for j in jobs}
     assert suffixes == {"csv", "txt", "xlsx"}
 
@@ -75,7 +76,7 @@ def test_demo_writes_every_report_and_says_where(demo_run):
     assert proc.returncode == 0, proc.stderr
     assert "Traceback" not in proc.stderr
     summary = pd.read_csv(out / "summary.csv", comment="#", keep_default_na=False)
-    assert len(summary) == 6 and (summary["error"] == "").all()
+    assert len(summary) == 7 and (summary["error"] == "").all()
     for sample in summary["sample"]:
         folder = out / sample.replace(" ", "_")
         assert (folder / "report.pdf").read_bytes().startswith(b"%PDF")
@@ -100,3 +101,13 @@ def test_demo_finds_the_planted_answers(demo_run):
         assert float(pl1[f"{name}_lo95"]) <= truth <= float(pl1[f"{name}_hi95"]), name
     # Glass hit and the two summary rows of FRL-12 pl2 are not used.
     assert int(s.loc["FRL-12 pl2", "n_spots"]) - int(s.loc["FRL-12 pl2", "n_used"]) == 3
+    # FRL-21: seven olivines fitted jointly; ol7 is the planted antecryst and the
+    # shared parent Mg# 0.76 and F 0.15 are inside the bands (invented truth).
+    frl21 = s.loc["FRL-21 olivines"]
+    assert int(frl21["n_crystals"]) == 7 and int(frl21["n_antecrysts"]) == 1
+    for name, truth in (("melt_mg_number", 0.76), ("f_rim", 0.15)):
+        assert float(frl21[f"{name}_lo95"]) <= truth <= float(frl21[f"{name}_hi95"]), name
+    crystals = pd.read_csv(out / "crystals.csv", comment="#", keep_default_na=False)
+    verdicts = dict(zip(crystals["crystal"], crystals["verdict"], strict=True))
+    assert [c for c, v in verdicts.items() if v == "likely antecryst"] == [
+        "FRL-21 ol7"]  # the traverse name as written in the file

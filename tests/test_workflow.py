@@ -4,6 +4,7 @@ import argparse
 import inspect
 import re
 import shutil
+from pathlib import Path
 
 import pytest
 from zoning.demo_data import DEMO_DIR
@@ -12,6 +13,7 @@ from zoning.cli import fit as fit_cli
 from zoning.exceptions import ProjectError
 from zoning.workflow import (
     FIT_OPTIONS,
+    JOINT_OPTIONS,
     OUTPUT_OPTIONS,
     READ_OPTIONS,
     fingerprint,
@@ -34,7 +36,8 @@ def test_demo_project_reads_with_every_sample_and_resolved_options():
     project = read_project(FERROLYN / "project.toml")
     names = [j.name for j in project.jobs]
     assert names == ["FRL-07 ol1", "FRL-07 ol2", "FRL-07 ol3", "FRL-03 ol1",
-                     "FRL-12 pl1", "FRL-12 pl2"]
+                     "FRL-12 pl1", "FRL-12 pl2", "FRL-21 olivines"]
+    assert project.jobs[-1].joint and not project.jobs[0].joint
     ol1 = project.jobs[0]
     assert ol1.file == str((FERROLYN / "FRL-07_ol1.csv").resolve())
     assert ol1.read_options == {"mineral": "olivine"}
@@ -62,7 +65,9 @@ def test_every_zoning_fit_option_has_a_project_file_name():
     names = {a.option_strings[0].lstrip("-").replace("-", "_")
              for a in p._actions if a.option_strings and a.dest != "help"}
     names -= {"out"}  # the output folder is a batch argument, not a per-sample option
-    assert names <= set(FIT_OPTIONS) | set(READ_OPTIONS), names - set(FIT_OPTIONS)
+    names -= {"name"}  # a joint sample's name is its [samples."..."] table name
+    known = set(FIT_OPTIONS) | set(READ_OPTIONS) | set(JOINT_OPTIONS)
+    assert names <= known, names - known
 
 
 def test_sample_tables_override_defaults_and_melt_tables_merge(tmp_path):
@@ -169,7 +174,9 @@ def test_zoning_batch_accepts_every_zoning_fit_option():
         p = module.add_parser(parser.add_subparsers())
         return {s for a in p._actions for s in a.option_strings}
 
-    assert options(fit_cli) <= options(batch_cli)
+    # --name names the one joint sample of a zoning fit run; a batch names its
+    # samples by their project tables (or file names).
+    assert options(fit_cli) - {"--name"} <= options(batch_cli)
 
 
 def test_reading_options_are_project_keys_in_defaults_and_samples(tmp_path):
@@ -268,3 +275,36 @@ def test_command_line_reading_options_become_the_same_read_keywords():
         "mineral": "olivine", "column_map": {"FeO": "FeO tot"}, "sheet": "2",
         "orientation": "rim-to-core", "core_position_um": 4.0,
         "checks": {"total_min_wt": 98.0}, "iron": "reported"}
+
+
+def test_joint_sample_lists_several_files_and_its_options(tmp_path):
+    path = _write(tmp_path, """
+[defaults]
+melt = { FeO = 9.8 }
+joint = true
+
+[samples."FRL-21"]
+files = ["a.csv", "b.csv"]
+exclude = ["FRL-07 ol1"]
+joint_retention = "hierarchical"
+""", files=("a.csv", "b.csv"))
+    (job,) = read_project(path).jobs
+    assert job.joint and [Path(f).name for f in job.files] == ["a.csv", "b.csv"]
+    assert job.joint_options == {"exclude": ("FRL-07 ol1",), "retention": "hierarchical"}
+    assert "fit" in job.settings() and job.settings()["files"] == list(job.files)
+
+
+def test_several_files_without_joint_say_what_to_add(tmp_path):
+    path = _write(tmp_path, """
+[samples."FRL-21"]
+files = ["a.csv", "b.csv"]
+""", files=("a.csv", "b.csv"))
+    with pytest.raises(ProjectError, match="add joint = true"):
+        read_project(path)
+    bad = _write(tmp_path, """
+[samples."FRL-21"]
+files = "a.csv"
+joint = true
+""")
+    with pytest.raises(ProjectError, match="must be a list of file names"):
+        read_project(bad)

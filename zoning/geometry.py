@@ -70,6 +70,10 @@ __all__ = [
     "FWHM_PER_SIGMA",
 ]
 
+#: Citation keys (:mod:`zoning.references`) of the distance-to-F mapping and
+#: the off-centre section treatment.
+CITATIONS = ("pearce_1984", "shea_2015")
+
 #: Growth exponent n of each named geometry.
 GEOMETRY_EXPONENT = {"sphere": 3.0, "cylinder": 2.0, "slab": 1.0}
 

@@ -92,6 +92,10 @@ __all__ = [
     "plagioclase_kd_from_water",
 ]
 
+#: Citation keys (:mod:`zoning.references`) of the laws of this module, by law name.
+CITATIONS = {"toplis_2005": "toplis_2005", "blundy_2020": "blundy_2020",
+             "plagioclase_kd_from_water": "sisson_grove_1993"}
+
 #: Molar gas constant [J/(mol K)] (CODATA 2018 exact value).
 GAS_CONSTANT = 8.314462618
 

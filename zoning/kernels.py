@@ -99,6 +99,11 @@ __all__ = [
     "K_EPS",
 ]
 
+#: Citation keys (:mod:`zoning.references`) of the crystallization laws this
+#: module integrates: fractional (Rayleigh) and batch limits, and the
+#: retention form of the back-diffusion equation.
+CITATIONS = ("rayleigh_1896", "shaw_1970", "brody_flemings_1966")
+
 #: Closest approach of the kernel exchange coefficient K to 1. At |1 - K| below
 #: this the melt ratio moves by less than ~1e-9 over the whole path.
 K_EPS = 1e-9

@@ -107,6 +107,10 @@ __all__ = [
     "LoopModel",
 ]
 
+#: Citation keys (:mod:`zoning.references`) of the loops' end-member data.
+CITATIONS = ("bowen_schairer_1935", "bowen_1913", "navrotsky_1989",
+             "stebbins_carmichael_1984", "stebbins_1983")
+
 #: Molar gas constant [J/(mol K)] (CODATA 2018 exact value).
 _R = 8.314462618
 _KELVIN = 273.15

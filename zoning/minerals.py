@@ -38,6 +38,9 @@ __all__ = [
     "join_reasons",
 ]
 
+#: Citation key (:mod:`zoning.references`) of the Fe3+ estimate by charge balance.
+CITATION = "droop_1987"
+
 #: Oxygens per formula unit of each mineral.
 FORMULA_OXYGENS = {"olivine": 4, "plagioclase": 8}
 

@@ -65,6 +65,8 @@ from zoning.partitioning import (
     equilibrium_crystal,
     make_trace_law,
 )
+from zoning.references import MethodUse
+from zoning.thermometry import THERMOMETERS
 
 __all__ = [
     "ParameterSpec",
@@ -235,8 +237,10 @@ class _ModelBase:
 
         Parameters
         ----------
-        f : array_like, shape (n,)
-            Crystallized mass fraction F [fraction], in [0, 1).
+        f : array_like, shape (n,) or (m, n)
+            Crystallized mass fraction F [fraction], in [0, 1). A 2-D array
+            gives each parameter set its own fractions (row i with set i;
+            one row is shared by every set).
         strict : bool, optional
             If True (default) a fraction the model cannot reach (for example
             more olivine than the melt's Mg and Fe can make) raises
@@ -258,9 +262,10 @@ class _ModelBase:
             For unknown or out-of-range parameters or fractions.
         """
         f = np.asarray(f, dtype=float)
-        if f.ndim != 1:
+        if f.ndim not in (1, 2):
             raise ModelDomainError(
-                f"f must be a 1-D array of crystallized fractions; got shape {f.shape}."
+                f"f must be a 1-D array of crystallized fractions (or 2-D, one row per "
+                f"parameter set); got shape {f.shape}."
             )
         if not np.all(np.isfinite(f)) or np.any((f < 0) | (f >= 1)):
             bad = f[~(np.isfinite(f) & (f >= 0) & (f < 1))][0]
@@ -269,9 +274,17 @@ class _ModelBase:
                 f"initial melt mass."
             )
         p, m, scalar = self._params(params)
-        fm = np.broadcast_to(f, (m, f.shape[0]))
+        if f.ndim == 2 and f.shape[0] not in (1, m):
+            if not scalar:
+                raise ModelDomainError(
+                    f"f has {f.shape[0]} rows but the parameters have {m} sets; give one "
+                    "row of fractions per parameter set (or a single row)."
+                )
+            m = f.shape[0]  # scalar parameters: the same set for every row of f
+            p = {k: np.repeat(v, m, axis=0) for k, v in p.items()}
+        fm = np.broadcast_to(f, (m, f.shape[-1]))
         out = self._evaluate(fm, p, strict=strict, stacklevel=3)
-        return _squeeze(out, scalar)
+        return _squeeze(out, scalar and f.ndim == 1)
 
     def profile(self, distance_um, radius_um, *, strict: bool = True,
                 **params) -> dict[str, np.ndarray]:
@@ -520,9 +533,17 @@ class CrystallizationModel(_ModelBase):
     temperature_c : float, optional
         Temperature for the plagioclase trace laws [°C], taken as constant
         along the path and reported as ``temperature_c`` for plagioclase.
-        Olivine paths report the Helz & Thornber (1987) melt temperature
+        Olivine paths report the melt temperature of the glass thermometer
         instead. For plagioclase it also sets the default D_Sr/D_Mg of
         diffusion after growth.
+    thermometer : str, optional
+        Olivine: glass-MgO thermometer of the reported melt temperature, a
+        name in :data:`zoning.thermometry.THERMOMETERS` (default
+        ``"helz_thornber_1987"``). The temperature is a reported extra that
+        no other output depends on, so the model does not check the
+        thermometer's calibration range; whoever reports the temperature does
+        (``THERMOMETERS[model.thermometer].check_range(out["melt_mgo_wt"])``,
+        as ``zoning fit`` and ``zoning simulate`` do). Ignored for plagioclase.
     rim : {"fixed", "closed"}, optional
         Rim condition of diffusion after growth: held at its last grown
         composition, i.e. in equilibrium with the melt (default), or closed
@@ -580,8 +601,9 @@ class CrystallizationModel(_ModelBase):
     (Fo or An, mol%), ``"melt_ratio"`` (melt Mg# or Ca#, fraction),
     ``"melt_mgo_wt"`` and ``"melt_feo_wt"`` (olivine; FeO = Fe2+ as FeO) or
     ``"melt_cao_wt"`` and ``"melt_na2o_wt"`` (plagioclase), ``"temperature_c"``
-    (olivine: Helz & Thornber 1987, T = 20.1 MgO + 1014, from melt MgO;
-    plagioclase: ``temperature_c`` or NaN), and per trace
+    (olivine: the glass thermometer, by default Helz & Thornber 1987,
+    T = 20.1 MgO + 1014, from melt MgO; plagioclase: ``temperature_c`` or
+    NaN), and per trace
     ``"crystal_nio_wt"``/``"melt_ni_ppm"``, ``"crystal_sro_wt"``/``"melt_sr_ppm"``,
     ``"crystal_mgo_wt"``/``"melt_mgo_wt"`` (plagioclase),
     ``"crystal_<x>_ppm"``/``"melt_<x>_ppm"`` (constant D).
@@ -626,6 +648,7 @@ class CrystallizationModel(_ModelBase):
         beam_um: float = 0.0,
         section_offset_um: float = 0.0,
         temperature_c: float | None = None,
+        thermometer: str = "helz_thornber_1987",
         rim: str = "fixed",
         diffusivity_ratio: Mapping[str, float] | None = None,
     ):
@@ -635,6 +658,13 @@ class CrystallizationModel(_ModelBase):
                 f"unknown mineral {mineral!r}; expected one of {sorted(EXCHANGE_LAWS)}."
             )
         self.mineral = mineral
+        if thermometer not in THERMOMETERS:
+            raise ModelDomainError(
+                f"unknown glass thermometer {thermometer!r}; expected one of "
+                f"{sorted(THERMOMETERS)}. Give one of these (--thermometer)."
+            )
+        #: Name of the glass thermometer of the olivine melt temperature ("" for plagioclase).
+        self.thermometer = thermometer if mineral == "olivine" else ""
         law = self.law = EXCHANGE_LAWS[mineral]
         self.melt = _check_melt(melt, law)
         self.fe3_fraction = _check_scalar("fe3_fraction", fe3_fraction, 0.0, 0.9, "[fraction]")
@@ -824,6 +854,68 @@ class CrystallizationModel(_ModelBase):
             return tr.default_c0
         return float(np.clip(value, tr.c0_bounds[0], tr.c0_bounds[1]))
 
+    def methods(self) -> tuple[MethodUse, ...]:
+        """List the published methods this model rests on, as configured.
+
+        Returns
+        -------
+        tuple of MethodUse
+            Role, citation key (:data:`zoning.references.REFERENCES`) and
+            detail of: the fractional and equilibrium limits and the
+            retention form; the exchange coefficient; each trace law (and
+            the calibration range it is checked against); the olivine glass
+            thermometer; the distance-to-F mapping and, when used, the
+            off-centre section. The melt Fe3+/FeT is the caller's to state
+            (its source is not known here).
+        """
+        crystallization = "crystallization between the fractional and equilibrium limits"
+        uses = [
+            MethodUse(crystallization, "rayleigh_1896", "fractional limit, r = 0"),
+            MethodUse(crystallization, "shaw_1970", "equilibrium (batch) limit, r = 1"),
+            MethodUse(crystallization, "brody_flemings_1966",
+                      "retention r, the share of each new layer that keeps exchanging with the "
+                      "melt (the back-diffusion form of the solute balance)"),
+        ]
+        if self.mineral == "olivine":
+            uses.append(MethodUse(
+                "olivine-melt Fe-Mg exchange coefficient", self.law.citation,
+                "K_D(Fe-Mg) = (Fe/Mg)ol / (Fe/Mg)melt with Fe2+ in the melt"))
+        else:
+            uses.append(MethodUse(
+                "plagioclase-melt Ca-Na exchange coefficient", self.law.citation,
+                "K_D(Ca-Na) = (Ca/Na)pl / (Ca/Na)melt; about 1-2 in dry melts, higher with "
+                "melt water"))
+        for tr in self.traces:
+            if tr.kind == "ni_hart_davis":
+                uses.append(MethodUse("olivine-melt Ni partitioning", tr.citations[0],
+                                      "D_Ni = 124 / MgO(melt, wt%) - 0.9"))
+            elif tr.kind == "plag_lattice":
+                uses.append(MethodUse(f"plagioclase-melt {tr.element} partitioning",
+                                      tr.citations[0], "RT ln D = A X_An + B at the given "
+                                      f"temperature {self.temperature_c:g} °C"))
+                for key in tr.citations[1:]:
+                    uses.append(MethodUse(f"calibration range of the {tr.element} law", key,
+                                          "0.4 < X_An < 0.8"))
+            else:
+                uses.append(MethodUse(f"{tr.element} partitioning", "",
+                                      f"constant D = {tr.constant_d:g} (given)"))
+        if self.thermometer:
+            th = THERMOMETERS[self.thermometer]
+            uses.append(MethodUse("melt temperature (glass MgO thermometer)", th.citation,
+                                  f"T = {th.slope:g} MgO + {th.intercept:g} °C, calibrated "
+                                  f"for about {th.mgo_min_wt:g}-{th.mgo_max_wt:g} wt% MgO"))
+        uses.append(MethodUse("distance from the core to crystallized fraction F",
+                              _geometry.CITATIONS[0],
+                              f"F = F_core + (F_rim - F_core)(x/R)^n, {self.geometry} growth"))
+        if self.section_offset_um:
+            uses.append(MethodUse("off-centre section", _geometry.CITATIONS[1],
+                                  f"section plane {self.section_offset_um:g} µm from the centre"))
+        if not self._fast:
+            uses.append(MethodUse("co-crystallizing minerals", "",
+                                  "constant partition coefficients of the other minerals "
+                                  "(typical basaltic values)"))
+        return tuple(uses)
+
     # ------------------------------------------------------------- evaluation
     def initial_state(self, ratio):
         """Exchange cations in 100 g of parent melt for a melt ratio.
@@ -941,8 +1033,8 @@ class CrystallizationModel(_ModelBase):
             f"melt_{law.compatible_oxide.lower()}_wt": melt_a,
             f"melt_{law.other_oxide.lower()}_wt": to_b * (s_per_melt - a_per_melt),
         }
-        if self.mineral == "olivine":
-            out["temperature_c"] = 20.1 * melt_a + 1014.0
+        if self.thermometer:
+            out["temperature_c"] = THERMOMETERS[self.thermometer](melt_a, warn=False)
         else:
             out["temperature_c"] = np.full_like(f, self.temperature_c)
         return out, x

@@ -27,6 +27,9 @@ __all__ = [
     "parse_oxide_name",
 ]
 
+#: Citation key (:mod:`zoning.references`) of the atomic weights (CIAAW 2021).
+CITATION = "prohaska_2022"
+
 #: Standard atomic weights [g/mol], IUPAC/CIAAW 2021 (conventional values for
 #: O, Mg and Si, whose standard atomic weights are intervals).
 ATOMIC_WEIGHTS: dict[str, float] = {

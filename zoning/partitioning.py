@@ -136,6 +136,9 @@ class ExchangeLaw:
         Physical bounds of that coefficient used by fits.
     kd_inverted : bool
         True when ``K`` of the kernel is ``1 / kd`` (plagioclase).
+    citation : str
+        Key in :data:`zoning.references.REFERENCES` of the exchange
+        formulation and its default coefficient.
     """
 
     mineral: str
@@ -151,6 +154,7 @@ class ExchangeLaw:
     kd_default: float
     kd_bounds: tuple[float, float]
     kd_inverted: bool
+    citation: str = ""
 
     def kernel_k(self, kd):
         """Return the kernel exchange coefficient ``K`` for user ``kd`` [1]."""
@@ -177,6 +181,7 @@ EXCHANGE_LAWS: dict[str, ExchangeLaw] = {
         kd_default=0.30,
         kd_bounds=(0.15, 0.50),
         kd_inverted=False,
+        citation="roeder_emslie_1970",
     ),
     "plagioclase": ExchangeLaw(
         mineral="plagioclase",
@@ -192,6 +197,7 @@ EXCHANGE_LAWS: dict[str, ExchangeLaw] = {
         kd_default=2.0,
         kd_bounds=(0.5, 8.0),
         kd_inverted=True,
+        citation="sisson_grove_1993",
     ),
 }
 
@@ -324,6 +330,9 @@ class TraceLaw:
         Default and bounds of the initial melt content, in the parameter unit.
     unit : str
         Unit of the initial melt content parameter.
+    citations : tuple of str
+        Keys in :data:`zoning.references.REFERENCES` of the law and its
+        calibration range (empty for a user-given constant D).
     """
 
     element: str
@@ -337,6 +346,7 @@ class TraceLaw:
     default_c0: float
     c0_bounds: tuple[float, float]
     unit: str
+    citations: tuple[str, ...] = ()
 
     def partition(self, melt_mgo_wt, crystal_x, temperature_c):
         """Return D along the path (wt basis) [1]."""
@@ -439,6 +449,7 @@ def make_trace_law(mineral: str, element: str, constant_d: float | None = None) 
             default_c0=250.0,
             c0_bounds=(1.0, 3000.0),
             unit="ppm",
+            citations=("hart_davis_1978",),
         )
     if mineral == "plagioclase" and element == "Sr":
         return TraceLaw(
@@ -453,6 +464,7 @@ def make_trace_law(mineral: str, element: str, constant_d: float | None = None) 
             default_c0=300.0,
             c0_bounds=(1.0, 5000.0),
             unit="ppm",
+            citations=("blundy_wood_1991", "bindeman_1998"),
         )
     if mineral == "plagioclase" and element == "Mg":
         return TraceLaw(
@@ -467,6 +479,7 @@ def make_trace_law(mineral: str, element: str, constant_d: float | None = None) 
             default_c0=6.0,
             c0_bounds=(0.01, 25.0),
             unit="wt%",
+            citations=("bindeman_1998",),
         )
     known = {"olivine": "'Ni'", "plagioclase": "'Sr', 'Mg'"}.get(mineral, "none")
     raise ModelDomainError(

@@ -66,6 +66,10 @@ __all__ = [
     "fe3_fraction_kress_carmichael",
 ]
 
+#: Citation keys (:mod:`zoning.references`) of the laws of this module, by function.
+CITATIONS = {"fe3_fraction_kress_carmichael": "kress_carmichael_1991",
+             "buffer_log_fo2": "frost_1991"}
+
 #: Molar masses of oxides [g/mol]: the package oxide table (IUPAC/CIAAW 2021
 #: standard atomic weights) plus H2O (H 1.008, IUPAC conventional value).
 MOLAR_MASS = {name: molar_mass(name) for name in CANONICAL_OXIDES}

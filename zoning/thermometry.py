@@ -71,6 +71,8 @@ class GlassThermometer:
         Stated 1-sigma standard error [°C]; NaN when not stated.
     reference : str
         Published source.
+    citation : str
+        Key of the source in :data:`zoning.references.REFERENCES`.
     """
 
     name: str
@@ -80,6 +82,39 @@ class GlassThermometer:
     mgo_max_wt: float
     sigma_c: float
     reference: str
+    citation: str = ""
+
+    def check_range(self, mgo_wt, *, stacklevel: int = 2) -> bool:
+        """Warn once if any melt MgO lies outside the calibration range.
+
+        Parameters
+        ----------
+        mgo_wt : float or array_like
+            Melt MgO [wt%], any shape; NaN values are ignored.
+        stacklevel : int, optional
+            Stack level of the warning (2 points at the caller).
+
+        Returns
+        -------
+        bool
+            True when a value lay outside the range (and a
+            :class:`~zoning.exceptions.CalibrationRangeWarning` was issued).
+        """
+        mgo = np.asarray(mgo_wt, dtype=float)
+        finite = np.isfinite(mgo)
+        out = finite & ((mgo < self.mgo_min_wt) | (mgo > self.mgo_max_wt))
+        if not np.any(out):
+            return False
+        lo, hi = float(np.min(mgo[finite])), float(np.max(mgo[finite]))
+        span = f"{lo:.3g} wt%" if lo == hi else f"{lo:.3g}-{hi:.3g} wt%"
+        warnings.warn(
+            f"melt MgO {span} lies partly outside the approximate calibration range of the "
+            f"{self.name} thermometer ({self.mgo_min_wt:g}-{self.mgo_max_wt:g} wt% MgO); the "
+            "temperature is an extrapolation there and may be off by tens of degrees.",
+            CalibrationRangeWarning,
+            stacklevel=stacklevel,
+        )
+        return True
 
     def __call__(self, mgo_wt, *, warn: bool = True, stacklevel: int = 2) -> np.ndarray:
         """Temperature of a melt from its MgO content [°C].
@@ -114,17 +149,7 @@ class GlassThermometer:
                 "(MgO in wt%, not a fraction or mol%)."
             )
         if warn:
-            out = finite & ((mgo < self.mgo_min_wt) | (mgo > self.mgo_max_wt))
-            if np.any(out):
-                warnings.warn(
-                    f"{int(out.sum())} melt MgO value(s) "
-                    f"(e.g. {float(mgo[out].ravel()[0]):.3g} wt%) "
-                    f"lie outside the approximate calibration range of the {self.name} "
-                    f"thermometer ({self.mgo_min_wt:g}-{self.mgo_max_wt:g} wt% MgO); the "
-                    "temperature is an extrapolation and may be off by tens of degrees.",
-                    CalibrationRangeWarning,
-                    stacklevel=stacklevel,
-                )
+            self.check_range(mgo, stacklevel=stacklevel + 1)
         t = self.slope * mgo + self.intercept
         return t if t.ndim else float(t)
 
@@ -133,19 +158,20 @@ class GlassThermometer:
 #: 2.5-10 wt% MgO approx., from memory); SEE about 10 °C.
 _HT87 = GlassThermometer(
     "helz_thornber_1987", 20.1, 1014.0, 2.5, 10.0, 10.0,
-    "Helz & Thornber (1987), Bull. Volcanol. 49, 651-668",
+    "Helz & Thornber (1987), Bull. Volcanol. 49, 651-668", citation="helz_thornber_1987",
 )
 #: Montierth, Johnston & Cashman (1995), Mauna Loa glasses and experiments
 #: (approx. 3-12 wt% MgO, from memory).
 _M95 = GlassThermometer(
     "montierth_1995", 23.0, 1012.0, 3.0, 12.0, float("nan"),
     "Montierth, Johnston & Cashman (1995), AGU Geophys. Monogr. 92, 207-217",
+    citation="montierth_1995",
 )
 #: Shea et al. (2022) recalibration on Hawaiian tholeiite experiments
 #: (approx. 4-14 wt% MgO, from memory).
 _S22 = GlassThermometer(
     "shea_2022", 21.2, 1017.0, 4.0, 14.0, float("nan"),
-    "Shea, Matzen & Mourey (2022), Contrib. Mineral. Petrol. 177:114",
+    "Shea, Matzen & Mourey (2022), Contrib. Mineral. Petrol. 177:114", citation="shea_2022",
 )
 
 #: Available thermometers by name.

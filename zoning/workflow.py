@@ -76,6 +76,7 @@ __all__ = [
     "RUN_STATUSES",
     "FIT_OPTIONS",
     "READ_OPTIONS",
+    "JOINT_OPTIONS",
     "OUTPUT_OPTIONS",
     "EXPORT_SUFFIXES",
     "SampleJob",
@@ -247,6 +248,7 @@ FIT_OPTIONS: dict[str, tuple[str, Callable[[str, Any], Any]]] = {
     "seed": ("seed", _as_int),
     "walkers": ("n_walkers", _as_int),
     "steps": ("n_steps", _as_int),
+    "thermometer": ("thermometer", _as_str),
 }
 
 #: Project-file option -> (:func:`zoning.io.read_traverses` keyword, converter).
@@ -267,6 +269,16 @@ _RENAMED = {"checks": "check", "core_position_um": "core_um"}
 #: Options whose tables are merged key by key ([defaults], then the sample).
 _MERGED_TABLES = ("column_map", "check")
 
+#: Options of joint fits (:func:`zoning.fitting.fit_sample` keyword, converter);
+#: ``joint = true`` (in ``[defaults]`` or a sample table) fits every traverse of
+#: the sample's ``file``/``files`` together as the crystals of one sample.
+JOINT_OPTIONS: dict[str, tuple[str, Callable[[str, Any], Any]]] = {
+    "joint": ("joint", _as_bool),
+    "exclude": ("exclude", _as_names),
+    "joint_f_rim": ("f_rim", _as_str),
+    "joint_retention": ("retention", _as_str),
+}
+
 #: Options of the batch itself: which outputs to draw (both default true).
 OUTPUT_OPTIONS: dict[str, tuple[str, Callable[[str, Any], Any]]] = {
     "figures": ("figures", _as_bool),
@@ -274,11 +286,11 @@ OUTPUT_OPTIONS: dict[str, tuple[str, Callable[[str, Any], Any]]] = {
 }
 
 #: Keys only a sample table may hold.
-_SAMPLE_KEYS = ("file", "traverse")
+_SAMPLE_KEYS = ("file", "traverse", "files")
 
 
 def _valid_names(table_kind: str) -> list[str]:
-    names = sorted([*FIT_OPTIONS, *READ_OPTIONS, *OUTPUT_OPTIONS])
+    names = sorted([*FIT_OPTIONS, *READ_OPTIONS, *OUTPUT_OPTIONS, *JOINT_OPTIONS])
     if table_kind == "sample":
         names = sorted([*_SAMPLE_KEYS, *names])
     return names
@@ -311,7 +323,7 @@ def resolve_options(
         value of the wrong kind.
     """
     valid = _valid_names(table_kind)
-    converters = {**FIT_OPTIONS, **READ_OPTIONS, **OUTPUT_OPTIONS}
+    converters = {**FIT_OPTIONS, **READ_OPTIONS, **OUTPUT_OPTIONS, **JOINT_OPTIONS}
     out: dict[str, Any] = {}
     for key, value in options.items():
         if key not in valid:
@@ -324,6 +336,15 @@ def resolve_options(
             raise ProjectError(
                 f"unknown option {key!r} in {where}.{hint} Valid names: {', '.join(valid)}."
             )
+        if key == "files":
+            if (not isinstance(value, (list, tuple)) or not value
+                    or not all(isinstance(v, str) and v.strip() for v in value)):
+                raise ProjectError(
+                    f"option 'files' in {where} must be a list of file names in quotes, e.g. "
+                    f'files = ["FRL-21_ol1.csv", "FRL-21_ol2.csv"]; got {value!r}.'
+                )
+            out[key] = list(value)
+            continue
         if key in _SAMPLE_KEYS:
             if not isinstance(value, str) or not value.strip():
                 raise ProjectError(
@@ -440,10 +461,15 @@ class SampleJob:
     figures: bool = True
     report: bool = True
     problem: str = ""
+    files: tuple[str, ...] = ()
+    joint: bool = False
+    joint_options: Mapping[str, Any] = field(default_factory=dict)
 
     def __post_init__(self):
         object.__setattr__(self, "read_options", dict(self.read_options))
         object.__setattr__(self, "fit_options", dict(self.fit_options))
+        object.__setattr__(self, "files", tuple(self.files) or (self.file,))
+        object.__setattr__(self, "joint_options", dict(self.joint_options))
 
     def settings(self) -> dict[str, Any]:
         """Return the resolved settings as a JSON-ready dictionary."""
@@ -454,6 +480,8 @@ class SampleJob:
             "fit": _jsonable(self.fit_options),
             "figures": self.figures,
             "report": self.report,
+            **({"files": list(self.files), "joint": _jsonable(self.joint_options)}
+               if self.joint else {}),
         }
 
 
@@ -492,7 +520,7 @@ class Project:
     @property
     def input_files(self) -> tuple[str, ...]:
         """Every input file of the project (never overwritten)."""
-        files = {j.file for j in self.jobs}
+        files = {f for j in self.jobs for f in j.files}
         if Path(self.path).is_file():
             files.add(str(Path(self.path).resolve()))
         return tuple(sorted(files))
@@ -551,8 +579,10 @@ def _split(options: Mapping[str, Any]) -> tuple[dict, dict, dict]:
 
 
 def _make_job(name: str, file: Path, traverse: str, options: Mapping[str, Any],
-              problem: str = "") -> SampleJob:
+              problem: str = "", files: tuple[Path, ...] = ()) -> SampleJob:
     read, fit, out = _split(options)
+    joint = {JOINT_OPTIONS[k][0]: v for k, v in options.items() if k in JOINT_OPTIONS}
+    is_joint = bool(joint.pop("joint", False))
     return SampleJob(
         name=name,
         file=str(file),
@@ -562,6 +592,9 @@ def _make_job(name: str, file: Path, traverse: str, options: Mapping[str, Any],
         figures=out.get("figures", True),
         report=out.get("report", True),
         problem=problem,
+        files=tuple(str(f) for f in files),
+        joint=is_joint,
+        joint_options=joint,
     )
 
 
@@ -673,17 +706,36 @@ def read_project(
         if not isinstance(table, Mapping):
             raise ProjectError(f"{where} must be a table with at least file = \"...\".")
         opts = resolve_options(table, where=where, table_kind="sample")
-        if "file" not in opts:
+        if "file" not in opts and "files" not in opts:
             raise ProjectError(
                 f"{where} has no 'file'. Add file = \"<export>.csv\" "
-                "(relative to the project file)."
+                "(relative to the project file), or files = [...] for a joint sample."
             )
-        file, problem = _project_file_problem(opts.pop("file"), base, allow_outside_paths)
+        if "file" in opts and "files" in opts:
+            raise ProjectError(
+                f"{where} has both 'file' and 'files'; give one of them (files = [...] lists "
+                "every export of a joint sample)."
+            )
+        listed = opts.pop("files", None) or [opts.pop("file")]
+        paths, problem = [], ""
+        for entry in listed:
+            file, entry_problem = _project_file_problem(entry, base, allow_outside_paths)
+            paths.append(file)
+            problem = problem or entry_problem
         traverse = opts.pop("traverse", "")
         merged = _merge(defaults, opts)
+        if len(paths) > 1 and not merged.get("joint", False):
+            raise ProjectError(
+                f"{where} lists several files but is not a joint sample; add joint = true to "
+                "fit their crystals together, or give one sample table per file."
+            )
+        if not merged.get("joint", False) and any(
+                k in opts for k in ("exclude", "joint_f_rim", "joint_retention")):
+            raise ProjectError(
+                f"{where} sets joint-fit options without joint = true; add joint = true.")
         _check_job_settings({FIT_OPTIONS[k][0]: v for k, v in merged.items() if k in FIT_OPTIONS},
                             where)
-        jobs.append(_make_job(str(name), file, traverse, merged, problem))
+        jobs.append(_make_job(str(name), paths[0], traverse, merged, problem, tuple(paths)))
     return Project(path=str(path.resolve()), jobs=tuple(jobs), defaults=defaults)
 
 
@@ -813,9 +865,10 @@ def fingerprint(job: SampleJob) -> str:
         return ""
     h = hashlib.sha256()
     try:
-        with open(job.file, "rb") as handle:
-            for block in iter(lambda: handle.read(1 << 20), b""):
-                h.update(block)
+        for f in job.files:
+            with open(f, "rb") as handle:
+                for block in iter(lambda: handle.read(1 << 20), b""):
+                    h.update(block)
     except OSError:
         return ""
     h.update(json.dumps(job.settings(), sort_keys=True).encode())
@@ -1136,6 +1189,8 @@ def _fit_and_write(job: SampleJob, build: Path):
     from zoning.fitting import fit_traverse
     from zoning.io.results import summary_table, write_fit_json, write_profile_csv
 
+    if job.joint:
+        return _fit_and_write_joint(job, build)
     traverse = _select_traverse(job)
     check_fittable(traverse, include_flagged=bool(job.fit_options.get("include_flagged")),
                    distance_range=job.fit_options.get("distance_range"),
@@ -1154,6 +1209,27 @@ def _fit_and_write(job: SampleJob, build: Path):
 
             write_report(result, build / "report.pdf", figures=list(drawn.values()))
     row = summary_table([result]).iloc[0].to_dict()
+    row["sample"] = job.name
+    return row, result
+
+
+def _fit_and_write_joint(job: SampleJob, build: Path):
+    """Fit every traverse of the sample's files as one sample (joint fit)."""
+    from zoning.fitting import fit_sample
+    from zoning.io.joint_results import sample_summary_table, write_sample_files
+
+    read_traverses = _reader()
+    traverses = [t for f in job.files for t in read_traverses(f, **job.read_options)]
+    if job.traverse:
+        traverses = [t for t in traverses if t.name == job.traverse] or traverses
+    kw = dict(job.fit_options)
+    if "n_walkers" in kw:
+        kw["n_chains"] = kw.pop("n_walkers")
+    if "n_steps" in kw:
+        kw["n_sweeps"] = kw.pop("n_steps")
+    result = fit_sample(traverses, name=job.name, **kw, **job.joint_options)
+    write_sample_files(result, build, figures=job.figures, report=job.report)
+    row = sample_summary_table([result]).iloc[0].to_dict()
     row["sample"] = job.name
     return row, result
 
@@ -1672,7 +1748,9 @@ def _summary_frame(project: Project, outcomes: Mapping[str, SampleOutcome],
         if col not in df:
             df[col] = ""
         df[col] = df[col].fillna("")
-    for col in ("n_spots", "n_used"):
+    for col in ("n_spots", "n_used", "n_crystals", "n_antecrysts"):
+        # Counts stay integers when some rows lack them (failed samples, or
+        # single fits beside joint samples): nullable integers, blank when absent.
         if col in df:
             df[col] = pd.array(
                 [None if v is None or (isinstance(v, float) and not math.isfinite(v))
@@ -1704,6 +1782,7 @@ def _write_tables(project: Project, out: Path, outcomes: Mapping[str, SampleOutc
         "run": dict(run_info),
         "counts": counts,
         "samples": {j.name: {"folder": folders[j.name].name, "file": j.file,
+                             **({"files": list(j.files)} if j.joint else {}),
                              "settings": j.settings()} for j in project.jobs},
         "units": "melt Mg#/Ca# as molar fractions; MgO/CaO in wt%; F and r in [0, 1]",
     }
@@ -1711,6 +1790,7 @@ def _write_tables(project: Project, out: Path, outcomes: Mapping[str, SampleOutc
     write_table(df, out / "summary.csv", provenance=provenance, digits=band_digits(df.columns),
                 protect=protect)
     root.record("summary.csv", "summary.json")
+    _write_crystals_table(project, out, outcomes, provenance, protect, root)
     if final:
         if _write_xlsx(df, out / "summary.xlsx", protect=protect):
             root.record("summary.xlsx")
@@ -1727,6 +1807,29 @@ def _write_tables(project: Project, out: Path, outcomes: Mapping[str, SampleOutc
 
             plt.close(fig)
     return df
+
+
+def _write_crystals_table(project, out, outcomes, provenance, protect, root) -> None:
+    """Write ``crystals.csv``: the crystals of every joint sample, one row each."""
+    from zoning.io.results import band_digits
+    from zoning.io.writers import write_table
+
+    tables = []
+    for j in project.jobs:
+        o = outcomes.get(j.name)
+        if j.joint and o is not None and o.status != "failed" and o.folder:
+            path = Path(o.folder) / "crystals.csv"
+            if path.is_file():  # written by this run or an earlier one (unchanged)
+                tables.append(pd.read_csv(path, keep_default_na=False, na_values=[""]))
+    if not tables:
+        return
+    df = pd.concat(tables, ignore_index=True)
+    meta = {**{k: v for k, v in provenance.items() if k != "counts"},
+            "content": "one row per crystal of the joint samples of the batch: verdict, "
+                       "own quantities with 95% bands, consistency test"}
+    write_table(df, out / "crystals.csv", provenance=meta, digits=band_digits(df.columns),
+                protect=protect)
+    root.record("crystals.csv", "crystals.json")
 
 
 def _write_xlsx(df: pd.DataFrame, path: Path, protect: Iterable[str] = ()) -> bool:

@@ -86,16 +86,27 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     g.add_argument("--walkers", type=int, help="sampler walkers")
     g.add_argument("--steps", type=int, help="sampler steps")
     g.add_argument("--seed", type=int, help="random seed")
+    g.add_argument("--thermometer", choices=("helz_thornber_1987", "montierth_1995", "shea_2022"),
+                   help="olivine: glass MgO thermometer of the reported melt temperature")
     add_reading_options(
         p.add_argument_group("reading options (as for zoning inspect; replace the project "
                              "defaults)"), batch=True)
+    g.add_argument("--joint", action="store_true", default=None,
+                   help="fit the traverses of each sample's file(s) together as the crystals "
+                        "of one sample (project key joint = true)")
+    g.add_argument("--exclude", metavar="NAMES",
+                   help="with --joint: crystals to leave out, comma-separated traverse names")
+    g.add_argument("--joint-f-rim", choices=("shared", "per_crystal"),
+                   help="with --joint: one F at the rim for all crystals or one each")
+    g.add_argument("--joint-retention", choices=("shared", "hierarchical"),
+                   help="with --joint: one r for the sample or r per crystal from a population")
     p.set_defaults(run=run)
     return p
 
 
 _FIT_ARGS = ("kd", "kd_sd", "fe3", "geometry", "range", "radius_um", "sigma",
              "robust", "include_flagged", "free", "temperature_c", "walkers", "steps",
-             "seed")
+             "seed", "thermometer", "joint", "exclude", "joint_f_rim", "joint_retention")
 
 
 def options_from_args(args: argparse.Namespace) -> dict:

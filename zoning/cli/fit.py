@@ -107,7 +107,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
             "the crystallized fraction at the rim and r with 95% bands."
         ),
     )
-    p.add_argument("file", help="microprobe export (CSV, TXT, XLSX or ODS)")
+    p.add_argument("file", nargs="+",
+                   help="microprobe export(s) (CSV, TXT, XLSX or ODS); with --joint every traverse "
+                        "of every file is one crystal of the sample")
     p.add_argument("--mineral", choices=("olivine", "plagioclase"),
                    help="analysed mineral (default: detected from the analyses)")
     p.add_argument("--melt", action="append", metavar="OXIDE=WT",
@@ -120,6 +122,10 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--fe3", type=float,
                    help="melt Fe3+/FeT (default: from the melt FeO and Fe2O3 when both are "
                         "given, else 0.10)")
+    p.add_argument("--thermometer", default="helz_thornber_1987",
+                   choices=("helz_thornber_1987", "montierth_1995", "shea_2022"),
+                   help="olivine: glass MgO thermometer of the reported melt temperature "
+                        "(default helz_thornber_1987)")
     p.add_argument("--temperature-c", type=float,
                    help="temperature [°C] of the plagioclase Sr/Mg partitioning laws "
                         "(SrO/MgO profiles are fitted only when it is given)")
@@ -138,10 +144,23 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--free", metavar="NAMES",
                    help="extra free parameters, comma-separated: f_core,growth_exponent,"
                         "core_offset_um")
-    p.add_argument("--walkers", type=int, default=64, help="sampler walkers (default 64)")
+    p.add_argument("--walkers", type=int,
+                   help="sampler walkers (default 64; with --joint: chains, default 32)")
     p.add_argument("--steps", type=int,
                    help="sampler steps including burn-in (default 600 olivine, "
                         "2000 plagioclase)")
+    p.add_argument("--joint", action="store_true",
+                   help="fit all crystals together as one sample: shared parent melt, Kd and "
+                        "r, per-crystal F_core, antecryst test")
+    p.add_argument("--exclude", metavar="NAMES",
+                   help="with --joint: crystals to leave out, comma-separated traverse names")
+    p.add_argument("--joint-f-rim", choices=("shared", "per_crystal"), default="shared",
+                   help="with --joint: one F at the rim for all crystals (default) or one each")
+    p.add_argument("--joint-retention", choices=("shared", "hierarchical"), default="shared",
+                   help="with --joint: one r for the sample (default) or r per crystal from "
+                        "a population (hierarchical)")
+    p.add_argument("--name", help="with --joint: sample name (default: common part of the "
+                   "traverse names)")
     p.add_argument("--out", help="output folder (default: <file name>_fit)")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     add_reading_options(p.add_argument_group("reading options (as for zoning inspect)"))
@@ -173,10 +192,12 @@ def run(args: argparse.Namespace) -> int:
         read_keywords,
     )
 
-    source = Path(args.file)
-    problem = input_problem(source)
-    if problem:
-        raise ZoningError(problem)
+    sources = [Path(f) for f in args.file]
+    source = sources[0]
+    for path in sources:
+        problem = input_problem(path)
+        if problem:
+            raise ZoningError(problem)
     melt = parse_melt(args.melt)
     if not melt:
         raise ZoningError(
@@ -188,11 +209,22 @@ def run(args: argparse.Namespace) -> int:
     check_sampler_settings(args.walkers, args.steps, args.seed)
     out_dir = Path(args.out) if args.out else source.with_name(source.stem + "_fit")
     check_output_dir(out_dir)
-    traverses = read_traverses(source, **read_keywords(reading_options(args)))
+    traverses = [t for s in sources
+                 for t in read_traverses(s, **read_keywords(reading_options(args)))]
     for traverse in traverses:
         for note in traverse.notes:
             if note.startswith(("sheet: read", "this traverse: ")):
                 print(f"{traverse.name}: {note}")
+    common = dict(
+        melt=melt, kd=args.kd, kd_sd=args.kd_sd, fe3_fraction=args.fe3,
+        geometry=args.geometry, distance_range=distance_range, radius_um=args.radius_um,
+        free=_free(args.free), sigma=args.sigma, include_flagged=args.include_flagged,
+        robust=args.robust, temperature_c=args.temperature_c, seed=args.seed,
+    )
+    if args.joint:
+        return _run_joint(args, traverses, common, out_dir, sources)
+    if args.exclude:
+        raise ZoningError("--exclude applies to joint fits only; add --joint.")
     # Before any fit: every file the fit will write must be new or zoning's own.
     output = OutputFolder(out_dir, kind="fit")
     output.check(fit_output_names([t.name for t in traverses]))
@@ -203,22 +235,10 @@ def run(args: argparse.Namespace) -> int:
             check_fittable(traverse, include_flagged=args.include_flagged,
                            distance_range=distance_range, radius_um=args.radius_um)
             result = fit_traverse(
-                traverse,
-                melt=melt,
-                kd=args.kd,
-                kd_sd=args.kd_sd,
-                fe3_fraction=args.fe3,
-                geometry=args.geometry,
-                distance_range=distance_range,
-                radius_um=args.radius_um,
-                free=_free(args.free),
-                sigma=args.sigma,
-                include_flagged=args.include_flagged,
-                robust=args.robust,
-                temperature_c=args.temperature_c,
-                seed=args.seed,
-                n_walkers=args.walkers,
+                traverse, **common,
+                n_walkers=64 if args.walkers is None else args.walkers,
                 n_steps=args.steps,
+                thermometer=args.thermometer,
             )
         except FitError as exc:
             failed += 1
@@ -228,11 +248,41 @@ def run(args: argparse.Namespace) -> int:
         print(format_report(result))
     if not results:
         raise ZoningError(
-            f"no traverse of {source} could be fitted (see the messages above); "
-            "check the flagged spots, --range and --melt."
+            f"no traverse of {', '.join(map(str, sources))} could be fitted (see the messages "
+            "above); check the flagged spots, --range and --melt."
         )
-    provenance = {"source": str(source.resolve()), "settings": dict(results[0].settings)}
-    written = write_fit_outputs(results, out_dir, protect=[source], provenance=provenance,
+    provenance = {"source": [str(p.resolve()) for p in sources] if len(sources) > 1
+                  else str(source.resolve()), "settings": dict(results[0].settings)}
+    written = write_fit_outputs(results, out_dir, protect=sources, provenance=provenance,
                                 output=output)
     print(f"wrote {len(written)} files to {out_dir}")
     return 1 if failed else 0
+
+
+def _run_joint(args, traverses, common, out_dir, sources) -> int:
+    """Fit every traverse as one crystal of one sample and write the joint outputs."""
+    from zoning.fitting import fit_sample
+    from zoning.io.joint_results import format_sample_report, write_sample_outputs
+    from zoning.io.outputs import OutputFolder
+
+    if len(traverses) < 2:
+        raise ZoningError(
+            f"--joint needs at least two crystals; {', '.join(map(str, sources))} hold "
+            f"{len(traverses)} traverse. Give more files, or fit without --joint."
+        )
+    # Before the fit: the tables must be new or zoning's own (the sample
+    # folder's names are known after the fit and claimed then, before writing).
+    output = OutputFolder(out_dir, kind="fit")
+    output.check(["summary.csv", "summary.json", "crystals.csv", "crystals.json"])
+    result = fit_sample(
+        traverses, **common, name=args.name, f_rim=args.joint_f_rim,
+        retention=args.joint_retention, exclude=_free(args.exclude),
+        n_chains=32 if args.walkers is None else args.walkers, n_sweeps=args.steps,
+    )
+    print(format_sample_report(result))
+    provenance = {"sources": [str(p.resolve()) for p in sources],
+                  "settings": dict(result.settings)}
+    written = write_sample_outputs([result], out_dir, protect=sources, provenance=provenance,
+                                   output=output)
+    print(f"wrote {len(written)} files to {out_dir}")
+    return 0

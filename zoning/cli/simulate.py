@@ -418,6 +418,7 @@ class _Scenario:
         kwargs = {}
         if self.mineral == "olivine":
             kwargs["fe3_fraction"] = self.fe3
+            kwargs["thermometer"] = self.thermometer
         melt = {k: v for k, v in self.melt.items() if k in ("SiO2", "TiO2", "Al2O3", "FeO",
                                                               "Fe2O3", "MnO", "MgO", "CaO",
                                                               "Na2O", "K2O", "P2O5", "H2O")}
@@ -514,14 +515,13 @@ def simulate_table(scenario: _Scenario, retention: float | None = None) -> pd.Da
         "melt_cao_wt", "melt_na2o_wt")
     for key in pair:
         cols[key] = out[key]
+    # Olivine: the model's glass thermometer (scenario.thermometer); warn once when
+    # the reported temperatures leave its calibration range.
     temperature = np.asarray(out["temperature_c"], dtype=float)
     if scenario.mineral == "olivine" and not scenario.loop:
-        from zoning.thermometry import melt_temperature
+        from zoning.thermometry import THERMOMETERS
 
-        temperature = np.asarray(
-            melt_temperature(np.asarray(out["melt_mgo_wt"]), scenario.thermometer),
-            dtype=float,
-        )
+        THERMOMETERS[scenario.thermometer].check_range(out["melt_mgo_wt"], stacklevel=2)
     if np.any(np.isfinite(temperature)):
         cols["temperature_c"] = temperature
     skip = set(cols) | {"crystal", "melt_ratio", "temperature_c", "distance_um"}

@@ -1,0 +1,218 @@
+"""Speed and calibration of ``zoning.fitting.fit_sample`` (a script, not a test).
+
+Parts (each can be skipped):
+
+1. ``--n-timing``: joint fits of invented samples of 20 olivine crystals x 50
+   spots (no antecryst), default settings, BLAS pinned to one thread; prints
+   the wall time of each (own fits, antecryst screening, sampling) and the
+   last line ``joint: median_fit_s=<s> crystals=20``.
+2. ``--n-coverage``: calibration set of invented samples (6 crystals from one
+   melt with different F_core, one planted antecryst from a melt 0.06 higher
+   in Mg#), random truths: fraction of samples whose shared 95% bands contain
+   the truth, per quantity; how often the antecryst is named and how often a
+   consistent crystal is wrongly set apart; the width of the joint r band
+   against the median single-crystal r band (``fit_traverse`` of each host
+   crystal, on the first ``--n-single`` samples).
+3. ``--n-two-melt``: samples of 3 + 3 crystals from two melts: how often the
+   tool says "two melts" instead of one answer.
+4. ``--validate``: one 6-crystal sample sampled again with a long emcee chain
+   (differential-evolution moves, 20 x the default length) on the same
+   posterior; prints the 2.5/50/97.5 percentiles of both.
+
+Samples are made by ``tests/_joint_synthetic.py`` (invented Ferrolyn numbers).
+Usage::
+
+    nice -n 10 python benchmarks/joint.py [--n-timing 3] [--n-coverage 40]
+        [--n-single 8] [--n-two-melt 6] [--validate] [--workers 2]
+"""
+
+from __future__ import annotations
+
+import os
+
+for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
+
+import argparse  # noqa: E402
+import sys  # noqa: E402
+import time  # noqa: E402
+import warnings  # noqa: E402
+from concurrent.futures import ProcessPoolExecutor  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+import numpy as np  # noqa: E402
+
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests"))
+import _joint_synthetic as js  # noqa: E402
+from zoning.fitting import fit_sample, fit_traverse  # noqa: E402
+
+SHARED = ("melt_mg_number", "f_rim", "retention", "kd", "melt0_ni_ppm")
+
+
+def _quiet(fn, *a, **kw):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return fn(*a, **kw)
+
+
+def _truth(rng):
+    f_rim = float(rng.uniform(0.10, 0.22))
+    return dict(mg_number=float(rng.uniform(0.70, 0.79)), f_rim=f_rim,
+                retention=float(rng.uniform(0.0, 1.0)),
+                kd=float(np.clip(rng.normal(0.30, 0.03), 0.22, 0.38)),
+                ni_ppm=float(rng.uniform(250, 500)), f_core_max=0.6 * f_rim)
+
+
+def timing_one(seed):
+    traverses, _ = js.sample(n_hosts=20, antecryst=False, n_spots=50, seed=seed)
+    t0 = time.perf_counter()
+    res = _quiet(fit_sample, traverses, melt=js.MELT, seed=seed)
+    d = res.diagnostics
+    return (time.perf_counter() - t0, d["seconds_own_fits"], d["seconds_screening"],
+            d["seconds_sampling"], d["min_ess"], d["max_rhat"], res.verdict)
+
+
+def coverage_one(args):
+    seed, single = args
+    rng = np.random.default_rng(1000 + seed)
+    t = _truth(rng)
+    traverses, truth = js.sample(n_hosts=6, antecryst=True, n_spots=40, seed=seed, **t)
+    res = _quiet(fit_sample, traverses, melt=js.MELT, seed=seed)
+    inside = {q: bool(res.estimates[q].lo95 <= truth[q] <= res.estimates[q].hi95)
+              for q in SHARED}
+    named = [c.name for c in res.crystals if c.verdict == "likely antecryst"]
+    found = truth["antecrysts"][0] in named
+    false = len([n for n in named if n not in truth["antecrysts"]])
+    r_joint = res.estimates["retention"].hi95 - res.estimates["retention"].lo95
+    r_single = np.nan
+    if single:
+        widths = []
+        for tr in traverses[:6]:
+            fr = _quiet(fit_traverse, tr, melt=js.MELT, seed=seed)
+            e = fr.estimates["retention"]
+            widths.append(e.hi95 - e.lo95)
+        r_single = float(np.median(widths))
+    return inside, found, false, r_joint, r_single, res.diagnostics["max_rhat"]
+
+
+def two_melt_one(seed):
+    traverses, truth = js.sample(n_hosts=3, antecryst=False, two_melts=True, n_spots=40,
+                                 seed=seed)
+    res = _quiet(fit_sample, traverses, melt=js.MELT, seed=seed)
+    return res.verdict
+
+
+def validate(seed=5):
+    import emcee
+    from zoning.fitting import joint as J
+
+    traverses, truth = js.sample(n_hosts=6, antecryst=False, n_spots=40, seed=seed)
+    res = _quiet(fit_sample, traverses, melt=js.MELT, seed=seed)
+    print("validation against a long emcee chain (DE moves), shared quantities:")
+    joint_samples = {n: res.samples[:, res.parameter_names.index(n)] for n in SHARED
+                     if n in res.parameter_names}
+    # the long chain runs on the private joint problem of the fit
+    from zoning.fitting.fit import _build_model
+
+    model = _build_model("olivine", js.MELT, None, 0.10, ["Ni"], "sphere", None)
+    st = J._Settings(model=model, mineral="olivine", ratio="melt_mg_number", kd0=0.30,
+                     kd_sd=0.03, f_rim_mode="shared", retention_mode="shared", extra_local=(),
+                     trace_params=(("melt0_ni_ppm", "crystal_nio_wt", "NiO"),), robust=False)
+    crystals = []
+    for t in traverses:
+        u = t.usable()
+        n = len(u)
+        crystals.append(J._Crystal(
+            name=t.name, traverse=t, usable=u, distance_um=u["distance_um"].to_numpy(float),
+            radius_um=float(u["distance_um"].max()), y=u["fo"].to_numpy(float),
+            sigma=np.full(n, js.FO_SIGMA), sigma_source="",
+            traces={"melt0_ni_ppm": ("NiO", "crystal_nio_wt", u["NiO"].to_numpy(float),
+                                     np.full(n, js.NIO_SIGMA), np.ones(n, dtype=bool))}))
+    jnt = J._Joint(st, crystals)
+    anchor = [c.name for c in crystals].index(res.anchor)
+    jnt.fixed[jnt.index("f_core_fraction", anchor)] = True
+    free = np.flatnonzero(~jnt.fixed)
+    v_best = np.zeros(jnt.D)
+    med = np.median(res.samples, axis=0)
+    for i, name in zip(free, res.parameter_names, strict=True):
+        v_best[i] = med[list(res.parameter_names).index(name)]
+    w0 = jnt.to_sampler(v_best)[0]
+
+    def log_prob(w):
+        full = np.repeat(w0[None, :], w.shape[0], axis=0)
+        full[:, free] = w
+        lc, ls = jnt.log_parts(full)
+        out = lc.sum(axis=1) + ls
+        return np.where(np.isfinite(out), out, -np.inf)
+
+    n_walkers = 4 * free.size
+    rng = np.random.default_rng(seed)
+    start = w0[free] + 1e-4 * rng.standard_normal((n_walkers, free.size))
+    sampler = emcee.EnsembleSampler(n_walkers, free.size, log_prob, vectorize=True,
+                                    moves=[(emcee.moves.DEMove(), 0.8),
+                                           (emcee.moves.DESnookerMove(), 0.2)])
+    n_steps = 20 * 1200
+    t0 = time.perf_counter()
+    sampler.run_mcmc(start, n_steps, skip_initial_state_check=True)
+    chain = sampler.get_chain(discard=n_steps // 2)
+    full = np.repeat(w0[None, :], chain.shape[0] * chain.shape[1], axis=0)
+    full[:, free] = chain.reshape(-1, free.size)
+    flat = jnt.from_sampler(full)
+    tau = emcee.autocorr.integrated_time(chain, c=5, tol=0, quiet=True)
+    print(f"  emcee: {n_walkers} walkers x {n_steps} steps in {time.perf_counter() - t0:.0f} s, "
+          f"largest tau {np.max(tau):.0f} steps")
+    for name in SHARED:
+        if name not in joint_samples:
+            continue
+        a = np.percentile(joint_samples[name], [2.5, 50, 97.5])
+        b = np.percentile(flat[:, jnt.index(name)], [2.5, 50, 97.5])
+        print(f"  {name:16s} joint sampler {a[0]:.4g} {a[1]:.4g} {a[2]:.4g} | "
+              f"long emcee {b[0]:.4g} {b[1]:.4g} {b[2]:.4g} | truth {truth[name]:.4g}")
+
+
+def main(argv=None) -> int:
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--n-timing", type=int, default=3)
+    p.add_argument("--n-coverage", type=int, default=40)
+    p.add_argument("--n-single", type=int, default=8)
+    p.add_argument("--n-two-melt", type=int, default=6)
+    p.add_argument("--validate", action="store_true")
+    p.add_argument("--workers", type=int, default=2)
+    a = p.parse_args(argv)
+    if a.n_coverage:
+        with ProcessPoolExecutor(a.workers) as pool:
+            out = list(pool.map(coverage_one, [(s, s < a.n_single)
+                                               for s in range(a.n_coverage)]))
+        n = len(out)
+        print(f"calibration: {n} samples of 6 crystals + 1 antecryst (+0.06 Mg#)")
+        for q in SHARED:
+            print(f"  coverage95 {q:16s} {np.mean([o[0][q] for o in out]):.3f}")
+        print(f"  antecryst named in {np.mean([o[1] for o in out]):.3f} of samples; "
+              f"consistent crystals set apart: {sum(o[2] for o in out)} of {6 * n}")
+        rj = np.array([o[3] for o in out if np.isfinite(o[4])])
+        rs = np.array([o[4] for o in out if np.isfinite(o[4])])
+        if rj.size:
+            print(f"  retention band width: joint/median single = {np.median(rj / rs):.3f} "
+                  f"(median over {rj.size} samples; 1/sqrt(6) = {1 / np.sqrt(6):.3f} if "
+                  "every crystal carried the same information on r)")
+        print(f"  largest R-hat {max(o[5] for o in out):.3f}")
+    if a.n_two_melt:
+        with ProcessPoolExecutor(a.workers) as pool:
+            verdicts = list(pool.map(two_melt_one, range(500, 500 + a.n_two_melt)))
+        print(f"two melts (3 + 3): verdicts {verdicts}")
+    if a.validate:
+        validate()
+    if a.n_timing:
+        times = []
+        for s in range(a.n_timing):
+            tot, own, scr, smp, ess, rhat, verdict = timing_one(s)
+            times.append(tot)
+            print(f"  20 crystals x 50 spots: {tot:.1f} s (own fits {own:.1f}, screening "
+                  f"{scr:.1f}, sampling {smp:.1f}); lowest ESS {ess:.0f}, R-hat {rhat:.3f}; "
+                  f"{verdict}")
+        print(f"joint: median_fit_s={np.median(times):.1f} crystals=20")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,2134 @@
+r"""Joint inversion of the crystals of one sample: one parent melt, many crystals.
+
+The crystals of a rock that grew from one melt along one crystallization
+path share the parent melt ratio (Mg# or Ca#), the reference melt, the
+exchange coefficient Kd (its prior counted once for the sample) and the
+retention r; each crystal has its own place on the path: the crystallized
+fraction at which its core nucleated (F_core) and, when the crystals were not
+erupted together, at which its rim stopped (F_rim, shared by default).
+:func:`fit_sample` fits them together, tests every crystal for consistency
+with the sample's melt (antecrysts) and samples the joint posterior.
+
+Statistical model
+-----------------
+Crystal c contributes the normalized residuals of its spots exactly as a
+single fit does (:mod:`zoning.fitting.fit`); the log-posterior of the sample
+is ``-1/2 (sum_c chi2_c + ((Kd - Kd0)/sd)^2)`` plus the hierarchical prior
+terms when r varies by crystal. Priors:
+
+* parent melt ratio, shared F_rim, shared r, trace initial contents: flat
+  within their physical bounds (as for single fits);
+* F_core of crystal c: ``F_core = u_c F_rim`` with u_c uniform on [0, 1]
+  (the core nucleated at some time between the start of crystallization and
+  the rim). A flat prior on F_core itself on [0, F_rim] would, for C
+  crystals, weigh F_rim by F_rim^C and push it upwards;
+* hierarchical r (``retention="hierarchical"``): ``logit r_c = mu + tau z_c``
+  with z_c ~ N(0, 1) (non-centred parameterisation, Papaspiliopoulos,
+  Roberts & Sköld 2007), mu flat on [-6, 6] and tau half-normal with sd 1
+  on the logit scale (a weakly informative group-scale prior in the sense of
+  Gelman 2006). The population median expit(mu) is reported as
+  ``retention`` and tau as ``retention_spread``.
+
+What "parent melt" means here. Moving the parent melt to a more primitive
+composition and every crystal's F_core later along the path changes the
+predicted profiles very little (the same melt is reached later), so the
+melt before the first crystal nucleated is hardly constrained by zoning. The
+joint fit therefore counts F from the nucleation of the earliest crystal of
+the sample: the crystal with the smallest F_core (the *anchor*, named in
+the result) has F_core = 0 by definition, and the parent melt is the melt
+that grew its core. This is the usual meaning of "the melt in equilibrium
+with the most primitive core"; a more primitive earlier melt is not excluded
+by the data.
+
+Vectorised evaluation
+---------------------
+Every (parameter set, crystal) pair is one row of a stacked evaluation: the
+distances of each crystal (padded to the longest traverse) are mapped to F
+with :func:`zoning.geometry.fraction_from_distance` and the model is
+evaluated on per-row fractions by
+:meth:`zoning.models.CrystallizationModel.path`, in chunks of
+:data:`CHUNK_ROWS` rows (the kernel is fastest when its working set stays in
+cache; measured in ``benchmarks/joint.py``).
+
+Antecrysts: leave-one-out likelihood-ratio test
+-----------------------------------------------
+For crystal k of the set S of crystals currently taken as consistent,
+
+.. math:: T_k = \chi^2_{min}(S) - \chi^2_{min}(S \setminus k) - \chi^2_{min}(k)
+
+compares "crystal k shares the melt, Kd, r (and F_rim) of the others" with
+"crystal k has its own" (its own single-crystal fit with F_core free): the
+likelihood-ratio statistic of two nested models, asymptotically chi-square
+with d degrees of freedom, d the number of parameters crystal k owns only in
+the second (Wilks 1938). Every chi-square includes the Kd prior term once.
+Each crystal's sigma is first scaled by its own Birge ratio (from its own
+best fit) when the model cannot fit it within the stated uncertainties, so
+that the test measures disagreement with the others, not misfit of the
+model. The least consistent crystal is set apart when its p-value is below
+:data:`ALPHA` divided by the number of crystals tested (Bonferroni), and the
+test is repeated on the others until none is (sequential outlier testing,
+as in Rosner 1983). Because some of the parameters are weakly determined by
+one crystal, the chi-square reference with the nominal d is conservative:
+consistent crystals are rarely flagged (``benchmarks/joint.py`` prints the
+false-alarm rate). Crystals set apart are tested among themselves: when at
+least two of them share a melt, the sample holds two groups; without a
+two-thirds majority for one group the sample is reported as not recording
+one melt, and no single answer is given.
+
+Sampler
+-------
+Metropolis-within-Gibbs with conditionally independent blocks (Gelman et
+al. 2013, ch. 11-12). Given the shared parameters, the crystals' own
+parameters are independent a posteriori, so one stacked evaluation updates
+every crystal at once, each with its own accept/reject; the shared
+parameters are then updated together with a *shear*: a move d of the shared
+block moves each crystal's block by B_c d, with B_c the regression of the
+crystal's parameters on the shared ones in the Laplace (later: burn-in)
+covariance, so that the strongly correlated directions (parent melt against
+every F_core, F_rim against the cores) are followed in one step. The shear
+is volume-preserving and its reverse is the negated move, so the plain
+Metropolis ratio applies. Proposal covariances come from the Laplace
+approximation at the best fit, refreshed from the first half of the
+burn-in; step sizes adapt during burn-in only (Robbins-Monro towards
+acceptance rates 0.44 for one-parameter blocks, 0.25 otherwise; Roberts &
+Rosenthal 2009) and are fixed afterwards, so production is a valid MCMC.
+Many chains run in parallel from Laplace draws; convergence is judged by the
+integrated autocorrelation time and the split R-hat (Vehtari et al. 2021).
+An ensemble sampler (emcee) needs at least twice as many walkers as
+parameters and mixes slowly in 25-85 dimensions; this scheme uses the block
+structure instead. ``benchmarks/joint.py`` compares it with a long emcee
+chain.
+
+References
+----------
+Gelman, A. (2006) Prior distributions for variance parameters in
+hierarchical models. Bayesian Analysis 1, 515-534.
+Gelman, A., Carlin, J. B., Stern, H. S., Dunson, D. B., Vehtari, A. &
+Rubin, D. B. (2013) Bayesian Data Analysis, 3rd ed. CRC Press.
+Papaspiliopoulos, O., Roberts, G. O. & Sköld, M. (2007) A general framework
+for the parametrization of hierarchical models. Statistical Science 22,
+59-73.
+Roberts, G. O. & Rosenthal, J. S. (2009) Examples of adaptive MCMC. Journal
+of Computational and Graphical Statistics 18, 349-367.
+Rosner, B. (1983) Percentage points for a generalized ESD many-outlier
+procedure. Technometrics 25, 165-172.
+Vehtari, A., Gelman, A., Simpson, D., Carpenter, B. & Bürkner, P.-C. (2021)
+Rank-normalization, folding, and localization: an improved R-hat for
+assessing convergence of MCMC. Bayesian Analysis 16, 667-718.
+Wilks, S. S. (1938) The large-sample distribution of the likelihood ratio
+for testing composite hypotheses. Annals of Mathematical Statistics 9,
+60-62.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import time
+import warnings
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import optimize, stats
+from zoning.fitting.bestfit import _grid_starts, _optimise
+from zoning.fitting.problem import (
+    _MELT_OXIDE,
+    _RATIO,
+    DEFAULT_SIGMA,
+    KD_PRIOR,
+    KD_RELATIVE_SD,
+    OPTIONAL_FREE,
+    TRACES,
+    FitProblem,
+    TraceData,
+    _build_model,
+    _major_sigma,
+    _parse_range,
+    _select_traces,
+    _soft_l1,
+    _split_sigma,
+)
+from zoning.fitting.results import Estimate
+from zoning.fitting.sampling import (
+    MIN_ESS,
+    T_DOF,
+    T_WIDEN,
+    credible_band,
+    laplace_covariance,
+)
+from zoning.fitting.summary import N_CURVE_POINTS, _versions
+from zoning.fitting.summary import estimate_from_draws as _estimate
+
+from zoning import geometry as _geometry
+from zoning.exceptions import ConvergenceWarning, DataQualityWarning, FitError, ZoningError
+from zoning.partitioning import equilibrium_crystal
+from zoning.traverse import MINERALS, Traverse
+
+__all__ = ["fit_sample", "SampleFitResult", "CrystalFit", "VERDICTS"]
+
+#: Rows of one stacked model evaluation (parameter sets x crystals): the
+#: kernel's time per row was lowest around 64-128 rows on the development
+#: machine (benchmarks/joint.py prints the comparison).
+CHUNK_ROWS = 128
+#: Points of one stacked evaluation when the crystals share the path (every
+#: crystal's spots on the row of its parameter set); about 32 sets x 1000
+#: spots was fastest on the development machine.
+CHUNK_POINTS = 32000
+#: Iterations of a crystal's own fit with F_core free (see _h1_value).
+H1_MAX_EVALS = 30
+#: Family-wise false-alarm rate of the antecryst test for one sample.
+ALPHA = 0.05
+#: Chains of the sampler (run in parallel, one stacked evaluation per move).
+N_CHAINS = 32
+#: Default sweeps per chain (burn-in included), per mineral; plagioclase
+#: posteriors are more skewed (as for single fits).
+DEFAULT_N_SWEEPS = {"olivine": 1200, "plagioclase": 2000}
+#: Share of the sweeps used as burn-in (adaptation, covariance refresh).
+BURN_FRACTION = 0.4
+#: Largest split R-hat accepted without a warning (Vehtari et al. 2021).
+MAX_RHAT = 1.01
+#: Bounds of the hierarchical population mean of logit r, and its spread.
+MU_BOUNDS = (-6.0, 6.0)
+TAU_BOUNDS = (0.0, 4.0)
+#: Half-normal prior sd of the spread of logit r (Gelman 2006: weakly
+#: informative; one logit unit spans r = 0.27-0.73 around r = 0.5).
+TAU_PRIOR_SD = 1.0
+#: Posterior draws used for the model bands of profiles and melt path.
+N_CURVE_DRAWS = 300
+#: Share of the crystals a group must hold to be given as the sample's answer
+#: when the crystals fall into two groups.
+MAJORITY = 2.0 / 3.0
+
+#: Verdicts of a crystal.
+VERDICTS = ("consistent", "likely antecryst", "second melt", "excluded", "undecided")
+
+_SHARED_OPTIONS = {"f_rim": ("shared", "per_crystal"),
+                   "retention": ("shared", "hierarchical")}
+
+
+# ----------------------------------------------------------------- results
+def _readonly(a) -> np.ndarray:
+    arr = np.array(a, dtype=float, copy=True)
+    arr.setflags(write=False)
+    return arr
+
+
+@dataclass(frozen=True, eq=False)
+class CrystalFit:
+    """One crystal of a joint fit.
+
+    Parameters
+    ----------
+    name : str
+        Crystal (traverse) name.
+    traverse : Traverse
+        The traverse (every spot, flagged or not).
+    verdict : str
+        One of :data:`VERDICTS`: ``"consistent"`` (shares the sample's
+        melt), ``"likely antecryst"`` (set apart by the consistency test),
+        ``"second melt"`` (shares a melt with other crystals set apart,
+        different from the main group's), ``"excluded"`` (left out by the
+        user) or ``"undecided"`` (too few crystals to tell which disagree).
+    group : int
+        1 for the main group, 2 for a second melt, 0 otherwise.
+    estimates : mapping of str to Estimate
+        The crystal's own quantities in the joint fit of its group:
+        ``f_core`` always, ``f_rim`` and ``retention`` when they vary by
+        crystal, plus ``growth_exponent``/``core_offset_um`` when fitted.
+        Empty for crystals in no group.
+    own_estimates : mapping of str to Estimate
+        From the crystal's own single-crystal best fit (F_core = 0): the
+        parent melt ratio, F at the rim, r and Kd, bands from the Laplace
+        approximation at that fit (method stated in ``note``).
+    consistency_statistic : float
+        Leave-one-out likelihood-ratio statistic T (module docstring); NaN
+        when not tested.
+    consistency_dof : int
+        Its degrees of freedom.
+    consistency_p : float
+        Chi-square p-value of T (NaN when not tested).
+    chi_square, reduced_chi_square : float
+        Of the crystal's data at the joint best fit of its group (own best
+        fit for crystals in no group), with its sigma scale.
+    own_reduced_chi_square : float
+        At its own best fit, before any sigma scaling.
+    sigma_scale : float
+        Factor applied to its sigmas (Birge ratio of its own fit, 1 if it fits).
+    n_spots, n_used : int
+        Rows in the traverse; spots used.
+    spots : pandas.DataFrame
+        One row per input spot as in :attr:`FitResult.spots` (model and 95%
+        band from the joint posterior of its group), plus ``f`` (best-fit
+        crystallized fraction of the spot).
+    curve : pandas.DataFrame
+        Dense model curve core to rim: ``distance_um``, ``f``, ``best``,
+        ``lo95``, ``hi95`` (and ``<oxide>_best``/``_lo95``/``_hi95`` per trace).
+    """
+
+    name: str
+    traverse: Traverse
+    verdict: str
+    group: int
+    estimates: Mapping[str, Estimate]
+    own_estimates: Mapping[str, Estimate]
+    consistency_statistic: float = float("nan")
+    consistency_dof: int = 0
+    consistency_p: float = float("nan")
+    chi_square: float = float("nan")
+    reduced_chi_square: float = float("nan")
+    own_reduced_chi_square: float = float("nan")
+    sigma_scale: float = 1.0
+    n_spots: int = 0
+    n_used: int = 0
+    spots: pd.DataFrame = field(default_factory=pd.DataFrame)
+    curve: pd.DataFrame = field(default_factory=pd.DataFrame)
+
+    def __post_init__(self):
+        object.__setattr__(self, "estimates", dict(self.estimates))
+        object.__setattr__(self, "own_estimates", dict(self.own_estimates))
+
+
+@dataclass(frozen=True, eq=False)
+class SampleFitResult:
+    """Everything a joint fit of the crystals of one sample produced.
+
+    Parameters
+    ----------
+    name : str
+        Sample name.
+    mineral : {"olivine", "plagioclase"}
+        The analysed mineral.
+    crystals : tuple of CrystalFit
+        Every crystal given, in input order (excluded ones included).
+    estimates : mapping of str to Estimate
+        Shared quantities of the main group, with the names of single fits:
+        ``melt_mg_number``/``melt_ca_number``, ``f_rim`` (when shared),
+        ``retention`` (hierarchical: population median), ``kd``, trace
+        initial contents, derived ``melt_mgo_wt``/``melt_cao_wt`` and
+        ``temperature_c`` (olivine); hierarchical r adds
+        ``retention_spread`` (sd of logit r). When the crystals record two
+        melts without a two-thirds majority, every value is NaN and
+        ``constrained`` is False: there is no single answer.
+    group_estimates : tuple of mapping
+        Shared quantities of each group found (main group first).
+    verdict : str
+        ``"one melt"``, ``"one melt with antecrysts"``, ``"two melts"`` or
+        ``"two melts, no majority"`` (then no single answer).
+    anchor : str
+        Crystal whose F_core is 0 by definition (F counts from its
+        nucleation; module docstring).
+    parameter_names : tuple of str
+        Columns of ``samples`` (``<name>`` shared, ``<name>[<crystal>]`` per crystal).
+    samples : ndarray, shape (k, p)
+        Posterior draws of the main group (natural parameters), read-only.
+    correlation : ndarray, shape (p, p)
+        Their correlation matrix.
+    path : pandas.DataFrame
+        Shared melt path on an F grid from 0 to F_rim: ``f``,
+        ``melt_ratio``, ``crystal`` (in equilibrium with the melt), each with
+        ``_lo95``/``_hi95`` bands.
+    chi_square, reduced_chi_square : float
+        Of the main group's data at its joint best fit.
+    n_crystals, n_antecrysts : int
+        Crystals given (excluded ones included) and crystals set apart
+        (likely antecrysts and second-melt crystals).
+    n_spots, n_used : int
+        Spots in all traverses; spots used in the main group's fit.
+    excluded : tuple of str
+        Crystals left out by the user.
+    diagnostics : mapping of str to float
+        Sampler diagnostics (``ess_<name>``, ``rhat_<name>``, acceptance
+        rates, chains, sweeps, timings in seconds).
+    warnings : tuple of str
+        Plain-language warnings.
+    settings, versions : mapping
+        Every setting; versions of the libraries.
+    seed : int
+        Seed used.
+    """
+
+    name: str
+    mineral: str
+    crystals: tuple[CrystalFit, ...]
+    estimates: Mapping[str, Estimate]
+    group_estimates: tuple[Mapping[str, Estimate], ...]
+    verdict: str
+    anchor: str
+    parameter_names: tuple[str, ...]
+    samples: np.ndarray
+    correlation: np.ndarray
+    path: pd.DataFrame
+    chi_square: float = float("nan")
+    reduced_chi_square: float = float("nan")
+    n_crystals: int = 0
+    n_antecrysts: int = 0
+    n_spots: int = 0
+    n_used: int = 0
+    excluded: tuple[str, ...] = ()
+    diagnostics: Mapping[str, float] = field(default_factory=dict)
+    warnings: tuple[str, ...] = ()
+    settings: Mapping[str, Any] = field(default_factory=dict)
+    versions: Mapping[str, str] = field(default_factory=dict)
+    seed: int = 0
+
+    def __post_init__(self):
+        object.__setattr__(self, "samples", _readonly(self.samples))
+        object.__setattr__(self, "correlation", _readonly(self.correlation))
+        object.__setattr__(self, "crystals", tuple(self.crystals))
+        object.__setattr__(self, "estimates", dict(self.estimates))
+        object.__setattr__(self, "group_estimates",
+                           tuple(dict(g) for g in self.group_estimates))
+        object.__setattr__(self, "parameter_names", tuple(self.parameter_names))
+        object.__setattr__(self, "excluded", tuple(self.excluded))
+        object.__setattr__(self, "warnings", tuple(self.warnings))
+        object.__setattr__(self, "diagnostics", dict(self.diagnostics))
+        object.__setattr__(self, "settings", dict(self.settings))
+        object.__setattr__(self, "versions", dict(self.versions))
+
+    @property
+    def sample(self) -> str:
+        """Sample name (as :attr:`FitResult.sample`, for the summary table)."""
+        return self.name
+
+    @property
+    def preferred_model(self) -> str:
+        """Short statement of the verdict (the summary's ``preferred_model`` column)."""
+        return f"joint: {self.verdict}"
+
+    def crystal(self, name: str) -> CrystalFit:
+        """Return the crystal called ``name``.
+
+        Raises
+        ------
+        KeyError
+            When no crystal has that name.
+        """
+        for c in self.crystals:
+            if c.name == name:
+                return c
+        raise KeyError(name)
+
+
+# ----------------------------------------------------------- crystal data
+@dataclass(eq=False)
+class _Crystal:
+    """Data of one crystal (private)."""
+
+    name: str
+    traverse: Traverse
+    usable: pd.DataFrame
+    distance_um: np.ndarray
+    radius_um: float
+    y: np.ndarray
+    sigma: np.ndarray
+    sigma_source: str
+    traces: dict  # trace parameter -> (oxide, key, obs, sig, ok)
+    sigma_scale: float = 1.0
+
+
+@dataclass(eq=False)
+class _Settings:
+    """Model and parameter layout shared by every sub-problem (private)."""
+
+    model: Any
+    mineral: str
+    ratio: str
+    kd0: float
+    kd_sd: float
+    f_rim_mode: str
+    retention_mode: str
+    extra_local: tuple
+    trace_params: tuple  # (param, key, oxide)
+    robust: bool
+
+    def shared_names(self) -> list[str]:
+        names = [self.ratio]
+        if self.f_rim_mode == "shared":
+            names.append("f_rim")
+        if self.retention_mode == "shared":
+            names.append("retention")
+        else:
+            names += ["retention_mu", "retention_tau"]
+        if self.kd_sd > 0:
+            names.append("kd")
+        names += [t[0] for t in self.trace_params]
+        return names
+
+    def local_names(self) -> list[str]:
+        names = ["f_core_fraction"]
+        if self.f_rim_mode == "per_crystal":
+            names.append("f_rim")
+        if self.retention_mode == "hierarchical":
+            names.append("retention_z")
+        names += list(self.extra_local)
+        return names
+
+    def bounds(self, name: str) -> tuple[float, float]:
+        specs = {s.name: s for s in self.model.parameters}
+        if name in specs:
+            return float(specs[name].lower), float(specs[name].upper)
+        return {"f_core_fraction": (0.0, 1.0), "retention_mu": MU_BOUNDS,
+                "retention_tau": TAU_BOUNDS, "retention_z": (-5.0, 5.0)}[name]
+
+
+def _expit(x):
+    return 1.0 / (1.0 + np.exp(-x))
+
+
+class _Joint:
+    """Stacked joint problem over a set of crystals (private).
+
+    Parameter vectors are ``[shared (S), local (C x Q) crystal-major]``;
+    ``fixed`` marks entries held at their value (the anchor's F_core).
+    """
+
+    def __init__(self, settings: _Settings, crystals: Sequence[_Crystal]):
+        self.s = settings
+        self.crystals = list(crystals)
+        self.shared = settings.shared_names()
+        self.local = settings.local_names()
+        self.S, self.Q, self.C = len(self.shared), len(self.local), len(self.crystals)
+        self.D = self.S + self.C * self.Q
+        lo = [settings.bounds(n)[0] for n in self.shared]
+        hi = [settings.bounds(n)[1] for n in self.shared]
+        for _ in range(self.C):
+            lo += [settings.bounds(n)[0] for n in self.local]
+            hi += [settings.bounds(n)[1] for n in self.local]
+        self.lower, self.upper = np.array(lo), np.array(hi)
+        n = max(c.distance_um.size for c in self.crystals)
+        self.N = n
+        self.X = np.zeros((self.C, n))
+        self.Y = np.zeros((self.C, n))
+        self.W = np.zeros((self.C, n))  # 1/sigma, 0 on padding
+        self.R = np.array([c.radius_um for c in self.crystals])[:, None]
+        self.trace_obs, self.trace_w = {}, {}
+        for param, _key, _oxide in settings.trace_params:
+            self.trace_obs[param] = np.zeros((self.C, n))
+            self.trace_w[param] = np.zeros((self.C, n))
+        for i, c in enumerate(self.crystals):
+            k = c.distance_um.size
+            self.X[i, :k] = c.distance_um
+            self.X[i, k:] = c.distance_um[-1]
+            self.Y[i, :k] = c.y
+            self.W[i, :k] = 1.0 / (c.sigma * c.sigma_scale)
+            for param, (_ox, _key, obs, sig, ok) in c.traces.items():
+                self.trace_obs[param][i, :k] = np.where(ok, obs, 0.0)
+                self.trace_w[param][i, :k] = np.where(ok, 1.0 / (sig * c.sigma_scale), 0.0)
+        self.n_data = int((self.W > 0).sum() + sum((w > 0).sum() for w in self.trace_w.values()))
+        self.fixed = np.zeros(self.D, dtype=bool)
+        self.hier = settings.retention_mode == "hierarchical"
+
+    # ------------------------------------------------------------ layout
+    def index(self, name: str, crystal: int | None = None) -> int:
+        if crystal is None:
+            return self.shared.index(name)
+        return self.S + crystal * self.Q + self.local.index(name)
+
+    def split(self, v: np.ndarray):
+        v = np.atleast_2d(v)
+        return v[:, : self.S], v[:, self.S :].reshape(v.shape[0], self.C, self.Q)
+
+    def rows(self, v: np.ndarray) -> dict:
+        """Model parameters of every (set, crystal) row, shape (m*C,)."""
+        sh, lc = self.split(v)
+        m = sh.shape[0]
+
+        def shared(name):
+            return np.repeat(sh[:, self.shared.index(name)], self.C)
+
+        def local(name):
+            return lc[:, :, self.local.index(name)].ravel()
+
+        out = {self.s.ratio: shared(self.s.ratio)}
+        out["f_rim"] = shared("f_rim") if "f_rim" in self.shared else local("f_rim")
+        if self.hier:
+            out["retention"] = np.clip(_expit(shared("retention_mu") + shared("retention_tau")
+                                              * local("retention_z")), 0.0, 1.0)
+        else:
+            out["retention"] = shared("retention")
+        out["kd"] = shared("kd") if "kd" in self.shared else np.full(m * self.C, self.s.kd0)
+        for param, _key, _ox in self.s.trace_params:
+            out[param] = shared(param)
+        out["f_core"] = local("f_core_fraction") * out["f_rim"]
+        for name in self.s.extra_local:
+            out[name] = local(name)
+        return out
+
+    # -------------------------------------------------------- evaluation
+    def predict(self, v: np.ndarray, distance: np.ndarray | None = None) -> dict:
+        """Crystal outputs (m, C, n) at the spots (or at ``distance`` (C, n))."""
+        p = self.rows(v)
+        m = np.atleast_2d(v).shape[0]
+        X = self.X if distance is None else distance
+        n = X.shape[1]
+        xr = np.broadcast_to(X[None], (m, self.C, n)).reshape(-1, n)
+        rr = np.broadcast_to(self.R[None], (m, self.C, 1)).reshape(-1, 1)
+        exponent = p.get("growth_exponent", self._default("growth_exponent"))
+        offset = p.get("core_offset_um", 0.0)
+        f = _geometry.fraction_from_distance(
+            xr, rr, p["f_core"][:, None], p["f_rim"][:, None],
+            np.reshape(exponent, (-1, 1)) if np.ndim(exponent) else exponent,
+            np.reshape(offset, (-1, 1)) if np.ndim(offset) else offset,
+            self.s.model.section_offset_um,
+        )
+        f = np.clip(f, 0.0, 0.999)
+        keys = ["crystal"] + [k for _p, k, _o in self.s.trace_params]
+        model_params = {k: val for k, val in p.items()
+                        if k not in ("f_core", "f_rim", "growth_exponent", "core_offset_um")}
+        out = {k: np.empty((m * self.C, n)) for k in keys + ["f"]}
+        out["f"][:] = f
+        if self.hier:
+            # r differs by crystal: one row per (set, crystal)
+            rows, cols, step = m * self.C, n, CHUNK_ROWS
+            fs = f
+            params = model_params
+        else:
+            # the path depends on the set only: every crystal's spots on one row
+            # (one integration grid per set instead of one per crystal)
+            rows, cols = m, self.C * n
+            step = max(4, CHUNK_POINTS // cols)
+            fs = f.reshape(m, cols)
+            params = {k: val[:: self.C] for k, val in model_params.items()}
+        res_all = {k: np.empty((rows, cols)) for k in keys}
+        with np.errstate(all="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            for a in range(0, rows, step):
+                b = min(a + step, rows)
+                res = self.s.model.path(fs[a:b], strict=False,
+                                        **{k: val[a:b] for k, val in params.items()})
+                for k in keys:
+                    res_all[k][a:b] = res[k]
+        for k in keys:
+            out[k] = res_all[k].reshape(m * self.C, n)
+        return {k: val.reshape(m, self.C, n) for k, val in out.items()}
+
+    def _default(self, name):
+        return {s.name: s.default for s in self.s.model.parameters}[name]
+
+    def residual_blocks(self, v: np.ndarray):
+        """Per-crystal residuals (m, C, L) and shared prior residuals (m, P)."""
+        v = np.atleast_2d(v)
+        out = self.predict(v)
+        parts = [(self.Y - out["crystal"]) * self.W]
+        for param, key, _ox in self.s.trace_params:
+            parts.append((self.trace_obs[param] - out[key]) * self.trace_w[param])
+        sh, lc = self.split(v)
+        if self.hier:
+            parts.append(lc[:, :, [self.local.index("retention_z")]])
+        block = np.concatenate(parts, axis=2)
+        prior = []
+        if "kd" in self.shared and self.s.kd_sd > 0:
+            prior.append((sh[:, self.shared.index("kd")] - self.s.kd0) / self.s.kd_sd)
+        if self.hier:
+            prior.append(sh[:, self.shared.index("retention_tau")] / TAU_PRIOR_SD)
+        prior = np.stack(prior, axis=1) if prior else np.zeros((v.shape[0], 0))
+        return block, prior
+
+    def _n_data_block(self) -> int:
+        return self.N * (1 + len(self.s.trace_params))
+
+    def chi2_blocks(self, v: np.ndarray):
+        """-2 log posterior parts: per crystal (m, C) and shared priors (m,)."""
+        block, prior = self.residual_blocks(v)
+        nd = self._n_data_block()
+        data = block[:, :, :nd]
+        loss = _soft_l1(data**2) if self.s.robust else data**2
+        per = loss.sum(axis=2) + (block[:, :, nd:] ** 2).sum(axis=2)
+        per = np.where(np.isfinite(per), per, np.inf)
+        return per, (prior**2).sum(axis=1)
+
+    def objective(self, v: np.ndarray) -> np.ndarray:
+        per, pr = self.chi2_blocks(v)
+        return per.sum(axis=1) + pr
+
+    def flat_residuals(self, v: np.ndarray) -> np.ndarray:
+        block, prior = self.residual_blocks(v)
+        m = block.shape[0]
+        return np.concatenate([block.reshape(m, -1), prior], axis=1)
+
+    # ------------------------------------------------- sampler coordinates
+    # The data fix the composition of the anchor's core far better than the
+    # melt ratio and Kd separately; as in single fits the sampler works with
+    # X0 = the crystal in equilibrium with the parent melt instead of the
+    # melt ratio y0, keeping the flat prior on y0 through the Jacobian.
+    def _k(self, w):
+        if "kd" in self.shared:
+            kd = w[:, self.shared.index("kd")]
+        else:
+            kd = np.full(w.shape[0], self.s.kd0)
+        return np.asarray(self.s.model.law.kernel_k(kd), dtype=float)
+
+    def to_sampler(self, v):
+        v = np.atleast_2d(np.asarray(v, dtype=float))
+        w = v.copy()
+        w[:, 0] = equilibrium_crystal(v[:, 0], self._k(v))
+        return w
+
+    def from_sampler(self, w):
+        w = np.atleast_2d(np.asarray(w, dtype=float))
+        v = w.copy()
+        k = self._k(w)
+        x = w[:, 0]
+        v[:, 0] = k * x / (1.0 - x + k * x)
+        return v
+
+    def sampler_bounds(self):
+        lo, hi = self.lower.copy(), self.upper.copy()
+        lo[0], hi[0] = 0.0, 1.0
+        return lo, hi
+
+    def log_jacobian(self, w):
+        k = self._k(w)
+        x = w[:, 0]
+        with np.errstate(all="ignore"):
+            return np.log(k) - 2.0 * np.log(1.0 - x + k * x)
+
+    def log_parts(self, w):
+        """Per-crystal (m, C) and shared (m,) log-target in sampler coordinates."""
+        w = np.atleast_2d(w)
+        lo, hi = self.lower, self.upper
+        v = self.from_sampler(w)
+        slo, shi = self.sampler_bounds()
+        bad_shared = ~np.all((w[:, : self.S] >= slo[: self.S]) & (w[:, : self.S] <= shi[: self.S])
+                             & (v[:, : self.S] >= lo[: self.S]) & (v[:, : self.S] <= hi[: self.S]),
+                             axis=1)
+        local_w = w[:, self.S :].reshape(-1, self.C, self.Q)
+        llo = lo[self.S :].reshape(self.C, self.Q)
+        lhi = hi[self.S :].reshape(self.C, self.Q)
+        bad_local = ~np.all((local_w >= llo) & (local_w <= lhi), axis=2)
+        vc = np.clip(v, lo, hi)
+        per, pr = self.chi2_blocks(vc)
+        lc = np.where(bad_local, -np.inf, -0.5 * per)
+        ls = -0.5 * pr + self.log_jacobian(w)
+        ls = np.where(bad_shared | ~np.isfinite(ls), -np.inf, ls)
+        return lc, ls
+
+
+# ------------------------------------------------------------ optimisation
+def _jacobian(fun, x, steps, upper, groups):
+    """Finite-difference Jacobian of ``fun`` (sets -> residual rows) at ``x``.
+
+    ``groups`` lists column groups whose perturbations can share one
+    evaluation (parameters of different crystals touch disjoint residual
+    rows); ``groups`` entries are (columns, row masks), the row mask of each
+    column selecting the residuals it can change.
+    """
+    h = steps * np.where(x + steps <= upper, 1.0, -1.0)
+    sets = [x]
+    for cols, _rows in groups:
+        xs = x.copy()
+        xs[cols] += h[cols]
+        sets.append(xs)
+    r = fun(np.vstack(sets))
+    r = np.where(np.isfinite(r), r, 1e6)
+    jac = np.zeros((r.shape[1], x.size))
+    for g, (cols, rows) in enumerate(groups):
+        diff = r[g + 1] - r[0]
+        for col, mask in zip(cols, rows, strict=True):
+            jac[mask, col] = diff[mask] / h[col]
+    return r[0], jac
+
+
+class _LeastSquares:
+    """Bounded least squares of a :class:`_Joint` over its free entries."""
+
+    def __init__(self, joint: _Joint, coords: str = "natural"):
+        self.j = joint
+        self.coords = coords
+        self.free = np.flatnonzero(~joint.fixed)
+        if coords == "natural":
+            lo, hi = joint.lower, joint.upper
+        else:
+            lo, hi = joint.sampler_bounds()
+        self.lo, self.hi = lo[self.free], hi[self.free]
+        self.steps = 1e-6 * (self.hi - self.lo)
+        # residual rows touched by each parameter
+        S, Q, C = joint.S, joint.Q, joint.C
+        L = joint._n_data_block() + (1 if joint.hier else 0)
+        n_rows = C * L + (1 if ("kd" in joint.shared and joint.s.kd_sd > 0) else 0) + (
+            1 if joint.hier else 0)
+        self.n_rows = n_rows
+        groups = []
+        every = np.ones(n_rows, dtype=bool)
+        pos = {int(f): i for i, f in enumerate(self.free)}
+        for s in range(S):
+            if s in pos:
+                groups.append(([pos[s]], [every]))
+        for q in range(Q):
+            cols, masks = [], []
+            for c in range(C):
+                idx = S + c * Q + q
+                if idx in pos:
+                    mask = np.zeros(n_rows, dtype=bool)
+                    mask[c * L : (c + 1) * L] = True
+                    cols.append(pos[idx])
+                    masks.append(mask)
+            if cols:
+                groups.append((cols, masks))
+        self.groups = groups
+        self.base = None
+
+    def full(self, x_sets: np.ndarray) -> np.ndarray:
+        out = np.repeat(self.base[None, :], x_sets.shape[0], axis=0)
+        out[:, self.free] = x_sets
+        return out
+
+    def residuals_of(self, x_sets):
+        full = self.full(np.atleast_2d(x_sets))
+        v = full if self.coords == "natural" else self.j.from_sampler(full)
+        v = np.clip(v, self.j.lower, self.j.upper)
+        return self.j.flat_residuals(v)
+
+    def solve(self, v0: np.ndarray, max_nfev: int = 200):
+        """Return (v_best, objective) from the start ``v0`` (natural coordinates)."""
+        self.base = np.asarray(v0, dtype=float).copy()
+        x0 = np.clip(self.base[self.free], self.lo + 1e-9 * (self.hi - self.lo),
+                     self.hi - 1e-9 * (self.hi - self.lo))
+        cache = {}
+
+        def evaluate(x):
+            key = x.tobytes()
+            if key not in cache:
+                cache.clear()
+                cache[key] = _jacobian(self.residuals_of, x, self.steps, self.hi, self.groups)
+            return cache[key]
+
+        kws = {"loss": "soft_l1", "f_scale": 1.0} if self.j.s.robust else {}
+        with np.errstate(all="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            res = optimize.least_squares(
+                lambda x: evaluate(x)[0], x0, jac=lambda x: evaluate(x)[1],
+                bounds=(self.lo, self.hi), method="trf", x_scale=self.hi - self.lo,
+                max_nfev=max_nfev, **kws,
+            )
+        v = self.full(res.x[None, :])[0]
+        return v, float(self.j.objective(v)[0])
+
+    def jacobian_at(self, v: np.ndarray) -> np.ndarray:
+        self.base = np.asarray(v, dtype=float).copy()
+        x = self.base[self.free]
+        x = np.clip(x, self.lo, self.hi)
+        return _jacobian(self.residuals_of, x, self.steps, self.hi, self.groups)[1]
+
+
+def _fit_joint(joint: _Joint, starts: Sequence[np.ndarray], max_nfev: int = 200):
+    """Best of several starts: (v, objective)."""
+    ls = _LeastSquares(joint)
+    best = (None, np.inf)
+    for v0 in starts:
+        v, obj = ls.solve(v0, max_nfev=max_nfev)
+        if obj < best[1]:
+            best = (v, obj)
+    if best[0] is None:
+        best = (np.asarray(starts[0], dtype=float), float(joint.objective(starts[0])[0]))
+    return best
+
+
+def _laplace(joint: _Joint, v: np.ndarray) -> np.ndarray:
+    """Covariance of the free entries in sampler coordinates at ``v``.
+
+    Directions the data do not inform get the variance of their prior range
+    (never the zero variance a pseudo-inverse would give).
+    """
+    ls = _LeastSquares(joint, coords="sampler")
+    w = joint.to_sampler(v)[0]
+    jac = ls.jacobian_at(w)
+    span = ls.hi - ls.lo
+    scaled = jac * span[None, :]
+    fisher = scaled.T @ scaled
+    eigval, eigvec = np.linalg.eigh(fisher)
+    variance = 1.0 / np.maximum(eigval, 1.0)
+    return (eigvec * variance) @ eigvec.T * np.outer(span, span)
+
+
+# ------------------------------------------------------------------ sampler
+@dataclass(eq=False)
+class _Chain:
+    draws: np.ndarray  # (steps, chains, p) natural coordinates, free entries
+    tau: np.ndarray
+    ess: np.ndarray
+    rhat: np.ndarray
+    accept_local: float
+    accept_shared: float
+    accept_independence: float
+    n_chains: int
+    n_sweeps: int
+    burn_in: int
+
+
+def _split_rhat(chain: np.ndarray) -> np.ndarray:
+    """Split R-hat per parameter of a (steps, chains, p) array (Gelman et al. 2013)."""
+    n = chain.shape[0] // 2
+    halves = np.concatenate([chain[:n], chain[n : 2 * n]], axis=1)  # (n, 2m, p)
+    means = halves.mean(axis=0)
+    within = halves.var(axis=0, ddof=1).mean(axis=0)
+    between = n * means.var(axis=0, ddof=1)
+    with np.errstate(all="ignore"):
+        var = (n - 1) / n * within + between / n
+        rhat = np.sqrt(var / within)
+    return np.where(within > 0, rhat, 1.0)
+
+
+class _Blocks:
+    """Proposal factors of the local and shared moves from a covariance."""
+
+    def __init__(self, cov, shared_cols, local_cols, crystal_of_local):
+        self.cov = cov
+        self.Is, self.Il = shared_cols, local_cols
+        prec = np.linalg.inv(cov)
+        nL = local_cols.size
+        self.Lloc = np.zeros((nL, nL))
+        for c in np.unique(crystal_of_local):
+            sel = np.flatnonzero(crystal_of_local == c)
+            cond = np.linalg.inv(prec[np.ix_(local_cols[sel], local_cols[sel])])
+            self.Lloc[np.ix_(sel, sel)] = np.linalg.cholesky(_sym(cond))
+        css = cov[np.ix_(shared_cols, shared_cols)]
+        self.Ls = np.linalg.cholesky(_sym(css))
+        self.B = cov[np.ix_(local_cols, shared_cols)] @ np.linalg.inv(css)
+
+
+def _sym(a):
+    a = 0.5 * (a + a.T)
+    return a + np.eye(a.shape[0]) * 1e-12 * np.max(np.abs(np.diag(a)))
+
+
+def _independence(kept):
+    """Multivariate t proposal from burn-in draws (None when unusable).
+
+    An independence Metropolis-Hastings move (Tierney 1994) with the shape of
+    the posterior found during burn-in, widened by :data:`T_WIDEN` with
+    :data:`T_DOF` degrees of freedom (heavier tails than the posterior).
+    """
+    if not kept:
+        return None, None, None
+    tail = np.concatenate(kept, axis=0)
+    if tail.shape[0] < 10 * tail.shape[1]:
+        return None, None, None
+    mean = tail.mean(axis=0)
+    sd = tail.std(axis=0)
+    if not np.all(sd > 0):
+        return None, None, None
+    corr = np.corrcoef(tail, rowvar=False)
+    try:
+        dist = stats.multivariate_t(loc=np.zeros(mean.size), shape=_sym(corr) * T_WIDEN**2,
+                                    df=T_DOF)
+    except (ValueError, np.linalg.LinAlgError):
+        return None, None, None
+    return dist, mean, sd
+
+
+def _sample(joint: _Joint, v_best: np.ndarray, cov: np.ndarray, *, n_chains: int,
+            n_sweeps: int, seed: int) -> _Chain:
+    """Metropolis-within-Gibbs with parallel crystal blocks and a shear move."""
+    rng = np.random.default_rng(seed)
+    free = np.flatnonzero(~joint.fixed)
+    w_full = joint.to_sampler(v_best)[0]
+    slo, shi = joint.sampler_bounds()
+    lo, hi = slo[free], shi[free]
+    shared_cols = np.flatnonzero(free < joint.S)
+    local_cols = np.flatnonzero(free >= joint.S)
+    crystal_of_local = (free[local_cols] - joint.S) // joint.Q
+    n_cr = joint.C
+    blocks = _Blocks(cov, shared_cols, local_cols, crystal_of_local)
+    dim_c = np.bincount(crystal_of_local, minlength=n_cr)
+    target_local = np.where(dim_c <= 1, 0.44, 0.25)
+    log_scale_local = np.log(2.38 / np.sqrt(np.maximum(dim_c, 1)))
+    log_scale_shared = np.log(2.38 / np.sqrt(max(shared_cols.size, 1)))
+    burn = int(n_sweeps * BURN_FRACTION)
+
+    def full(w):
+        out = np.repeat(w_full[None, :], w.shape[0], axis=0)
+        out[:, free] = w
+        return out
+
+    # start: Laplace draws, each kept only where its posterior is finite
+    w0 = w_full[free]
+    start = w0 + rng.standard_normal((n_chains, free.size)) @ np.linalg.cholesky(_sym(cov)).T
+    start = np.clip(start, lo, hi)
+    lc, ls = joint.log_parts(full(start))
+    bad = ~np.isfinite(lc.sum(axis=1) + ls)
+    start[bad] = w0
+    W = start
+    lc, ls = joint.log_parts(full(W))
+    kept = []
+    indep = indep_mean = indep_sd = None
+    acc_l = acc_s = acc_ind = 0.0
+    n_prod = 0
+    for t in range(n_sweeps):
+        adapt = t < burn
+        gamma = 1.0 / np.sqrt(t + 1.0)
+        # --- every crystal's own block at once -----------------------------
+        if local_cols.size:
+            eps = rng.standard_normal((n_chains, local_cols.size))
+            scale_rows = np.exp(log_scale_local)[crystal_of_local]
+            step = eps @ (blocks.Lloc * scale_rows[:, None]).T
+            prop = W.copy()
+            prop[:, local_cols] += step
+            lc_new, _ = joint.log_parts(full(prop))
+            accept = np.log(rng.random((n_chains, n_cr))) < (lc_new - lc)
+            accept &= np.isfinite(lc_new)
+            take = accept[:, crystal_of_local]
+            W[:, local_cols] = np.where(take, prop[:, local_cols], W[:, local_cols])
+            lc = np.where(accept, lc_new, lc)
+            rate = accept.mean(axis=0)
+            if adapt:
+                log_scale_local += gamma * (rate - target_local)
+            else:
+                acc_l += float(rate.mean())
+        # --- shared block, with every crystal sheared along -------------
+        eps = rng.standard_normal((n_chains, shared_cols.size))
+        d = np.exp(log_scale_shared) * eps @ blocks.Ls.T
+        prop = W.copy()
+        prop[:, shared_cols] += d
+        if local_cols.size:
+            prop[:, local_cols] += d @ blocks.B.T
+        lc_new, ls_new = joint.log_parts(full(prop))
+        new = lc_new.sum(axis=1) + ls_new
+        old = lc.sum(axis=1) + ls
+        accept = (np.log(rng.random(n_chains)) < new - old) & np.isfinite(new)
+        W = np.where(accept[:, None], prop, W)
+        lc = np.where(accept[:, None], lc_new, lc)
+        ls = np.where(accept, ls_new, ls)
+        # --- independence move over every free parameter (production) ----
+        if indep is not None:
+            z = indep.rvs(size=n_chains, random_state=rng).reshape(n_chains, -1)
+            prop = indep_mean + z * indep_sd
+            lc_new, ls_new = joint.log_parts(full(prop))
+            new = lc_new.sum(axis=1) + ls_new
+            old = lc.sum(axis=1) + ls
+            q_old = indep.logpdf((W - indep_mean) / indep_sd)
+            q_new = indep.logpdf(z)
+            acc_i = (np.log(rng.random(n_chains)) < new - old + q_old - q_new) & np.isfinite(new)
+            W = np.where(acc_i[:, None], prop, W)
+            lc = np.where(acc_i[:, None], lc_new, lc)
+            ls = np.where(acc_i, ls_new, ls)
+            acc_ind += float(acc_i.mean())
+        if adapt:
+            log_scale_shared += gamma * (float(accept.mean()) - 0.25)
+            kept.append(W.copy())
+            if t == burn // 2 and burn >= 40:
+                tail = np.concatenate(kept[len(kept) // 2 :], axis=0)
+                emp = np.cov(tail, rowvar=False)
+                if tail.shape[0] > 5 * free.size and np.all(np.isfinite(emp)):
+                    try:
+                        blocks = _Blocks(_sym(emp), shared_cols, local_cols, crystal_of_local)
+                        log_scale_shared = np.log(2.38 / np.sqrt(max(shared_cols.size, 1)))
+                        log_scale_local = np.log(2.38 / np.sqrt(np.maximum(dim_c, 1)))
+                    except np.linalg.LinAlgError:
+                        pass
+            if t == burn - 1:
+                indep, indep_mean, indep_sd = _independence(kept[len(kept) // 2 :])
+                kept = []
+        else:
+            acc_s += float(accept.mean())
+            n_prod += 1
+            kept.append(joint.from_sampler(full(W))[:, free])
+    chain = np.stack(kept, axis=0)
+    import emcee
+
+    tau = np.asarray(emcee.autocorr.integrated_time(chain, c=5, tol=0, quiet=True), dtype=float)
+    tau = np.maximum(np.where(np.isfinite(tau), tau, float(chain.shape[0])), 1.0)
+    ess = chain.shape[0] * chain.shape[1] / tau
+    return _Chain(
+        draws=chain, tau=tau, ess=ess, rhat=_split_rhat(chain),
+        accept_local=acc_l / max(n_prod, 1), accept_shared=acc_s / max(n_prod, 1),
+        accept_independence=acc_ind / max(n_prod, 1),
+        n_chains=n_chains, n_sweeps=n_sweeps, burn_in=burn,
+    )
+
+
+# --------------------------------------------------------------- own fits
+@dataclass(eq=False)
+class _Own:
+    """A crystal's own single-crystal best fit (F_core = 0)."""
+
+    prob: Any
+    theta: np.ndarray
+    objective: float
+    reduced: float
+    sigma_scale: float
+    core: float  # model core composition [mol%]
+    rim: float  # model rim composition [mol%]
+    cov: np.ndarray | None
+    h1: float = float("inf")  # best chi-square with F_core free too
+
+
+def _own_fit(settings: _Settings, crystal: _Crystal, model) -> _Own:
+    specs = {s.name: s for s in model.parameters}
+    order = [s.name for s in model.parameters]
+    free = [settings.ratio, "f_rim", "retention"]
+    if settings.kd_sd > 0:
+        free.append("kd")
+    free += [n for n in settings.extra_local if n in OPTIONAL_FREE]
+    free += [t[0] for t in settings.trace_params if t[0] in crystal.traces]
+    free = tuple(n for n in order if n in free)
+    fixed = {n: float(specs[n].default) for n in order if n not in free}
+    if "kd" not in free:
+        fixed["kd"] = settings.kd0
+    trace_names = {t[0]: t[1] for t in TRACES[settings.mineral]}
+    traces = tuple(TraceData(ox, trace_names.get(ox, ox), key, param, obs, sig, ok)
+                   for param, (ox, key, obs, sig, ok) in crystal.traces.items())
+    prob = FitProblem(
+        traverse=crystal.traverse, usable=crystal.usable,
+        model=model, names=tuple(order), free=free, fixed=fixed,
+        lower=np.array([specs[n].lower for n in free], dtype=float),
+        upper=np.array([specs[n].upper for n in free], dtype=float),
+        kd0=settings.kd0, kd_sd=settings.kd_sd, distance_um=crystal.distance_um,
+        radius_um=crystal.radius_um, y=crystal.y, sigma=crystal.sigma, traces=traces,
+        robust=settings.robust,
+    )
+    starts, _ = _grid_starts(prob)
+    theta, obj, _, _, _ = _optimise(prob, starts[:3])
+    if not np.isfinite(obj):
+        raise FitError(
+            f"crystal {crystal.name!r}: no start gave a finite model; check the reference "
+            "melt (--melt) and Kd, which must give compositions in range."
+        )
+    z = prob.residuals(prob.params(theta[None, :]), 1)[0]
+    dof = max(prob.n_data - len(free), 1)
+    reduced = float(np.sum(z[:-1] ** 2)) / dof
+    misfit = reduced
+    if settings.robust:
+        misfit = float((1.4826 * np.median(np.abs(z[:-1]))) ** 2)
+    scale = float(np.sqrt(misfit)) if misfit > 1.0 + 3.0 * np.sqrt(2.0 / dof) else 1.0
+    prob = prob.with_sigma_scale(scale)
+    obj_scaled = float(prob.objective(prob.residuals(prob.params(theta[None, :]), 1))[0])
+    edge = prob.predict(prob.params(theta[None, :]), np.array([0.0, crystal.radius_um]))
+    crystal_edge = np.reshape(edge["crystal"], -1)
+    cov = laplace_covariance(prob, prob.to_sampler(theta)[0])
+    return _Own(prob=prob, theta=theta, objective=obj_scaled, reduced=reduced,
+                sigma_scale=scale, core=float(crystal_edge[0]), rim=float(crystal_edge[1]),
+                cov=cov)
+
+
+def _own_estimates(own: _Own, settings: _Settings, rng):
+    """Bands of the own fit from the Laplace approximation (sampler coordinates).
+
+    Returns the estimates and the draws (None when no approximation exists).
+    """
+    prob = own.prob
+    specs = {s.name: s for s in prob.model.parameters}
+    u = prob.to_sampler(own.theta)[0]
+    lo, hi = prob.sampler_bounds()
+    out = {}
+    draws = None
+    if own.cov is not None:
+        try:
+            chol = np.linalg.cholesky(_sym(own.cov))
+            z = u + rng.standard_normal((4000, u.size)) @ chol.T
+            z = z[np.all((z > lo) & (z < hi), axis=1)]
+            th = prob.from_sampler(z)
+            th = th[np.all((th >= prob.lower) & (th <= prob.upper), axis=1)]
+            draws = th if th.shape[0] >= 100 else None
+        except np.linalg.LinAlgError:
+            draws = None
+    for j, name in enumerate(prob.free):
+        if name not in (settings.ratio, "f_rim", "retention", "kd"):
+            continue
+        spec = specs[name]
+        if draws is None:
+            e = Estimate(name=name, unit=spec.unit, best=float(own.theta[j]),
+                         best_fit=float(own.theta[j]), lower=spec.lower, upper=spec.upper,
+                         constrained=False,
+                         note="own fit: no usable Laplace approximation")
+        else:
+            e = _estimate(name, spec.unit, own.theta[j], draws[:, j], spec.lower, spec.upper)
+            e = _replace(e, note=(e.note + "; " if e.note else "")
+                         + "crystal's own fit, Laplace approximation")
+        out[name] = e
+    return out, draws
+
+
+def _replace(e, **kw):
+    from dataclasses import replace
+
+    return replace(e, **kw)
+
+
+# ------------------------------------------------------------------ starts
+def _path_crystal(settings: _Settings, grid, y0, r, kd, traces):
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        params = {settings.ratio: y0, "retention": r, "kd": kd}
+        params.update(traces)
+        return np.asarray(settings.model.path(grid, strict=False, **params)["crystal"])
+
+
+def _start(joint: _Joint, owns: Sequence[_Own], y0: float) -> np.ndarray:
+    """Joint start: the crystals' own cores and rims placed on one path."""
+    s = joint.s
+    v = np.zeros(joint.D)
+    thetas = [dict(zip(o.prob.free, o.theta, strict=True)) for o in owns]
+    r = float(np.clip(np.median([t.get("retention", 0.0) for t in thetas]), 0.02, 0.98))
+    traces = {}
+    for param, _k, _o in s.trace_params:
+        vals = [t[param] for t in thetas if param in t]
+        traces[param] = float(np.median(vals)) if vals else joint._default(param)
+    fmax = float(s.model.max_fraction(**{s.ratio: y0}))
+    grid = np.linspace(0.0, min(0.95, 0.98 * fmax), 400)
+    path = _path_crystal(s, grid, y0, r, s.kd0, traces)
+    ok = np.isfinite(path)
+    grid, path = grid[ok], path[ok]
+
+    def place(x):
+        if path.size < 2:
+            return 0.1
+        return float(np.interp(-x, -path, grid)) if path[0] >= path[-1] else float(
+            np.interp(x, path, grid))
+
+    rims = np.array([place(o.rim) for o in owns])
+    f_rim_shared = float(np.clip(np.median(rims), 0.01, 0.94))
+    for name in joint.shared:
+        i = joint.index(name)
+        if name == s.ratio:
+            v[i] = y0
+        elif name == "f_rim":
+            v[i] = f_rim_shared
+        elif name == "retention":
+            v[i] = r
+        elif name == "retention_mu":
+            v[i] = float(np.log(r / (1.0 - r)))
+        elif name == "retention_tau":
+            v[i] = 0.5
+        elif name == "kd":
+            v[i] = s.kd0
+        else:
+            v[i] = traces[name]
+    for c, o in enumerate(owns):
+        f_rim_c = f_rim_shared if "f_rim" in joint.shared else float(np.clip(rims[c], 0.01,
+                                                                                0.94))
+        for name in joint.local:
+            i = joint.index(name, c)
+            if name == "f_core_fraction":
+                v[i] = float(np.clip(place(o.core) / f_rim_c, 0.0, 0.95))
+            elif name == "f_rim":
+                v[i] = f_rim_c
+            elif name == "retention_z":
+                v[i] = 0.0
+            else:
+                v[i] = thetas[c].get(name, joint._default(name))
+    return np.clip(v, joint.lower, joint.upper)
+
+
+def _anchor(joint: _Joint, v: np.ndarray, exclude: int | None = None) -> int:
+    """Fix F_core = 0 for the crystal with the smallest F_core; return its index."""
+    cols = [joint.index("f_core_fraction", c) for c in range(joint.C)]
+    values = np.array([v[i] for i in cols], dtype=float)
+    if exclude is not None:
+        values[exclude] = np.inf
+    a = int(np.argmin(values))
+    joint.fixed[:] = False
+    joint.fixed[cols[a]] = True
+    v[cols[a]] = 0.0
+    return a
+
+
+def _best_joint(settings, crystals, owns, starts=None):
+    """Anchored best fit of a set of crystals: (joint, v, objective, anchor)."""
+    joint = _Joint(settings, crystals)
+    if starts is None:
+        y_own = np.array([dict(zip(o.prob.free, o.theta, strict=True))[settings.ratio]
+                          for o in owns])
+        levels = sorted({float(np.max(y_own)), float(np.median(y_own))}, reverse=True)
+        starts = [_start(joint, owns, y) for y in levels]
+    best = (None, np.inf, 0)
+    for v0 in starts:
+        v0 = np.array(v0, dtype=float)
+        a = _anchor(joint, v0)
+        v, obj = _fit_joint(joint, [v0])
+        if obj < best[1]:
+            best = (v, obj, a)
+    v, obj, a = best
+    joint.fixed[:] = False
+    joint.fixed[joint.index("f_core_fraction", a)] = True
+    return joint, v, obj, a
+
+
+# --------------------------------------------------------------- screening
+def _h1_settings(settings: _Settings) -> _Settings:
+    from dataclasses import replace
+
+    return replace(settings, f_rim_mode="shared", retention_mode="shared")
+
+
+def _to_h1(joint: _Joint, v: np.ndarray, c: int, h1: _Joint) -> np.ndarray:
+    """Crystal c of a joint vector as a single-crystal vector with its own everything."""
+    p = joint.rows(v[None, :])
+    row = {k: float(np.reshape(val, (-1, joint.C))[0, c]) for k, val in p.items()}
+    out = np.zeros(h1.D)
+    for name in h1.shared:
+        out[h1.index(name)] = row.get(name, joint.s.kd0 if name == "kd" else 0.0)
+    for name in h1.local:
+        i = h1.index(name, 0)
+        if name == "f_core_fraction":
+            out[i] = row["f_core"] / max(row["f_rim"], 1e-9)
+        else:
+            out[i] = row[name]
+    return np.clip(out, h1.lower, h1.upper)
+
+
+def _own_to_h1(own: _Own, h1: _Joint) -> np.ndarray:
+    theta = dict(zip(own.prob.free, own.theta, strict=True))
+    theta.update({k: v for k, v in own.prob.fixed.items() if k not in theta})
+    out = np.zeros(h1.D)
+    for name in h1.shared:
+        out[h1.index(name)] = theta.get(name, h1._default(name) if name != "kd" else
+                                        h1.s.kd0)
+    for name in h1.local:
+        out[h1.index(name, 0)] = 0.0 if name == "f_core_fraction" else theta.get(
+            name, h1._default(name))
+    return np.clip(out, h1.lower, h1.upper)
+
+
+def _h1_value(settings, crystal, own, starts) -> tuple[float, int]:
+    """Chi-square of crystal alone with every parameter its own (F_core free).
+
+    With F_core free the parent melt of one crystal lies on a nearly flat
+    ridge; a few iterations from each start reach its floor (the chi-square
+    changes by hundredths along it), so the iterations are capped.
+    """
+    h1 = _Joint(_h1_settings(settings), [crystal])
+    starts = list(starts(h1))
+    if not np.isfinite(own.h1):
+        starts.insert(0, _own_to_h1(own, h1))
+    _, obj = _fit_joint(h1, starts, max_nfev=H1_MAX_EVALS)
+    own.h1 = min(own.h1, obj, own.objective)
+    return own.h1, h1.D
+
+
+@dataclass(eq=False)
+class _Screen:
+    members: list  # indices into the crystal list, consistent
+    flagged: list  # indices set apart, in the order they were set apart
+    stats: dict  # index -> (T, d, p)
+    disagree_pair: bool = False
+
+
+def _lr_stats(settings, crystals, owns, members):
+    """T, d, p of every member of a set (leave-one-out likelihood ratio)."""
+    sub = [crystals[i] for i in members]
+    joint, v, obj, anchor = _best_joint(settings, sub, [owns[i] for i in members])
+    out = {}
+    for pos, k in enumerate(members):
+        rest = [i for i in members if i != k]
+        h1, d_h1 = _h1_value(settings, crystals[k], owns[k],
+                             lambda h, pos=pos: [_to_h1(joint, v, pos, h)])
+        n_local_free = joint.Q
+        if len(rest) == 1:
+            loo = owns[rest[0]].h1 if np.isfinite(owns[rest[0]].h1) else _h1_value(
+                settings, crystals[rest[0]], owns[rest[0]], lambda h: [])[0]
+        else:
+            jk = _Joint(settings, [crystals[i] for i in rest])
+            keep = np.concatenate([np.arange(joint.S)] + [
+                joint.S + c * joint.Q + np.arange(joint.Q) for c in range(joint.C) if c != pos])
+            v0 = v[keep].copy()
+            _anchor(jk, v0)
+            _, loo = _fit_joint(jk, [v0])
+        t = max(obj - loo - h1, 0.0)
+        d = max(d_h1 - n_local_free, 1)
+        out[k] = (float(t), int(d), float(stats.chi2.sf(t, d)))
+    return out, (joint, v, obj, anchor)
+
+
+def _screen(settings, crystals, owns, members) -> _Screen:
+    members = list(members)
+    flagged, record = [], {}
+    disagree = False
+    while len(members) >= 2:
+        st, _ = _lr_stats(settings, crystals, owns, members)
+        record.update(st)
+        threshold = ALPHA / len(members)
+        worst = min(members, key=lambda i: st[i][2])
+        if st[worst][2] >= threshold:
+            break
+        if len(members) == 2:
+            disagree = True  # two crystals that disagree: which one is the outsider?
+            break
+        flagged.append(worst)
+        members.remove(worst)
+    return _Screen(members=members, flagged=flagged, stats=record, disagree_pair=disagree)
+
+
+# ------------------------------------------------------------ group results
+@dataclass(eq=False)
+class _Group:
+    joint: _Joint
+    v: np.ndarray
+    objective: float
+    anchor: int
+    chain: _Chain
+    flat: np.ndarray  # (k, D) full natural vectors
+    estimates: dict
+    crystal_estimates: list
+    spots: list
+    curves: list
+    path: pd.DataFrame
+    chi2_crystal: np.ndarray
+    warnings: list
+
+
+def _shared_estimates(joint: _Joint, v: np.ndarray, flat: np.ndarray, rng) -> tuple[dict, list]:
+    s = joint.s
+    specs = {sp.name: sp for sp in s.model.parameters}
+    notes = []
+    est: dict[str, Estimate] = {}
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        reach = np.asarray(s.model.max_fraction(**{s.ratio: flat[:, 0]}), dtype=float)
+    f_reach = float(np.nanmax(reach)) if reach.size else 0.95
+    for name in joint.shared:
+        i = joint.index(name)
+        if name == "retention_mu":
+            draws = _expit(flat[:, i])
+            e = _estimate("retention", "1", float(_expit(v[i])), draws, 0.0, 1.0)
+            e = _replace(e, note=(e.note + "; " if e.note else "")
+                         + "population median of the crystals' r (hierarchical)")
+            est["retention"] = e
+            continue
+        if name == "retention_tau":
+            lo, hi = TAU_BOUNDS
+            e = _estimate("retention_spread", "1", v[i], flat[:, i], lo, hi)
+            e = _replace(e, note=(e.note + "; " if e.note else "")
+                         + "sd of logit r between crystals")
+            est["retention_spread"] = e
+            continue
+        lo, hi = s.bounds(name)
+        if name == "f_rim":
+            hi = min(hi, f_reach)
+        est[name] = _estimate(name, specs[name].unit, v[i], flat[:, i], lo, hi)
+    if "kd" not in joint.shared:
+        sp = specs["kd"]
+        est["kd"] = Estimate(name="kd", unit="1", best=s.kd0, median=s.kd0, lo95=s.kd0,
+                             hi95=s.kd0, best_fit=s.kd0, lower=sp.lower, upper=sp.upper,
+                             constrained=True,
+                             note=f"kd fixed at {s.kd0:g}")
+    else:
+        sd = float(np.std(flat[:, joint.index("kd")]))
+        if sd > 0.8 * s.kd_sd:
+            est["kd"] = _replace(est["kd"], note=f"kd set by its prior ({s.kd0:g} +/- "
+                                 f"{s.kd_sd:g}), hardly by these data")
+    # derived: parent melt oxide and temperature at F = 0
+    pick = flat[rng.choice(flat.shape[0], size=min(4000, flat.shape[0]), replace=False)]
+    oxide = _MELT_OXIDE[s.mineral]
+
+    def parent(vs):
+        p = joint.rows(vs)
+        params = {s.ratio: p[s.ratio][:: joint.C], "kd": p["kd"][:: joint.C],
+                  "retention": np.zeros(vs.shape[0])}
+        for param, _k, _o in s.trace_params:
+            params[param] = p[param][:: joint.C]
+        with np.errstate(all="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            out = s.model.path(np.array([0.0]), strict=False, **params)
+        return {"melt_oxide": np.reshape(out[oxide], -1),
+                "temperature_c": np.reshape(out["temperature_c"], -1)}
+
+    pb, pd_ = parent(v[None, :]), parent(pick)
+    ratio_e = est[s.ratio]
+    derived = [("melt_oxide", oxide, "wt%")]
+    if s.mineral == "olivine":
+        derived.append(("temperature_c", "temperature_c", "°C"))
+    for key, name, unit in derived:
+        b = float(pb[key][0])
+        if not np.isfinite(b):
+            continue
+        med, lo, hi, _ = credible_band(pd_[key], -np.inf, np.inf)
+        est[name] = Estimate(name=name, unit=unit, best=med if np.isfinite(med) else b,
+                             median=med, lo95=lo, hi95=hi, best_fit=b,
+                             constrained=ratio_e.constrained,
+                             note="derived from " + s.ratio + " and the reference melt")
+    for e in est.values():
+        if not e.constrained:
+            notes.append(e.note)
+    return est, notes
+
+
+def _crystal_estimates(joint: _Joint, v, flat, anchor) -> list[dict]:
+    out = []
+    rb = joint.rows(v[None, :])
+    rd = joint.rows(flat)
+    for c in range(joint.C):
+        est = {}
+        if c == anchor:
+            est["f_core"] = Estimate(
+                name="f_core", unit="1", best=0.0, median=0.0, lo95=0.0, hi95=0.0,
+                best_fit=0.0,
+                lower=0.0, upper=0.95, constrained=True,
+                note="0 by definition: F counts from this crystal's nucleation (anchor)")
+        else:
+            est["f_core"] = _estimate("f_core", "1", rb["f_core"][c],
+                                      rd["f_core"][c:: joint.C], 0.0, 0.95)
+        if "f_rim" in joint.local:
+            est["f_rim"] = _estimate("f_rim", "1", rb["f_rim"][c], rd["f_rim"][c:: joint.C],
+                                     0.0, 0.95)
+        if joint.hier:
+            est["retention"] = _estimate("retention", "1", rb["retention"][c],
+                                         rd["retention"][c:: joint.C], 0.0, 1.0)
+        for name in joint.s.extra_local:
+            lo, hi = joint.s.bounds(name)
+            est[name] = _estimate(name, {s.name: s.unit for s in joint.s.model.parameters}[
+                name], rb[name][c], rd[name][c:: joint.C], lo, hi)
+        out.append(est)
+    return out
+
+
+def _crystal_tables(joint: _Joint, v, draws, settings, include_flagged, rng_range):
+    """Spot tables and dense curves of every crystal with the joint band."""
+    C = joint.C
+    pts_all, n_spot = [], []
+    for cr in joint.crystals:
+        d = cr.traverse.spots["distance_um"].to_numpy(float)
+        d = d[np.isfinite(d)]
+        grid = np.linspace(0.0, cr.radius_um, N_CURVE_POINTS)
+        pts_all.append(np.concatenate([np.abs(d), grid]))
+        n_spot.append(d.size)
+    n = max(p.size for p in pts_all)
+    D = np.zeros((C, n))
+    for c, p in enumerate(pts_all):
+        D[c, : p.size] = p
+        D[c, p.size :] = p[-1] if p.size else 0.0
+    best = joint.predict(v[None, :], D)
+    band = joint.predict(draws, D)
+    keys = ["crystal"] + [k for _p, k, _o in settings.trace_params]
+    spots_out, curves_out = [], []
+    for c, cr in enumerate(joint.crystals):
+        tr = cr.traverse
+        spots = tr.spots
+        k = n_spot[c]
+        size = pts_all[c].size
+        finite = np.isfinite(spots["distance_um"].to_numpy(float))
+        q = {key: np.nanpercentile(band[key][:, c, :size], [2.5, 97.5], axis=0) for key in keys}
+        b = {key: best[key][0, c, :size] for key in keys}
+        f_best = best["f"][0, c, :size]
+        nn = len(spots)
+
+        def at_spots(arr, nn=nn, finite=finite, k=k):
+            out = np.full(nn, np.nan)
+            out[finite] = arr[:k]
+            return out
+
+        used_idx = set(cr.usable.index)
+        used = np.array([i in used_idx for i in spots.index])
+        sig = np.full(nn, DEFAULT_SIGMA[settings.mineral])
+        col = "fo_sigma" if settings.mineral == "olivine" else "an_sigma"
+        if col in spots.columns:
+            fs = spots[col].to_numpy(float)
+            sig = np.where(np.isfinite(fs) & (fs > 0), fs, sig)
+        pos = {idx: j for j, idx in enumerate(cr.usable.index)}
+        for idx, j in pos.items():
+            sig[spots.index.get_loc(idx)] = cr.sigma[j]
+        observed = spots[tr.major].to_numpy(float)
+        model_v = at_spots(b["crystal"])
+        reason = spots["reason"].astype(str).to_numpy().copy()
+        if rng_range is not None:
+            dd = spots["distance_um"].to_numpy(float)
+            outside = finite & ((dd < rng_range[0]) | (dd > rng_range[1]))
+            extra = f"outside the fitted range {rng_range[0]:g}-{rng_range[1]:g} µm"
+            reason = np.where(outside, np.where(reason == "", extra, reason + "; " + extra),
+                              reason)
+        table = {
+            "row": spots["row"].to_numpy() if "row" in spots.columns else np.arange(1, nn + 1),
+            "point": spots["point"].astype(str).to_numpy() if "point" in spots.columns
+            else np.arange(1, nn + 1).astype(str),
+            "distance_um": spots["distance_um"].to_numpy(float),
+            "f": at_spots(f_best),
+            "observed": observed,
+            "sigma": sig,
+            "model": model_v,
+            "model_lo95": at_spots(q["crystal"][0]),
+            "model_hi95": at_spots(q["crystal"][1]),
+            "residual": observed - model_v,
+            "normalized_residual": (observed - model_v) / (sig * cr.sigma_scale),
+            "used": used,
+            "status": spots["status"].astype(str).to_numpy(),
+            "reason": reason,
+        }
+        curve = {
+            "distance_um": pts_all[c][k:],
+            "f": f_best[k:],
+            "best": b["crystal"][k:],
+            "lo95": q["crystal"][0][k:],
+            "hi95": q["crystal"][1][k:],
+        }
+        for param, key, oxide in settings.trace_params:
+            if param not in cr.traces:
+                continue
+            obs = spots[oxide].to_numpy(float)
+            mv = at_spots(b[key])
+            table[f"{oxide}_observed"] = obs
+            table[f"{oxide}_sigma"] = np.full(nn, float(cr.traces[param][3][0]))
+            table[f"{oxide}_model"] = mv
+            table[f"{oxide}_model_lo95"] = at_spots(q[key][0])
+            table[f"{oxide}_model_hi95"] = at_spots(q[key][1])
+            table[f"{oxide}_residual"] = obs - mv
+            curve[f"{oxide}_best"] = b[key][k:]
+            curve[f"{oxide}_lo95"] = q[key][0][k:]
+            curve[f"{oxide}_hi95"] = q[key][1][k:]
+        spots_out.append(pd.DataFrame(table))
+        curves_out.append(pd.DataFrame(curve))
+    return spots_out, curves_out
+
+
+def _melt_path(joint: _Joint, v, draws) -> pd.DataFrame:
+    s = joint.s
+    rows = joint.rows(v[None, :])
+    f_end = float(np.max(rows["f_rim"]))
+    grid = np.linspace(0.0, f_end, 120)
+
+    def evaluate(vs):
+        p = joint.rows(vs)
+        params = {s.ratio: p[s.ratio][:: joint.C], "kd": p["kd"][:: joint.C]}
+        if joint.hier:
+            params["retention"] = _expit(vs[:, joint.index("retention_mu")])
+        else:
+            params["retention"] = p["retention"][:: joint.C]
+        with np.errstate(all="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            out = s.model.path(grid, strict=False, **params)
+        return np.reshape(out["melt_ratio"], (vs.shape[0], -1)), np.reshape(
+            out["crystal"], (vs.shape[0], -1))
+
+    mb, cb = evaluate(v[None, :])
+    md, cd = evaluate(draws)
+    mq = np.nanpercentile(md, [2.5, 97.5], axis=0)
+    cq = np.nanpercentile(cd, [2.5, 97.5], axis=0)
+    return pd.DataFrame({"f": grid, "melt_ratio": mb[0], "melt_ratio_lo95": mq[0],
+                         "melt_ratio_hi95": mq[1], "crystal": cb[0], "crystal_lo95": cq[0],
+                         "crystal_hi95": cq[1]})
+
+
+def _param_names(joint: _Joint, idx) -> list[str]:
+    """Names of parameter entries: ``<name>`` shared, ``<name>[<crystal>]`` per crystal."""
+    out = []
+    for i in idx:
+        if i < joint.S:
+            out.append(joint.shared[i])
+        else:
+            c, q = divmod(int(i) - joint.S, joint.Q)
+            out.append(f"{joint.local[q]}[{joint.crystals[c].name}]")
+    return out
+
+
+def _fit_group(settings, crystals, owns, *, n_chains, n_sweeps, seed, include_flagged,
+               rng_range) -> _Group:
+    joint, v, obj, anchor = _best_joint(settings, crystals, owns)
+    if not np.isfinite(obj):
+        raise FitError(
+            f"no start gave a finite joint model for crystals "
+            f"{', '.join(c.name for c in crystals)}; check the reference melt (--melt) and Kd."
+        )
+    cov = _laplace(joint, v)
+    try:
+        chain = _sample(joint, v, cov, n_chains=n_chains, n_sweeps=n_sweeps, seed=seed)
+    except np.linalg.LinAlgError as exc:
+        raise FitError(
+            f"posterior sampling of the joint fit failed ({exc}); try another --seed or "
+            "fewer free parameters."
+        ) from exc
+    free = np.flatnonzero(~joint.fixed)
+    draws = chain.draws.reshape(-1, free.size)
+    flat = np.repeat(v[None, :], draws.shape[0], axis=0)
+    flat[:, free] = draws
+    rng = np.random.default_rng(seed + 1)
+    est, notes = _shared_estimates(joint, v, flat, rng)
+    cest = _crystal_estimates(joint, v, flat, anchor)
+    pick = flat[rng.choice(flat.shape[0], size=min(N_CURVE_DRAWS, flat.shape[0]),
+                           replace=False)]
+    spots, curves = _crystal_tables(joint, v, pick, settings, include_flagged, rng_range)
+    path = _melt_path(joint, v, pick)
+    per, _ = joint.chi2_blocks(v[None, :])
+    block, _ = joint.residual_blocks(v[None, :])
+    nd = joint._n_data_block()
+    chi2_c = (block[0, :, :nd] ** 2).sum(axis=1)
+    warn = list(notes)
+    names = _param_names(joint, free)
+    short = [n for n, e, r in zip(names, chain.ess, chain.rhat, strict=True)
+             if e < MIN_ESS or r > MAX_RHAT]
+    if short:
+        factor = max(MIN_ESS / float(np.min(chain.ess)), 2.0 if np.max(chain.rhat) > MAX_RHAT
+                     else 1.25)
+        need = int(np.ceil(n_sweeps * factor / 100) * 100)
+        warn.append(
+            f"posterior chains too short for {', '.join(short[:4])}"
+            + (f" and {len(short) - 4} more" if len(short) > 4 else "")
+            + f" (lowest effective sample size {float(np.min(chain.ess)):.0f}, largest "
+            f"R-hat {float(np.max(chain.rhat)):.3f}); run longer: --steps {need}."
+        )
+    return _Group(joint=joint, v=v, objective=obj, anchor=anchor, chain=chain, flat=flat,
+                  estimates=est, crystal_estimates=cest, spots=spots, curves=curves,
+                  path=path, chi2_crystal=chi2_c, warnings=warn)
+
+
+# ---------------------------------------------------------------- the API
+def _kd_prior(mineral, kd, kd_sd, model) -> tuple[float, float]:
+    specs = {s.name: s for s in model.parameters}
+    if kd is not None:
+        kd0 = float(kd)
+    elif mineral in KD_PRIOR:
+        kd0 = KD_PRIOR[mineral][0]
+    else:
+        kd0 = float(specs["kd"].default)
+    if kd_sd is None:
+        kd_sd = (KD_PRIOR[mineral][1] if kd is None and mineral in KD_PRIOR
+                 else KD_RELATIVE_SD[mineral] * kd0)
+    kd_sd = float(kd_sd)
+    if not (np.isfinite(kd0) and kd0 > 0 and np.isfinite(kd_sd) and kd_sd >= 0):
+        raise ZoningError(
+            f"Kd prior must be a positive mean and a non-negative sd; got {kd0!r} +/- "
+            f"{kd_sd!r}. Give e.g. --kd 0.30 --kd-sd 0.03."
+        )
+    return kd0, kd_sd
+
+
+def _unique_names(traverses) -> list[str]:
+    names = [t.name for t in traverses]
+    out, seen = [], set()
+    for t, n in zip(traverses, names, strict=True):
+        name = n
+        if names.count(n) > 1:
+            from pathlib import Path
+
+            name = f"{Path(str(t.source)).stem} {n}"
+        k = 2
+        base = name
+        while name in seen:
+            name, k = f"{base} ({k})", k + 1
+        seen.add(name)
+        out.append(name)
+    return out
+
+
+def _radius_of(traverse, radius_um, name):
+    if isinstance(radius_um, Mapping):
+        value = radius_um.get(name, radius_um.get(traverse.name))
+    else:
+        value = radius_um
+    if value is None:
+        d = traverse.spots["distance_um"].to_numpy(float)
+        d = d[np.isfinite(d)]
+        value = float(np.max(np.abs(d))) if d.size else float("nan")
+    value = float(value)
+    if not (np.isfinite(value) and value > 0):
+        raise ZoningError(
+            f"crystal radius must be a positive number [µm]; got {value!r} for crystal "
+            f"{name!r}. Give radius_um / --radius-um."
+        )
+    return value
+
+
+def fit_sample(
+    traverses: Sequence[Traverse],
+    *,
+    melt: Mapping[str, float],
+    name: str | None = None,
+    kd: float | None = None,
+    kd_sd: float | None = None,
+    fe3_fraction: float = 0.10,
+    geometry: str = "sphere",
+    distance_range: tuple[float, float] | None = None,
+    radius_um: float | Mapping[str, float] | None = None,
+    free: Sequence[str] = (),
+    sigma: float | Mapping | None = None,
+    trace_sigma: float | Mapping[str, float] | None = None,
+    traces: str | Sequence[str] | None = "auto",
+    include_flagged: bool = False,
+    robust: bool = False,
+    temperature_c: float | None = None,
+    f_rim: str = "shared",
+    retention: str = "shared",
+    exclude: Sequence[str] = (),
+    seed: int = 0,
+    n_chains: int = N_CHAINS,
+    n_sweeps: int | None = None,
+) -> SampleFitResult:
+    """Fit the crystals of one sample jointly: one parent melt, Kd and r.
+
+    Parameters
+    ----------
+    traverses : sequence of zoning.Traverse
+        One traverse per crystal, all of one mineral (at least two).
+    melt : mapping of str to float
+        Reference melt analysis [wt%], as for :func:`fit_traverse`.
+    name : str, optional
+        Sample name (default: the traverse names' common part, else "sample").
+    kd, kd_sd, fe3_fraction, geometry, distance_range, sigma, trace_sigma, traces,
+    include_flagged, robust, temperature_c
+        As for :func:`zoning.fitting.fit_traverse`; they apply to every
+        crystal. The Kd prior enters the sample's posterior once.
+    radius_um : float or mapping of str to float, optional
+        Crystal radius [µm], one value for all or by crystal name; default
+        the largest distance of each traverse.
+    free : sequence of str, optional
+        Extra per-crystal parameters: ``"growth_exponent"``,
+        ``"core_offset_um"`` (F_core is always fitted per crystal).
+    f_rim : {"shared", "per_crystal"}, optional
+        One F at the rim for all crystals (erupted together; default) or one
+        per crystal.
+    retention : {"shared", "hierarchical"}, optional
+        One r for the sample (default) or one per crystal drawn from a
+        population (logit-normal; module docstring).
+    exclude : sequence of str, optional
+        Crystal names to leave out (reported as "excluded").
+    seed : int, optional
+        Seed of every random step.
+    n_chains, n_sweeps : int, optional
+        Sampler chains and sweeps per chain (burn-in, the first
+        :data:`BURN_FRACTION`, included); default sweeps
+        :data:`DEFAULT_N_SWEEPS` of the mineral.
+
+    Returns
+    -------
+    SampleFitResult
+
+    Raises
+    ------
+    zoning.exceptions.ZoningError
+        Invalid settings, mixed minerals, unknown names in ``exclude``,
+        fewer than two crystals to fit.
+    zoning.exceptions.FitError
+        A crystal has too few usable spots, or no model is finite.
+
+    Warns
+    -----
+    DataQualityWarning
+        Likely antecrysts, two melts, reversals.
+    ConvergenceWarning
+        Chains too short.
+    """
+    from zoning.fitting.diagnostics import find_reversals
+
+    t_start = time.perf_counter()
+    traverses = list(traverses)
+    if not traverses or not all(isinstance(t, Traverse) for t in traverses):
+        raise ZoningError(
+            "fit_sample needs a list of traverses (one per crystal) from read_traverses; got "
+            f"{type(traverses).__name__} of {len(traverses)} items."
+        )
+    minerals = sorted({t.mineral for t in traverses})
+    if len(minerals) != 1 or minerals[0] not in MINERALS:
+        raise ZoningError(
+            f"the crystals of one joint fit must be of one mineral; got {minerals}. Fit each "
+            "mineral as its own sample (or pass --mineral when reading)."
+        )
+    mineral = minerals[0]
+    for key, value in (("f_rim", f_rim), ("retention", retention)):
+        if value not in _SHARED_OPTIONS[key]:
+            raise ZoningError(
+                f"{key} sharing {value!r} not understood; expected one of "
+                f"{list(_SHARED_OPTIONS[key])} (--joint-{key.replace('_', '-')})."
+            )
+    extra = tuple(n for n in free if n != "f_core")
+    unknown = [n for n in extra if n not in OPTIONAL_FREE]
+    if unknown:
+        raise ZoningError(
+            f"cannot free {unknown} per crystal; expected any of {list(OPTIONAL_FREE)}."
+        )
+    names = _unique_names(traverses)
+    exclude = tuple(exclude)
+    missing = [e for e in exclude if e not in names and e not in [t.name for t in traverses]]
+    if missing:
+        raise ZoningError(
+            f"--exclude names {missing} are not crystals of this sample; the crystals are "
+            f"{names}. Give names from this list (comma-separated)."
+        )
+    is_excluded = [n in exclude or t.name in exclude for n, t in zip(names, traverses,
+                                                                      strict=True)]
+    active = [i for i, x in enumerate(is_excluded) if not x]
+    if len(active) < 2:
+        raise ZoningError(
+            f"a joint fit needs at least two crystals; {len(active)} left after --exclude "
+            f"(crystals {names}). Fit a single crystal without --joint."
+        )
+    sample_name = name or _common_name([t.name for t in traverses])
+    n_sweeps = int(DEFAULT_N_SWEEPS[mineral] if n_sweeps is None else n_sweeps)
+    if n_sweeps < 100:
+        raise ZoningError(f"n_sweeps must be at least 100; got {n_sweeps}. Use e.g. --steps 1200.")
+    n_chains = int(n_chains)
+    if n_chains < 4:
+        raise ZoningError(f"n_chains must be at least 4; got {n_chains}. Use e.g. --walkers 32.")
+    rng_range = _parse_range(distance_range)
+    ratio = _RATIO[mineral]
+
+    # --- data of every crystal -------------------------------------------
+    sig_major, sig_trace = _split_sigma(sigma, trace_sigma, mineral)
+    crystals: list[_Crystal] = []
+    chosen_all: dict[str, tuple] = {}
+    skipped = []
+    for i, tr in enumerate(traverses):
+        usable = tr.usable(include_flagged)
+        if rng_range is not None:
+            dd = usable["distance_um"].to_numpy(float)
+            usable = usable[(dd >= rng_range[0]) & (dd <= rng_range[1])]
+        chosen = [(t.oxide, t.name, t.key, t.param, t.observed, t.sigma, t.finite)
+                  for t in _select_traces(tr, usable, mineral, traces, sig_trace)]
+        if mineral == "plagioclase" and temperature_c is None and chosen:
+            if traces == "auto":
+                skipped = [c[0] for c in chosen]
+                chosen = []
+            else:
+                raise ZoningError(
+                    f"fitting {[c[0] for c in chosen]} in plagioclase needs the temperature of "
+                    "the partitioning laws; got none. Give temperature_c (--temperature-c)."
+                )
+        sig, source = _major_sigma(usable, mineral, sig_major)
+        crystals.append(_Crystal(
+            name=names[i], traverse=tr, usable=usable,
+            distance_um=usable["distance_um"].to_numpy(float),
+            radius_um=_radius_of(tr, radius_um, names[i]),
+            y=usable[tr.major].to_numpy(float), sigma=sig, sigma_source=source,
+            traces={c[3]: (c[0], c[2], c[4], c[5], c[6]) for c in chosen},
+        ))
+        if not is_excluded[i]:
+            for c in chosen:
+                chosen_all.setdefault(c[3], (c[3], c[2], c[0], c[1]))
+    model = _build_model(mineral, melt, kd, fe3_fraction,
+                         [v[3] for v in chosen_all.values()], geometry, temperature_c)
+    kd0, kd_sd_v = _kd_prior(mineral, kd, kd_sd, model)
+    settings = _Settings(
+        model=model, mineral=mineral, ratio=ratio, kd0=kd0, kd_sd=kd_sd_v,
+        f_rim_mode=f_rim, retention_mode=retention, extra_local=extra,
+        trace_params=tuple((p, key, ox) for p, key, ox, _n in chosen_all.values()),
+        robust=bool(robust),
+    )
+    n_own = 4 + len(extra) + len(settings.trace_params)
+    for i in active:
+        cr = crystals[i]
+        if cr.y.size < n_own + 2:
+            raise FitError(
+                f"crystal {cr.name!r} has {cr.y.size} usable spots; at least {n_own + 2} are "
+                "needed. Leave it out (--exclude) or check its flagged spots."
+            )
+
+    # --- every crystal alone -----------------------------------------------
+    warn_list: list[str] = []
+    owns: dict[int, _Own] = {}
+    own_est: dict[int, dict] = {}
+    own_draws: dict[int, Any] = {}
+    rng = np.random.default_rng(seed + 7)
+    for i in active:
+        owns[i] = _own_fit(settings, crystals[i], model)
+        crystals[i].sigma_scale = owns[i].sigma_scale
+        own_est[i], own_draws[i] = _own_estimates(owns[i], settings, rng)
+        if owns[i].sigma_scale > 1.0:
+            warn_list.append(
+                f"crystal {crystals[i].name!r}: the model does not fit it within the stated "
+                f"uncertainties (reduced chi-square {owns[i].reduced:.2f}); its sigmas were "
+                f"multiplied by {owns[i].sigma_scale:.2f} for the joint fit and the test."
+            )
+        cr = crystals[i]
+        rev = find_reversals(cr.distance_um, cr.y, cr.sigma)
+        if len(rev):
+            warn_list.append(
+                f"crystal {cr.name!r} goes back towards its core composition at "
+                f"{float(rev['start_um'].iloc[0]):g}-{float(rev['end_um'].iloc[0]):g} µm "
+                "(recharge or mixing): no closed-system path describes it; consider "
+                "--exclude for it or fitting its segments alone."
+            )
+    t_own = time.perf_counter()
+
+    # --- consistency of the crystals ---------------------------------------
+    screen = _screen(settings, crystals, owns, active)
+    main, set_apart = screen.members, screen.flagged
+    second = _Screen(members=[], flagged=[], stats={})
+    if len(set_apart) >= 2:
+        second = _screen(settings, crystals, owns, set_apart)
+        if second.disagree_pair or len(second.members) < 2:
+            second = _Screen(members=[], flagged=list(set_apart), stats=second.stats)
+    t_screen = time.perf_counter()
+    n_active = len(active)
+    no_answer = screen.disagree_pair or (
+        len(second.members) >= 2 and len(main) < MAJORITY * n_active)
+    verdict = "one melt"
+    if screen.disagree_pair:
+        verdict = "crystals disagree"
+    elif len(second.members) >= 2:
+        verdict = "two melts" if not no_answer else "two melts, no majority"
+    elif set_apart:
+        verdict = "one melt with antecrysts"
+
+    # --- posterior of each group -----------------------------------------
+    groups: list[tuple[list, _Group]] = []
+    for g, members in enumerate([main, second.members]):
+        if len(members) < 2:
+            continue
+        grp = _fit_group(settings, [crystals[i] for i in members], [owns[i] for i in members],
+                         n_chains=n_chains, n_sweeps=n_sweeps, seed=seed + 101 * g,
+                         include_flagged=include_flagged, rng_range=rng_range)
+        groups.append((members, grp))
+    t_sample = time.perf_counter()
+    main_members, main_grp = groups[0]
+
+    # --- crystals ------------------------------------------------------------
+    from zoning.fitting.summary import _curves
+
+    crystal_fits = []
+    for i, cr in enumerate(crystals):
+        tested = screen.stats.get(i) or second.stats.get(i) or (np.nan, 0, np.nan)
+        if is_excluded[i]:
+            crystal_fits.append(CrystalFit(
+                name=cr.name, traverse=cr.traverse, verdict="excluded", group=0,
+                estimates={}, own_estimates={}, n_spots=cr.traverse.n_spots,
+                n_used=int(cr.y.size)))
+            continue
+        group, grp, pos = 0, None, None
+        for g, (members, gr) in enumerate(groups):
+            if i in members:
+                group, grp, pos = g + 1, gr, members.index(i)
+        if screen.disagree_pair:
+            v_name = "undecided"
+        elif group == 1:
+            v_name = "consistent"
+        elif group == 2:
+            v_name = "second melt"
+        else:
+            v_name = "likely antecryst"
+        own = owns[i]
+        if grp is not None:
+            chi2 = float(grp.chi2_crystal[pos])
+            dof = max(cr.y.size + sum(int(t[4].sum()) for t in cr.traces.values())
+                      - grp.joint.Q, 1)
+            spots, curve, est = grp.spots[pos], grp.curves[pos], grp.crystal_estimates[pos]
+        else:
+            prob = own.prob
+            dr = own_draws[i]
+            dr = own.theta[None, :] if dr is None else dr[:N_CURVE_DRAWS]
+            spots, curve = _curves(
+                dataclasses.replace(prob, options={**prob.options,
+                                                   "distance_range_um": rng_range}),
+                own.theta, own.theta, own.theta, dr)
+            z = prob.residuals(prob.params(own.theta[None, :]), 1)[0]
+            chi2 = float(np.sum(z[:-1] ** 2))
+            dof = max(prob.n_data - len(prob.free), 1)
+            est = {}
+        crystal_fits.append(CrystalFit(
+            name=cr.name, traverse=cr.traverse, verdict=v_name, group=group, estimates=est,
+            own_estimates=own_est[i], consistency_statistic=float(tested[0]),
+            consistency_dof=int(tested[1]), consistency_p=float(tested[2]),
+            chi_square=chi2, reduced_chi_square=chi2 / dof,
+            own_reduced_chi_square=own.reduced, sigma_scale=own.sigma_scale,
+            n_spots=cr.traverse.n_spots, n_used=int(cr.y.size), spots=spots, curve=curve,
+        ))
+
+    # --- statements ----------------------------------------------------------
+    anchor_name = main_grp.joint.crystals[main_grp.anchor].name
+    if screen.disagree_pair:
+        msg = (f"the two crystals {', '.join(crystals[i].name for i in main)} do not share "
+               "one melt (p = {:.2g}); with two crystals the tool cannot tell which one is "
+               "the outsider, so no shared answer is given. Add crystals or fit them "
+               "alone.".format(min(screen.stats[i][2] for i in main)))
+        warn_list.append(msg)
+    for i in set_apart:
+        t, d, p = screen.stats.get(i, (np.nan, 0, np.nan))
+        where = "a second melt" if i in second.members else "a likely antecryst"
+        own_ratio = own_est[i].get(ratio)
+        band = (f"; its own parent melt {ratio} {own_ratio.lo95:.3f}-{own_ratio.hi95:.3f}"
+                if own_ratio is not None and np.isfinite(own_ratio.lo95) else "")
+        warn_list.append(
+            f"crystal {crystals[i].name!r} does not share the melt of the others "
+            f"(likelihood-ratio T = {t:.1f} on {d} dof, p = {p:.2g}): {where}, left out of "
+            f"the shared answer{band}."
+        )
+    if len(second.members) >= 2:
+        g2 = groups[1][1].estimates[ratio]
+        g1 = main_grp.estimates[ratio]
+        msg = (
+            f"the crystals record two melts: {', '.join(crystals[i].name for i in main)} "
+            f"({ratio} {g1.lo95:.3f}-{g1.hi95:.3f}) and "
+            f"{', '.join(crystals[i].name for i in second.members)} "
+            f"({ratio} {g2.lo95:.3f}-{g2.hi95:.3f})"
+        )
+        if no_answer:
+            msg += ("; neither group holds two thirds of the crystals, so the sample is not "
+                    "given one answer (see crystals.csv for each group).")
+        else:
+            msg += "; the summary gives the larger group."
+        warn_list.append(msg)
+    warn_list.append(
+        f"F counts from the nucleation of the earliest crystal ({anchor_name!r}, F_core = 0 by "
+        "definition); the parent melt is the melt that grew its core."
+    )
+    warn_list += main_grp.warnings
+    if len(groups) > 1:
+        warn_list += [f"second melt: {w}" for w in groups[1][1].warnings if "short" in w]
+    if skipped:
+        warn_list.append(
+            f"{', '.join(skipped)} not fitted: the plagioclase partitioning laws need a "
+            "temperature (--temperature-c)."
+        )
+    if robust:
+        warn_list.append("robust (soft-L1) loss used: stray spots are down-weighted.")
+    for w in warn_list:
+        if "does not share" in w or "two melts" in w or "do not share" in w:
+            warnings.warn(f"sample {sample_name!r}: {w}", DataQualityWarning, stacklevel=2)
+        if "too short" in w:
+            warnings.warn(f"sample {sample_name!r}: {w}", ConvergenceWarning, stacklevel=2)
+
+    estimates = dict(main_grp.estimates)
+    if no_answer:
+        estimates = {
+            k: Estimate(name=e.name, unit=e.unit, lower=e.lower, upper=e.upper,
+                        constrained=False,
+                        note="no single answer: the crystals do not share one melt "
+                             "(see the crystals table)")
+            for k, e in estimates.items()
+        }
+    joint = main_grp.joint
+    free_idx = np.flatnonzero(~joint.fixed)
+    pnames = tuple(_param_names(joint, free_idx))
+    samples = main_grp.flat[:, free_idx]
+    with np.errstate(all="ignore"):
+        corr = np.atleast_2d(np.corrcoef(samples, rowvar=False))
+    chi2_total = float(np.sum(main_grp.chi2_crystal))
+    dof_total = max(joint.n_data - free_idx.size, 1)
+    ch = main_grp.chain
+    diagnostics = {
+        "n_chains": float(ch.n_chains), "n_sweeps": float(ch.n_sweeps),
+        "burn_in": float(ch.burn_in), "accept_local": ch.accept_local,
+        "accept_shared": ch.accept_shared, "accept_independence": ch.accept_independence,
+        "seconds_own_fits": t_own - t_start, "seconds_screening": t_screen - t_own,
+        "seconds_sampling": t_sample - t_screen,
+        "seconds_total": time.perf_counter() - t_start,
+        "min_ess": float(np.min(ch.ess)), "max_rhat": float(np.max(ch.rhat)),
+    }
+    for n_, e_, r_ in zip(pnames, ch.ess, ch.rhat, strict=True):
+        diagnostics[f"ess_{n_}"] = float(e_)
+        diagnostics[f"rhat_{n_}"] = float(r_)
+    settings_out = {
+        "mineral": mineral, "melt": {str(k): float(v) for k, v in dict(melt).items()},
+        "kd_prior_mean": kd0, "kd_prior_sd": kd_sd_v, "fe3_fraction": float(fe3_fraction),
+        "geometry": geometry, "distance_range_um": list(rng_range) if rng_range else None,
+        "radius_um": {c.name: c.radius_um for c in crystals}, "free": list(extra),
+        "f_rim": f_rim, "retention": retention, "exclude": list(exclude),
+        "traces": [t[2] for t in settings.trace_params],
+        "include_flagged": bool(include_flagged), "robust": bool(robust),
+        "temperature_c": float("nan") if temperature_c is None else float(temperature_c),
+        "seed": int(seed), "n_chains": n_chains, "n_sweeps": n_sweeps,
+        "consistency_test": "leave-one-out likelihood ratio (Wilks 1938), sequential, "
+                            f"Bonferroni alpha {ALPHA:g}",
+        "sampler": "Metropolis-within-Gibbs, parallel crystal blocks + shear move",
+    }
+    return SampleFitResult(
+        name=sample_name, mineral=mineral, crystals=tuple(crystal_fits), estimates=estimates,
+        group_estimates=tuple(g.estimates for _m, g in groups), verdict=verdict,
+        anchor=anchor_name, parameter_names=pnames, samples=samples, correlation=corr,
+        path=main_grp.path, chi_square=chi2_total, reduced_chi_square=chi2_total / dof_total,
+        n_crystals=len(crystals), n_antecrysts=len(set_apart),
+        n_spots=int(sum(c.traverse.n_spots for c in crystals)),
+        n_used=int(sum(crystals[i].y.size for i in main_members)),
+        excluded=tuple(names[i] for i, x in enumerate(is_excluded) if x),
+        diagnostics=diagnostics, warnings=tuple(warn_list), settings=settings_out,
+        versions=_versions(), seed=int(seed),
+    )
+
+
+def _common_name(names: Sequence[str]) -> str:
+    """Longest common leading part of the crystal names, trimmed ("sample" if none)."""
+    import os
+
+    prefix = os.path.commonprefix(list(names))
+    if len(set(names)) > 1 and prefix and prefix[-1] not in " _-.":
+        cut = max(prefix.rfind(ch) for ch in " _-.")
+        prefix = prefix[: cut + 1] if cut >= 0 else ""
+    return prefix.strip(" _-.") or "sample"

@@ -1,0 +1,99 @@
+"""The published methods a fit rests on, as :class:`zoning.references.MethodUse` records.
+
+:func:`fit_methods` lists what the inversion itself uses (best fit, sampler,
+model choice, the Kd prior, the melt Fe3+/FeT and, when applied, the Birge
+ratio); the forward model lists its own laws (:meth:`CrystallizationModel.methods`).
+``fit_traverse`` stores both in ``FitResult.methods``, from which the report's
+methods paragraph, its reference list and ``fit.json`` are written.
+"""
+
+from __future__ import annotations
+
+import math
+
+from zoning.references import MethodUse
+
+__all__ = ["fit_methods", "FE3_SOURCES"]
+
+#: How the melt Fe3+/FeT of a fit was obtained, in words.
+FE3_SOURCES = {
+    "default": "default value, typical of basalts near the QFM buffer",
+    "given": "given by the user",
+}
+
+
+def fit_methods(
+    mineral: str,
+    *,
+    kd_mean: float,
+    kd_sd: float,
+    kd_default: bool,
+    fe3_fraction: float = math.nan,
+    fe3_source: str = "given",
+    sigma_scale: float = 1.0,
+    sampled: bool = True,
+) -> tuple[MethodUse, ...]:
+    """List the published methods of the inversion of one traverse.
+
+    Parameters
+    ----------
+    mineral : {"olivine", "plagioclase"}
+        The analysed mineral.
+    kd_mean, kd_sd : float
+        Mean and 1-sigma of the Gaussian prior on the exchange coefficient
+        [1] (``kd_sd == 0``: Kd fixed).
+    kd_default : bool
+        True when the prior is the built-in one (olivine: Roeder & Emslie
+        1970, 0.30 +/- 0.03), False when the user gave the mean.
+    fe3_fraction : float, optional
+        Melt Fe3+/FeT used (olivine) [fraction].
+    fe3_source : str, optional
+        ``"default"`` or ``"given"`` (:data:`FE3_SOURCES`), or a plain
+        statement of the source.
+    sigma_scale : float, optional
+        Factor applied to every analytical sigma before sampling (the Birge
+        ratio; 1 when the fit is consistent with the stated uncertainties).
+    sampled : bool, optional
+        Whether the posterior was sampled (False: best fit only).
+
+    Returns
+    -------
+    tuple of MethodUse
+    """
+    uses = []
+    if mineral == "olivine":
+        source = FE3_SOURCES.get(fe3_source, fe3_source)
+        uses.append(MethodUse("melt Fe3+/FeT", "",
+                              f"Fe3+/FeT = {fe3_fraction:.2f} ({source}); Fe3+ takes no part "
+                              "in the exchange, so the melt Mg# counts Fe2+ only"))
+    prior_key = "roeder_emslie_1970" if (mineral == "olivine" and kd_default) else ""
+    if kd_sd > 0:
+        prior = f"Gaussian prior {kd_mean:.3g} +/- {kd_sd:.2g}"
+    else:
+        prior = f"fixed at {kd_mean:.3g}"
+    prior += " (built-in default)" if kd_default else " (given by the user)"
+    uses.append(MethodUse("exchange coefficient prior", prior_key, prior))
+    uses.append(MethodUse("best fit", "newville_2014",
+                          "multi-start bounded least squares (lmfit, least_squares method)"))
+    if sampled:
+        sampling = "posterior sampling"
+        uses += [
+            MethodUse(sampling, "foreman_mackey_2013", "emcee ensemble sampler"),
+            MethodUse(sampling, "goodman_weare_2010", "affine-invariant ensemble moves"),
+            MethodUse(sampling, "ter_braak_2006", "differential-evolution moves"),
+            MethodUse(sampling, "ter_braak_vrugt_2008", "snooker moves during burn-in"),
+            MethodUse(sampling, "gelman_1996",
+                      "scale 2.38/sqrt(p) of the Gaussian random-walk move"),
+            MethodUse("convergence of the chains", "sokal_1997",
+                      "integrated autocorrelation time and effective sample size"),
+        ]
+    uses += [
+        MethodUse("model choice", "schwarz_1978",
+                  "Bayesian information criterion BIC = chi2 + k ln n"),
+        MethodUse("model choice", "akaike_1974", "Akaike information criterion, reported"),
+    ]
+    if math.isfinite(sigma_scale) and sigma_scale > 1.0:
+        uses.append(MethodUse("uncertainty scaling", "birge_1932",
+                              f"every sigma multiplied by the Birge ratio {sigma_scale:.2f} "
+                              "before sampling"))
+    return tuple(uses)

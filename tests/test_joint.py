@@ -1,0 +1,214 @@
+"""Joint fit of the crystals of a sample (zoning.fitting.joint).
+
+Identities (the stacked evaluation against the single-crystal model), the
+compressed Jacobian against plain finite differences, and end-to-end checks
+on invented samples made by tests/_joint_synthetic.py: a planted antecryst is
+named and the shared bands contain the truth, excluded crystals are left out,
+two melts are not forced into one answer.
+"""
+
+import warnings
+
+import _joint_synthetic as js
+import numpy as np
+import pytest
+from _tolerances import RTOL_IDENTITY
+from numpy.testing import assert_allclose
+from zoning.fitting import fit_sample
+from zoning.fitting import joint as J
+from zoning.fitting.problem import FitProblem, TraceData, _build_model
+
+from zoning.exceptions import CalibrationRangeWarning, DataQualityWarning, ZoningError
+from zoning.models import CrystallizationModel
+from zoning.traverse import Traverse
+
+#: Difference between compressed and column-by-column finite differences:
+#: the same forward differences, summed in another order.
+RTOL_FD = 1e-6
+#: Stacked versus one-crystal evaluation: the kernel places its grid from all
+#: the fractions of a row, so stacking crystals moves nodes at round-off level
+#: (observed 3e-12 relative; the integration error itself is 1e-5 mol%).
+RTOL_STACKED = 1e-9
+#: Traces: node placement enters at the integration error of the trace
+#: quadrature, about 1e-5 relative (CrystallizationModel docstring).
+RTOL_STACKED_TRACE = 1e-5
+
+
+def _settings(hier=False, per_crystal_rim=False):
+    model = _build_model("olivine", js.MELT, None, 0.10, ["Ni"], "sphere", None)
+    return J._Settings(
+        model=model, mineral="olivine", ratio="melt_mg_number", kd0=0.30, kd_sd=0.03,
+        f_rim_mode="per_crystal" if per_crystal_rim else "shared",
+        retention_mode="hierarchical" if hier else "shared", extra_local=(),
+        trace_params=(("melt0_ni_ppm", "crystal_nio_wt", "NiO"),), robust=False,
+    )
+
+
+def _crystals(traverses):
+    out = []
+    for t in traverses:
+        u = t.usable()
+        n = len(u)
+        out.append(J._Crystal(
+            name=t.name, traverse=t, usable=u, distance_um=u["distance_um"].to_numpy(float),
+            radius_um=float(u["distance_um"].max()), y=u["fo"].to_numpy(float),
+            sigma=np.full(n, 0.2), sigma_source="test",
+            traces={"melt0_ni_ppm": ("NiO", "crystal_nio_wt", u["NiO"].to_numpy(float),
+                                     np.full(n, 0.015), np.ones(n, dtype=bool))},
+        ))
+    return out
+
+
+def _vector(joint, rng, m=5):
+    v = rng.uniform(joint.lower, joint.upper, size=(m, joint.D))
+    v[:, joint.index("melt_mg_number")] = rng.uniform(0.70, 0.78, m)
+    for c in range(joint.C):
+        if "f_rim" in joint.local:
+            v[:, joint.index("f_rim", c)] = rng.uniform(0.05, 0.2, m)
+    if "f_rim" in joint.shared:
+        v[:, joint.index("f_rim")] = rng.uniform(0.05, 0.2, m)
+    return v
+
+
+def test_path_with_one_row_of_fractions_per_set_matches_profile():
+    model = CrystallizationModel("olivine", js.MELT, traces=("Ni",))
+    x = np.linspace(0.0, 300.0, 40)
+    p = dict(melt_mg_number=np.array([0.72, 0.76]), f_rim=np.array([0.1, 0.2]),
+             f_core=np.array([0.0, 0.05]), retention=np.array([0.2, 0.8]))
+    ref = model.profile(x, 300.0, **p)
+    zone = (x / 300.0) ** 3
+    f = p["f_core"][:, None] + (p["f_rim"] - p["f_core"])[:, None] * zone
+    out = model.path(f, melt_mg_number=p["melt_mg_number"], retention=p["retention"])
+    assert_allclose(out["crystal"], ref["crystal"], rtol=RTOL_IDENTITY)
+    assert_allclose(out["crystal_nio_wt"], ref["crystal_nio_wt"], rtol=RTOL_IDENTITY)
+
+
+@pytest.mark.parametrize("hier", [False, True])
+def test_stacked_evaluation_equals_each_crystal_alone(hier):
+    traverses, _ = js.sample(n_hosts=3, antecryst=False, n_spots=20, seed=4)
+    joint = J._Joint(_settings(hier=hier, per_crystal_rim=True), _crystals(traverses))
+    v = _vector(joint, np.random.default_rng(0))
+    out = joint.predict(v)
+    rows = joint.rows(v)
+    model = joint.s.model
+    for c, cr in enumerate(joint.crystals):
+        sel = slice(c, None, joint.C)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", CalibrationRangeWarning)  # random sets
+            ref = model.profile(cr.distance_um, cr.radius_um, strict=False, melt_mg_number=rows[
+                "melt_mg_number"][sel], kd=rows["kd"][sel], retention=rows["retention"][sel],
+                f_rim=rows["f_rim"][sel], f_core=rows["f_core"][sel],
+                melt0_ni_ppm=rows["melt0_ni_ppm"][sel])
+        n = cr.distance_um.size
+        assert_allclose(out["crystal"][:, c, :n], ref["crystal"], rtol=RTOL_STACKED)
+        assert_allclose(out["crystal_nio_wt"][:, c, :n], ref["crystal_nio_wt"],
+                        rtol=RTOL_STACKED_TRACE)
+
+
+def test_one_crystal_objective_equals_the_single_fit_objective():
+    traverses, _ = js.sample(n_hosts=1, antecryst=False, n_spots=25, seed=5)
+    (cr,) = _crystals(traverses)
+    joint = J._Joint(_settings(), [cr])
+    model = joint.s.model
+    theta = np.array([0.75, 0.15, 0.4, 0.31, 380.0])
+    free = ("melt_mg_number", "f_rim", "retention", "kd", "melt0_ni_ppm")
+    specs = {s.name: s for s in model.parameters}
+    prob = FitProblem(
+        traverse=cr.traverse, usable=cr.usable, model=model, names=tuple(specs), free=free,
+        fixed={n: specs[n].default for n in specs if n not in free},
+        lower=np.array([specs[n].lower for n in free]),
+        upper=np.array([specs[n].upper for n in free]), kd0=0.30, kd_sd=0.03,
+        distance_um=cr.distance_um, radius_um=cr.radius_um, y=cr.y, sigma=cr.sigma,
+        traces=(TraceData("NiO", "Ni", "crystal_nio_wt", "melt0_ni_ppm",
+                          *cr.traces["melt0_ni_ppm"][2:]),),
+        robust=False,
+    )
+    single = prob.objective(prob.residuals(prob.params(theta[None, :]), 1))[0]
+    v = np.r_[theta, 0.0]  # F_core fraction 0
+    assert_allclose(joint.objective(v)[0], single, rtol=1e-10)
+
+
+def test_compressed_jacobian_equals_column_by_column_differences():
+    traverses, _ = js.sample(n_hosts=3, antecryst=False, n_spots=15, seed=6)
+    joint = J._Joint(_settings(), _crystals(traverses))
+    v = _vector(joint, np.random.default_rng(1), m=1)[0]
+    ls = J._LeastSquares(joint)
+    jac = ls.jacobian_at(v)
+    h = ls.steps * np.where(v + ls.steps <= ls.hi, 1.0, -1.0)
+    base = ls.residuals_of(v[None, :])[0]
+    for col in range(v.size):
+        x = v.copy()
+        x[col] += h[col]
+        ref = (ls.residuals_of(x[None, :])[0] - base) / h[col]
+        assert_allclose(jac[:, col], ref, rtol=RTOL_FD, atol=1e-9 * np.max(np.abs(ref)))
+
+
+def _fit(traverses, **kw):
+    kw.setdefault("n_sweeps", 300)
+    kw.setdefault("n_chains", 12)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DataQualityWarning)
+        warnings.filterwarnings("ignore", category=Warning, message=".*too short.*")
+        return fit_sample(traverses, melt=js.MELT, **kw)
+
+
+def test_planted_antecryst_is_named_and_shared_bands_contain_the_truth():
+    traverses, truth = js.sample(n_hosts=5, n_spots=30, seed=11)
+    res = _fit(traverses, seed=2)
+    verdicts = {c.name: c.verdict for c in res.crystals}
+    assert [n for n, v in verdicts.items() if v == "likely antecryst"] == truth["antecrysts"]
+    assert res.n_antecrysts == 1 and res.n_crystals == 6
+    for name in ("melt_mg_number", "f_rim", "retention", "kd", "melt0_ni_ppm"):
+        e = res.estimates[name]
+        assert e.lo95 <= truth[name] <= e.hi95, (name, e)
+    ante = res.crystal(truth["antecrysts"][0])
+    own = ante.own_estimates["melt_mg_number"]
+    assert own.lo95 <= truth["melt_mg_number"] + 0.06 <= own.hi95
+    assert any("does not share" in w for w in res.warnings)
+    # the anchor has F_core = 0 by definition; the others' F_core bands hold the truth
+    inside = [c.estimates["f_core"].lo95 - 0.01 <= truth["f_core"][c.name]
+              <= c.estimates["f_core"].hi95 + 0.01 for c in res.crystals
+              if c.verdict == "consistent"]
+    assert all(inside)
+
+
+def test_excluded_crystals_are_left_out_and_listed():
+    traverses, truth = js.sample(n_hosts=3, n_spots=25, seed=12)
+    res = _fit(traverses, exclude=truth["antecrysts"])
+    assert res.excluded == tuple(truth["antecrysts"])
+    assert res.crystal(truth["antecrysts"][0]).verdict == "excluded"
+    assert res.n_antecrysts == 0 and res.verdict == "one melt"
+
+
+def test_two_melts_are_not_forced_into_one_answer():
+    traverses, truth = js.sample(n_hosts=3, antecryst=False, two_melts=True, n_spots=25,
+                                 seed=13)
+    res = _fit(traverses)
+    assert res.verdict == "two melts, no majority"
+    assert all(not e.constrained and np.isnan(e.best) for e in res.estimates.values())
+    assert len(res.group_estimates) == 2
+    groups = {c.name: c.group for c in res.crystals}
+    g = [{n for n, k in groups.items() if k == i} for i in (1, 2)]
+    assert sorted(map(sorted, g)) == sorted(map(sorted, truth["groups"]))
+    assert any("two melts" in w for w in res.warnings)
+
+
+def test_same_seed_same_numbers():
+    traverses, _ = js.sample(n_hosts=2, antecryst=False, n_spots=20, seed=14)
+    a = _fit(traverses, n_sweeps=150, n_chains=6, seed=3)
+    b = _fit(traverses, n_sweeps=150, n_chains=6, seed=3)
+    assert_allclose(a.samples, b.samples, rtol=0)
+
+
+def test_bad_requests_say_what_to_do():
+    traverses, _ = js.sample(n_hosts=2, antecryst=False, n_spots=15, seed=15)
+    with pytest.raises(ZoningError, match="not crystals of this sample"):
+        fit_sample(traverses, melt=js.MELT, exclude=["nope"])
+    with pytest.raises(ZoningError, match="at least two crystals"):
+        fit_sample(traverses, melt=js.MELT, exclude=[traverses[0].name])
+    plag = Traverse("FRL-12 pl1", "x.csv", "plagioclase", traverses[0].spots.rename(
+        columns={"fo": "an"}))
+    with pytest.raises(ZoningError, match="of one mineral"):
+        fit_sample([traverses[0], plag], melt=js.MELT)
+    with pytest.raises(ZoningError, match="retention sharing"):
+        fit_sample(traverses, melt=js.MELT, retention="free")
