@@ -12,7 +12,7 @@ RTOL_TABLE_3SF = 5e-3
 ATOL_MOL_PCT_HAND = 0.05
 #: Forward-model integration error allowed against a fine reference [mol% Fo].
 ATOL_INTEGRATION_FO = 1e-4
-#: Diffusion after growth at the default grid (41 nodes graded to the rim, 20
+#: Diffusion after growth at the default grid (41 nodes graded to the rim, 40
 #: BDF2 steps) against a series solution for a step at the rim (the hardest
 #: initial condition; the error is second order in the spacing), normalised
 #: concentration: measured 3e-3 at worst.

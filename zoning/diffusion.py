@@ -636,62 +636,71 @@ def relax(initial, tau, *, dimension, rim="fixed", ratio=None, field=None,
     if field is not None and field_slope:
         phi = np.asarray(field, dtype=float)
         base = base * np.exp(field_slope * (0.5 * (phi[:, 1:] + phi[:, :-1]) - phi[:, -1:]))
-    # base: (G, m, N-1) with G = 1 (one matrix shared by every species) or S
-    n_unknown = n if closed else n - 1
+    # base: (G, m, N-1) with G = 1 (one matrix shared by every species) or S.
+    # The unknowns are the N nodes (closed rim) or the N-1 inside the held rim;
+    # every buffer below is contiguous, so LAPACK works on them in place.
+    nu = n if closed else n - 1
     rim_u = u[..., -1].copy()
     drive_rim = u[0, :, -1:]
     half_slope = 0.5 * field_slope
+    nonlinear = self_driven and bool(field_slope)
     times = np.linspace(0.0, 1.0, n_steps + 1) ** STEP_POWER
     steps = np.diff(times)
     groups = base.shape[0]
-    faces = np.zeros((groups, m, n + 1))
-    off = np.zeros((groups, m, n_unknown))
+    faces = np.zeros((groups, m, n + 1))  # faces[..., j] between nodes j-1 and j
+    off = np.zeros((groups, m, nu))       # last column stays 0: systems uncoupled
+    capv = np.ascontiguousarray(cap_vol[..., :nu]) if capacity is not None else vol[:nu]
+
+    def assemble():
+        fsum = faces[..., :nu] + faces[..., 1:nu + 1]
+        np.negative(faces[..., 1:nu], out=off[..., :nu - 1])
+        rim_flux = None if closed else faces[..., n - 1] * rim_u  # (S or G, m)
+        return fsum, off.ravel()[:-1].copy(), rim_flux
+
+    if not nonlinear:
+        faces[..., 1:n] = base
+        fsum, e_const, rim_flux = assemble()
+    if nonlinear:
+        pred_full = np.empty((m, n))
+        pred_full[:, nu:] = u[0, :, nu:]
     u_prev = None
+    u = np.ascontiguousarray(u[..., :nu])
     for k, dt in enumerate(steps):
         if k == 0:
-            a0, a1, a2 = 1.0, -1.0, 0.0
-            pred = u[0]
+            a0 = 1.0
         else:
             om = dt / steps[k - 1]
             a0, a1, a2 = (1 + 2 * om) / (1 + om), -(1 + om), om * om / (1 + om)
-            pred = u[0] + om * (u[0] - u_prev[0]) if self_driven else None
-        if self_driven and field_slope:
-            mob = np.exp(half_slope * (pred[:, 1:] + pred[:, :-1]) - field_slope * drive_rim)
+        if nonlinear:
+            # diffusivity at the composition extrapolated to the new time level
+            if k == 0:
+                pred_full[:, :nu] = u[0]
+            else:
+                np.multiply(u[0] - u_prev[0], om, out=pred_full[:, :nu])
+                pred_full[:, :nu] += u[0]
+            mob = np.exp(half_slope * (pred_full[:, 1:] + pred_full[:, :-1])
+                         - field_slope * drive_rim)
             np.multiply(base, mob, out=faces[..., 1:n])
-        elif k == 0:
-            faces[..., 1:n] = base
-        cap = cap_vol / dt
-        diag = a0 * cap + faces[..., :-1] if capacity is not None else (
-            (a0 / dt) * vol + faces[..., :-1])
-        diag = diag + faces[..., 1:]
-        if a2:
-            rhs = -cap * (a1 * u + a2 * u_prev)
+            fsum, e_step, rim_flux = assemble()
         else:
-            rhs = cap * u
-        if closed:
-            np.negative(faces[..., 1:n], out=off[..., :n - 1])
+            e_step = e_const.copy()
+        diag = (a0 / dt) * capv + fsum
+        if k == 0:
+            rhs = capv * (1.0 / dt) * u
         else:
-            np.negative(faces[..., 1:n - 1], out=off[..., :n - 2])
-            diag = diag[..., :n - 1]
-            rhs = rhs[..., :n - 1].copy()
-            rhs[..., -1] += faces[..., n - 1] * rim_u
-        if diag.shape[0] != groups or diag.ndim != 3:
-            diag = np.broadcast_to(diag, (groups, m, n_unknown))
-        if groups == 1:
-            b = rhs.reshape(n_species, -1).T
-        else:
-            b = rhs.reshape(-1, 1)
-        _, _, x, info = dptsv(diag.ravel(), off.ravel()[:-1], b)
+            rhs = (a1 * u + a2 * u_prev) * (capv * (-1.0 / dt))
+        if rim_flux is not None:
+            rhs[..., -1] += rim_flux
+        if diag.shape != (groups, m, nu):
+            diag = np.ascontiguousarray(np.broadcast_to(diag, (groups, m, nu)))
+        b = rhs.reshape(n_species, -1).T if groups == 1 else rhs.reshape(-1, 1)
+        _, _, x, info = dptsv(diag.ravel(), e_step, b, overwrite_d=1, overwrite_e=1,
+                              overwrite_b=1)
         if info != 0:  # pragma: no cover - the matrix is an M-matrix
             raise FloatingPointError(f"tridiagonal solve failed (LAPACK info {info})")
-        new = np.empty_like(u)
-        if groups == 1:
-            new[..., :n_unknown] = x.T.reshape(n_species, m, n_unknown)
-        else:
-            new[..., :n_unknown] = x.reshape(n_species, m, n_unknown)
-        if not closed:
-            new[..., -1] = rim_u
-        u_prev, u = u, new
+        u_prev, u = u, (x.T if groups == 1 else x).reshape(n_species, m, nu)
+    if not closed:
+        u = np.concatenate([u, rim_u[..., None]], axis=-1)
     out = u * capacity if capacity is not None else u
     if bad.any():
         out[:, bad, :] = np.nan
