@@ -447,9 +447,16 @@ def _build(raw, *, mineral, orientation, core_position_um, checks, iron, sheet) 
     if values.size:
         notes.append(f"{record} of the {n_ok} usable spots: {values.min():.2f}-{values.max():.2f}"
                      " mol%")
+    known = position[np.isfinite(position)]
     if n == 1:
         notes.append("cannot be fitted: the traverse has a single spot; a profile needs "
                      "several spots from core to rim")
+    elif known.size == n and np.ptp(known) == 0:
+        column = raw.column_map.get("distance_um") or raw.column_map.get("x_um") or "position"
+        notes.append(f"cannot be fitted: all {n} spots have the same position ({known[0]:g} µm "
+                     f"in column {column!r}), so there is no profile; give the column that holds "
+                     "the distances or stage X/Y (--column-map distance_um=<header>, project key "
+                     "column_map)")
     elif n_ok == 0:
         notes.append(f"cannot be fitted: all {n} spots are flagged (see the reasons); correct "
                      "the data or the quality-check settings, or force flagged spots back in")

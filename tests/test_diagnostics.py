@@ -4,10 +4,14 @@ import itertools
 
 import numpy as np
 import pytest
+from _tolerances import ATOL_CLOSED_FORM
+from numpy.testing import assert_allclose
 from zoning.fitting.diagnostics import (
     find_reversals,
+    longest_run_probability,
     longest_run_threshold,
     residual_runs,
+    reversal_threshold,
     runs_test_z,
 )
 
@@ -90,3 +94,88 @@ def test_a_single_stray_spot_is_not_a_reversal():
     assert len(find_reversals(d, fo, 0.2)) == 0
     fo[21] += 4.0  # two consecutive spots: a (thin) zone
     assert len(find_reversals(d, fo, 0.2)) == 1
+
+
+def _old_longest_run_distribution(n):
+    """The former O(n^3)-time, O(n^2)-memory recursion, kept as a reference.
+
+    Returns P(longest run < L) for L = 1 .. n + 1 (one row per L; column k:
+    current run of length k + 1 and no run of length L yet).
+    """
+    lengths = np.arange(1, n + 2)
+    state = np.zeros((lengths.size, n + 1))
+    state[:, 0] = 1.0
+    valid = np.arange(n + 1)[None, :] < (lengths[:, None] - 1)
+    state *= valid
+    for _ in range(1, n):
+        new = np.zeros_like(state)
+        new[:, 0] = 0.5 * state.sum(axis=1)
+        new[:, 1:] = 0.5 * state[:, :-1]
+        state = new * valid
+    return state.sum(axis=1)
+
+
+def _old_longest_run_threshold(n, alpha):
+    if n <= 0:
+        return 1
+    p_no_run = _old_longest_run_distribution(n)
+    ok = np.flatnonzero(1.0 - p_no_run <= alpha)
+    return int(ok[0] + 1) if ok.size else n + 1
+
+
+@pytest.mark.parametrize("n", [1, 2, 3, 7, 20, 63, 150])
+def test_longest_run_probability_matches_the_former_recursion(n):
+    old = 1.0 - _old_longest_run_distribution(n)
+    new = np.array([longest_run_probability(n, L) for L in range(1, n + 2)])
+    assert_allclose(new, old, rtol=0, atol=ATOL_CLOSED_FORM)
+
+
+@pytest.mark.parametrize("n", [6, 10, 14])
+def test_longest_run_probability_matches_exact_enumeration(n):
+    longest = np.array([_longest_run(s) for s in itertools.product((0, 1), repeat=n)])
+    for L in range(1, n + 2):
+        assert_allclose(longest_run_probability(n, L), np.mean(longest >= L),
+                        rtol=0, atol=ATOL_CLOSED_FORM)
+
+
+def test_longest_run_threshold_is_the_former_one_on_small_n():
+    for n in range(0, 160):
+        for alpha in (0.01, 0.05, 0.1, 0.2, 0.5):
+            assert longest_run_threshold(n, alpha) == _old_longest_run_threshold(n, alpha), \
+                (n, alpha)
+
+
+def test_longest_run_threshold_on_long_traverses_is_the_known_asymptote():
+    # Schilling (1990, from memory): the longest run of heads in n tosses is
+    # about log2(n); counting runs of either sign, about log2(n) + 1, with a
+    # spread of about 2 runs and a right tail of about 2^-k per extra spot.
+    # The 95% point lies a few spots above that.
+    for n in (1_000, 62_000, 500_000):
+        limit = longest_run_threshold(n)
+        assert np.log2(n) + 1 < limit <= np.log2(n) + 1 + 6
+        assert longest_run_probability(n, limit) <= 0.05 < longest_run_probability(n, limit - 1)
+
+
+def test_longest_run_threshold_refuses_no_false_alarm_level():
+    assert longest_run_threshold(50, 0.0) == 51
+
+
+def test_reversal_threshold_is_the_same_when_simulated_in_blocks(monkeypatch):
+    import zoning.fitting.diagnostics as diagnostics
+
+    whole = reversal_threshold(40, 0.3, n_sim=300)
+    monkeypatch.setattr(diagnostics, "_SIMULATION_BLOCK", 40 * 7)
+    assert reversal_threshold(40, 0.3, n_sim=300) == whole
+
+
+def test_running_median_of_three_is_the_median():
+    from zoning.fitting.diagnostics import _running_median
+
+    rng = np.random.default_rng(4)
+    y = rng.normal(size=(5, 40))
+    y[2, 7] = np.nan
+    padded = np.pad(y, [(0, 0), (1, 1)], mode="edge")
+    expected = np.median(np.lib.stride_tricks.sliding_window_view(padded, 3, axis=-1), axis=-1)
+    np.testing.assert_array_equal(_running_median(y, 3), expected)
+    np.testing.assert_array_equal(_running_median(y[0], 5), np.median(
+        np.lib.stride_tricks.sliding_window_view(np.pad(y[0], 2, mode="edge"), 5), axis=-1))

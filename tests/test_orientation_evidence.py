@@ -241,3 +241,61 @@ def test_locate_core_ignores_untrusted_positions():
     assert np.isnan(d.distance_um[-1])
     d = locate_core(pos_bad, fo[::-1], trusted=trusted)
     assert d.orientation == "rim-to-core" and d.core_position_um == pos[-2]
+
+
+# --- degenerate positions ---------------------------------------------------
+
+def _demo_olivine(path, n=None, zero=False):
+    import pandas as pd
+    from zoning.demo_data import DEMO_DIR
+
+    df = pd.read_csv(DEMO_DIR / "ferrolyn" / "FRL-07_ol2.csv", sep=";", decimal=",",
+                     encoding="latin-1")
+    if n is not None:
+        df = df.head(n)
+    if zero:
+        df["Distance (µm)"] = 0.0
+    df.to_csv(path, index=False)
+    return path
+
+
+def test_all_equal_positions_are_named_as_the_problem(tmp_path, capsys):
+    from zoning.io import read_traverses
+
+    from zoning.cli import main
+
+    path = _demo_olivine(tmp_path / "zero.csv", zero=True)
+    (t,) = read_traverses(path, mineral="olivine")
+    assert any("all 30 spots have the same position (0 µm in column 'Distance (µm)')" in s
+               and "--column-map distance_um=" in s for s in t.notes)
+    code = main(["fit", str(path), "--mineral", "olivine", "--melt", "FeO=9.8",
+                 "--walkers", "8", "--steps", "100", "--out", str(tmp_path / "out")])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert "all 30 spots have the same position (0 µm)" in err and "zero.csv" in err
+    assert "radius must be positive" not in err and "Traceback" not in err
+
+
+def test_one_spot_is_refused_with_the_file_named(tmp_path, capsys):
+    from zoning.cli import main
+
+    path = _demo_olivine(tmp_path / "one.csv", n=1)
+    code = main(["fit", str(path), "--mineral", "olivine", "--melt", "FeO=9.8",
+                 "--walkers", "8", "--steps", "100", "--out", str(tmp_path / "out")])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert "only 1 usable spot" in err and "one.csv" in err
+    assert "radius must be positive" not in err and "Traceback" not in err
+
+
+# --- cases once decided wrong by benchmarks/orientation.py ------------------
+
+def test_reverse_olivine_without_a_steeper_end_is_asked_not_read_backwards():
+    # chemistry alone (Fo, NiO, MnO all agree) cannot tell a reversely zoned crystal
+    # from a normally zoned one read backwards; the shape shows no steeper end
+    case = make_case("reverse", np.random.default_rng([20261202, 12, len("reverse"), 0]),
+                     mineral="olivine")
+    t = case.traverse
+    assert t.orientation_confidence == "uncertain", t.orientation_basis
+    assert "a reversely zoned crystal would look the same" in t.orientation_basis
+

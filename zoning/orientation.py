@@ -336,12 +336,13 @@ def _noise(values: np.ndarray) -> float:
     return robust_sigma(np.diff(values)) / np.sqrt(2.0)
 
 
-def _mirror_centre(p: np.ndarray, s: np.ndarray, noise: float) -> tuple[float, float]:
+def _mirror_centre(p: np.ndarray, s: np.ndarray, noise: float) -> tuple[float, float, list]:
     """Centre about which the smoothed profile is most nearly symmetric.
 
-    Returns the centre [µm] and the RMS mismatch of the mirrored profile.
-    The grid and the candidate centres have fixed sizes, so the cost is
-    O(n) in the number of spots.
+    Returns the centre [µm], the RMS mismatch of the mirrored profile and
+    the range [lo, hi] of centres compatible with it within the noise. The
+    grid and the candidate centres have fixed sizes, so the cost is O(n) in
+    the number of spots.
     """
     length = p[-1] - p[0]
     grid_n = int(min(max(p.size, 64), 512))
@@ -359,13 +360,7 @@ def _mirror_centre(p: np.ndarray, s: np.ndarray, noise: float) -> tuple[float, f
     near = np.flatnonzero(cost <= best + 0.1 * noise**2 + 1e-12)
     mid = 0.5 * (p[0] + p[-1])
     k = near[np.argmin(np.abs(centres[near] - mid))]
-    _CORE_RANGE[:] = _acceptable(centres, cost, noise)
-    return float(centres[k]), float(np.sqrt(cost[k]))
-
-
-#: Range of core positions [µm] compatible with the last symmetry search
-#: (set by :func:`_mirror_centre` / :func:`_stretch_centre`).
-_CORE_RANGE = [np.nan, np.nan]
+    return float(centres[k]), float(np.sqrt(cost[k])), _acceptable(centres, cost, noise)
 
 
 def _acceptable(centres, cost, noise):
@@ -374,12 +369,13 @@ def _acceptable(centres, cost, noise):
     return [float(centres[ok].min()), float(centres[ok].max())]
 
 
-def _stretch_centre(p: np.ndarray, s: np.ndarray, noise: float) -> tuple[float, float]:
+def _stretch_centre(p: np.ndarray, s: np.ndarray, noise: float) -> tuple[float, float, list]:
     """Core of a rim-to-rim profile whose two halves grew to different lengths.
 
     Both ends are taken as rims: each half is scaled to unit length and the
     centre is the one for which the two scaled halves agree best. Returns
-    the centre [µm] and the RMS mismatch. Fixed-size grids: O(n).
+    the centre [µm], the RMS mismatch and the range of compatible centres.
+    Fixed-size grids: O(n).
     """
     length = p[-1] - p[0]
     centres = np.linspace(p[0] + CORE_SEARCH_MARGIN * length,
@@ -389,8 +385,7 @@ def _stretch_centre(p: np.ndarray, s: np.ndarray, noise: float) -> tuple[float, 
     x_b = centres[:, None] + u[None, :] * (p[-1] - centres[:, None])
     cost = np.mean((np.interp(x_a, p, s) - np.interp(x_b, p, s)) ** 2, axis=1)
     k = int(np.argmin(cost))
-    _CORE_RANGE[:] = _acceptable(centres, cost, noise)
-    return float(centres[k]), float(np.sqrt(cost[k]))
+    return float(centres[k]), float(np.sqrt(cost[k])), _acceptable(centres, cost, noise)
 
 
 def _rims_alike(ps, minor, core, mineral) -> list[str]:
@@ -478,10 +473,8 @@ def _shape_evidence(ps, vs, s, noise, delta, record) -> Evidence:
         if high or low:
             # equal halves (mirror) or halves grown to different lengths with both
             # ends at a rim (stretch): whichever matches the profile better
-            core_m, rms_m = _mirror_centre(ps, s, noise)
-            span_m = list(_CORE_RANGE)
-            core_s, rms_s = _stretch_centre(ps, s, noise)
-            span_s = list(_CORE_RANGE)
+            core_m, rms_m, span_m = _mirror_centre(ps, s, noise)
+            core_s, rms_s, span_s = _stretch_centre(ps, s, noise)
             core, rms, span = ((core_s, rms_s, span_s) if rms_s < rms_m else
                                (core_m, rms_m, span_m))
             if abs(rms_s**2 - rms_m**2) <= CORE_RANGE_NOISE * noise**2:  # both readings fit
@@ -952,7 +945,7 @@ def locate_core(
             core = pmax
         elif ps.size >= 5:
             s = _smooth(vs)
-            core, _ = _mirror_centre(ps, s, _noise(vs))
+            core, _, _ = _mirror_centre(ps, s, _noise(vs))
         else:
             core = 0.5 * (pmin + pmax)
         basis = f"orientation {orientation} given by the user"
@@ -1126,10 +1119,19 @@ def _decide(ps, vs, pmin, pmax, record, mineral, minor, p, trust, oxides, names,
         return target, core, "uncertain", _uncertain(
             "only one weak trend points to an end, and it assumes normal zoning", evidence,
             target), evidence
-    elif lines == {"chemistry"} and shape_ev.leans and shape_ev.leans != target:
+    elif lines == {"chemistry"} and shape_ev.leans != target and (
+            shape_ev.leans or any(e.cue == record and e.supports for e in chem)):
+        # The normal-growth trends all follow Fo/An: where Fo/An changes, a normally
+        # zoned crystal read backwards and a reversely zoned one look alike to them.
+        # Only the shape (the steeper end) can tell them apart, so it must at least
+        # lean their way. (With Fo/An flat, a minor-element trend is not explained
+        # by reverse zoning of the major record and may decide with "low".)
+        leaning = ("leans the other way" if shape_ev.leans else
+                   "shows no steeper end")
         return target, core, "uncertain", _uncertain(
-            f"only the trends point to an end (assuming normal zoning) and the shape leans "
-            f"the other way: {shape_ev.detail}; reversely zoned?", evidence, target), evidence
+            f"only the trends point to an end (assuming normal zoning) and the shape "
+            f"{leaning}: {shape_ev.detail}; a reversely zoned crystal would look the same",
+            evidence, target), evidence
     else:
         confidence = "low"
     kind = {"high": "independent lines agree", "low": "one line of evidence"}[confidence] \

@@ -1042,6 +1042,13 @@ def check_fittable(traverse, *, include_flagged: bool = False,
         if distance_range is not None:
             why += f", or none lies in --range {distance_range[0]:g}:{distance_range[1]:g}"
         raise FitError(f"traverse {name!r} cannot be fitted: {why}.")
+    position = spots["position_um"].to_numpy(float)
+    if len(spots) > 1 and np.isfinite(position).all() and np.ptp(position) == 0:
+        raise FitError(
+            f"traverse {name!r} cannot be fitted: all {len(spots)} spots have the same position "
+            f"({position[0]:g} µm), so there is no profile. Check the distance or stage X/Y "
+            "columns (--column-map distance_um=<header>, project key column_map)."
+        )
     if d.size < 3:
         raise FitError(
             f"traverse {name!r} cannot be fitted: only {d.size} usable spot"
