@@ -474,3 +474,23 @@ def test_diffusion_time_conventions():
         diffusion_time_days(1.0, 1100.0, mineral="quartz")
     with pytest.warns(CalibrationRangeWarning, match="outside"):
         diffusion_time_days(1.0, 1500.0, mineral="olivine", fo2_pa=1e-5, x_fe=0.1)
+
+
+# ---------------------------------------------------------------- citations
+def test_methods_name_the_diffusion_laws_when_asked():
+    from zoning.references import REFERENCES
+
+    ol = _olivine()
+    assert not any("diffusion" in u.role for u in ol.methods())
+    keys = [u.key for u in ol.methods(processes=("section", "diffusion"))]
+    for key in ("crank_1975", "dohmen_chakraborty_2007", "petry_2004"):
+        assert key in keys
+    assert any(u.role == "off-centre section" for u in ol.methods(processes=("section",)))
+    pl = CrystallizationModel("plagioclase", PLAG_MELT, traces=("Sr", "Mg"),
+                              temperature_c=1150.0)
+    keys_pl = [u.key for u in pl.methods(processes=("diffusion",))]
+    for key in ("costa_2003", "grove_1984", "zellmer_1999"):
+        assert key in keys_pl
+    assert all(k in REFERENCES for k in keys + keys_pl if k)
+    with pytest.raises(ModelDomainError, match="unknown processes"):
+        ol.methods(processes=("recharge",))

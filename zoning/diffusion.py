@@ -109,6 +109,7 @@ from zoning.partitioning import R_GAS
 from zoning.redox import buffer_log_fo2
 
 __all__ = [
+    "CITATIONS",
     "DIMENSION",
     "OLIVINE_DIFFUSIVITY_RATIOS",
     "OLIVINE_FE_EXPONENT",
@@ -126,6 +127,11 @@ __all__ = [
     "relax",
     "grid_interpolation",
 ]
+
+#: Citation keys (zoning.references) of the laws and methods used here.
+CITATIONS = ("crank_1975", "dohmen_chakraborty_2007", "costa_chakraborty_2004", "costa_2003",
+             "giletti_casserly_1994", "zellmer_1999", "grove_1984", "petry_2004",
+             "coogan_2005", "chakraborty_2010")
 
 #: Spatial dimension of the diffusion problem of each growth geometry.
 DIMENSION = {"sphere": 3, "cylinder": 2, "slab": 1}

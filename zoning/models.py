@@ -854,7 +854,7 @@ class CrystallizationModel(_ModelBase):
             return tr.default_c0
         return float(np.clip(value, tr.c0_bounds[0], tr.c0_bounds[1]))
 
-    def methods(self) -> tuple[MethodUse, ...]:
+    def methods(self, processes: Sequence[str] = ()) -> tuple[MethodUse, ...]:
         """List the published methods this model rests on, as configured.
 
         Returns
@@ -914,7 +914,51 @@ class CrystallizationModel(_ModelBase):
             uses.append(MethodUse("co-crystallizing minerals", "",
                                   "constant partition coefficients of the other minerals "
                                   "(typical basaltic values)"))
+        uses.extend(self._process_methods(processes))
         return tuple(uses)
+
+    def _process_methods(self, processes) -> list[MethodUse]:
+        """MethodUse entries of the section and diffusion processes named in ``processes``."""
+        unknown = sorted(set(processes) - {"section", "diffusion"})
+        if unknown:
+            raise ModelDomainError(
+                f"unknown processes {unknown} for the list of methods; expected 'section' "
+                f"and/or 'diffusion'."
+            )
+        uses = []
+        if "section" in processes and not self.section_offset_um:
+            uses.append(MethodUse("off-centre section", _geometry.CITATIONS[1],
+                                  "spot at section distance x lies at crystal radius "
+                                  "sqrt(x^2 + h^2); h/R fitted"))
+        if "diffusion" not in processes:
+            return uses
+        rim = ("rim held at its last grown composition" if self.rim == "fixed"
+               else "closed rim (no exchange with the melt)")
+        uses.append(MethodUse("diffusion after growth (numerical method)", "crank_1975",
+                              f"{self.geometry}, {rim}; implicit finite volumes checked "
+                              f"against the series solutions"))
+        if self.mineral == "olivine":
+            uses.append(MethodUse("olivine Fe-Mg interdiffusion", "dohmen_chakraborty_2007",
+                                  "D proportional to 10^(3 X_Fe) along the profile; "
+                                  "L = sqrt(D t) at the rim composition"))
+            cites = {"Ni": "petry_2004", "Mn": "chakraborty_2010", "Ca": "coogan_2005"}
+            for tr in self.traces:
+                if tr.element in self._ratio_defaults:
+                    uses.append(MethodUse(
+                        f"{tr.element} diffusivity relative to Fe-Mg",
+                        cites.get(tr.element, ""),
+                        f"D_{tr.element}/D_FeMg = {self._ratio_defaults[tr.element]:g}"))
+        else:
+            uses.append(MethodUse("plagioclase An frozen during diffusion", "grove_1984",
+                                  "CaAl-NaSi interdiffusion negligible at magmatic time scales"))
+            uses.append(MethodUse("plagioclase Mg diffusion and the chemical-potential term",
+                                  "costa_2003", "D_Mg = 2.92 10^(-4.1 X_An - 3.1) "
+                                  "exp(-266 kJ/mol / RT); L = sqrt(D_Mg t) at the rim An"))
+            if any(tr.element == "Sr" for tr in self.traces):
+                uses.append(MethodUse("plagioclase Sr diffusion", "zellmer_1999",
+                                      "Giletti & Casserly (1994) data, D_Sr/D_Mg = "
+                                      f"{self._ratio_defaults.get('Sr', float('nan')):.3g}"))
+        return uses
 
     # ------------------------------------------------------------- evaluation
     def initial_state(self, ratio):

@@ -158,6 +158,42 @@ def _ref(key, authors, year, title, journal, volume="", pages="", doi="", *,
 
 
 _ENTRIES = (
+    # --- diffusion after growth ---------------------------------------------
+    _ref("crank_1975", ["Crank, J."], 1975, "The Mathematics of Diffusion (2nd edition)",
+         "Clarendon Press, Oxford", kind="book"),
+    _ref("dohmen_chakraborty_2007", ["Dohmen, R.", "Chakraborty, S."], 2007,
+         "Fe-Mg diffusion in olivine II: point defect chemistry, change of diffusion "
+         "mechanisms and a model for calculation of diffusion coefficients in natural olivine",
+         "Physics and Chemistry of Minerals", "34", "409-430"),
+    _ref("costa_chakraborty_2004", ["Costa, F.", "Chakraborty, S."], 2004,
+         "Decadal time gaps between mafic intrusion and silicic eruption obtained from "
+         "chemical zoning patterns in olivine", "Earth and Planetary Science Letters", "227",
+         "517-530"),
+    _ref("costa_2003", ["Costa, F.", "Chakraborty, S.", "Dohmen, R."], 2003,
+         "Diffusion coupling between trace and major elements and a model for calculation "
+         "of magma residence times using plagioclase", "Geochimica et Cosmochimica Acta",
+         "67", "2189-2200"),
+    _ref("giletti_casserly_1994", ["Giletti, B. J.", "Casserly, J. E. D."], 1994,
+         "Strontium diffusion kinetics in plagioclase feldspars",
+         "Geochimica et Cosmochimica Acta", "58", "3785-3793"),
+    _ref("zellmer_1999", ["Zellmer, G. F.", "Blake, S.", "Vance, D.", "Hawkesworth, C.",
+                          "Turner, S."], 1999,
+         "Plagioclase residence times at two island arc volcanoes (Kameni Islands, Santorini, "
+         "and Soufriere, St. Vincent) determined by Sr diffusion systematics",
+         "Contributions to Mineralogy and Petrology", "136", "345-357"),
+    _ref("grove_1984", ["Grove, T. L.", "Baker, M. B.", "Kinzler, R. J."], 1984,
+         "Coupled CaAl-NaSi diffusion in plagioclase feldspar: experiments and applications "
+         "to cooling rate speedometry", "Geochimica et Cosmochimica Acta", "48", "2113-2121"),
+    _ref("petry_2004", ["Petry, C.", "Chakraborty, S.", "Palme, H."], 2004,
+         "Experimental determination of Ni diffusion coefficients in olivine and their "
+         "dependence on temperature, composition, oxygen fugacity, and crystallographic "
+         "orientation", "Geochimica et Cosmochimica Acta", "68", "4179-4188"),
+    _ref("coogan_2005", ["Coogan, L. A.", "Hain, A.", "Stahl, S.", "Chakraborty, S."], 2005,
+         "Experimental determination of the diffusion coefficient for calcium in olivine "
+         "between 900 °C and 1500 °C", "Geochimica et Cosmochimica Acta", "69", "3683-3694"),
+    _ref("chakraborty_2010", ["Chakraborty, S."], 2010,
+         "Diffusion coefficients in olivine, wadsleyite and ringwoodite",
+         "Reviews in Mineralogy and Geochemistry", "72", "603-639", kind="chapter"),
     # --- Fe-Mg and Ca-Na exchange -------------------------------------------
     _ref("roeder_emslie_1970", ["Roeder, P. L.", "Emslie, R. F."], 1970,
          "Olivine-liquid equilibrium", "Contributions to Mineralogy and Petrology", "29",
