@@ -19,14 +19,13 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from _tolerances import RTOL_IDENTITY, RTOL_TABLE_3SF
 from numpy.testing import assert_allclose
 from zoning.io import read_traverses
 from zoning.io.readers import read_export
 
 from zoning.cli import main
 from zoning.exceptions import ProfileFormatError
-
-from _tolerances import RTOL_IDENTITY, RTOL_TABLE_3SF
 
 CORPUS = Path(__file__).resolve().parent / "corpus"
 sys.path.insert(0, str(CORPUS))

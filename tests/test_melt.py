@@ -1,11 +1,10 @@
 """Reading the reference melt: names, Fe3+/FeT from FeO + Fe2O3, values not used."""
 
 import pytest
+from _tolerances import RTOL_TABLE_3SF
 
 from zoning.exceptions import ModelDomainError
 from zoning.melt import DEFAULT_FE3_FRACTION, merge_melts, read_melt
-
-from _tolerances import RTOL_TABLE_3SF
 
 
 def _masses():
