@@ -163,6 +163,7 @@ from zoning.fitting.summary import estimate_from_draws as _estimate
 
 from zoning import geometry as _geometry
 from zoning.exceptions import ConvergenceWarning, DataQualityWarning, FitError, ZoningError
+from zoning.melt import read_melt
 from zoning.partitioning import equilibrium_crystal
 from zoning.traverse import MINERALS, Traverse
 
@@ -1725,7 +1726,7 @@ def fit_sample(
     name: str | None = None,
     kd: float | None = None,
     kd_sd: float | None = None,
-    fe3_fraction: float = 0.10,
+    fe3_fraction: float | None = None,
     geometry: str = "sphere",
     distance_range: tuple[float, float] | None = None,
     radius_um: float | Mapping[str, float] | None = None,
@@ -1883,6 +1884,8 @@ def fit_sample(
         if not is_excluded[i]:
             for c in chosen:
                 chosen_all.setdefault(c[3], (c[3], c[2], c[0], c[1]))
+    melt_input = read_melt(melt, mineral, fe3_fraction=fe3_fraction)
+    melt, fe3_fraction = melt_input.oxides, melt_input.fe3_fraction
     model = _build_model(mineral, melt, kd, fe3_fraction,
                          [v[3] for v in chosen_all.values()], geometry, temperature_c)
     kd0, kd_sd_v = _kd_prior(mineral, kd, kd_sd, model)
@@ -1902,7 +1905,7 @@ def fit_sample(
             )
 
     # --- every crystal alone -----------------------------------------------
-    warn_list: list[str] = []
+    warn_list: list[str] = list(melt_input.notes)
     owns: dict[int, _Own] = {}
     own_est: dict[int, dict] = {}
     own_draws: dict[int, Any] = {}
@@ -2098,6 +2101,7 @@ def fit_sample(
     settings_out = {
         "mineral": mineral, "melt": {str(k): float(v) for k, v in dict(melt).items()},
         "kd_prior_mean": kd0, "kd_prior_sd": kd_sd_v, "fe3_fraction": float(fe3_fraction),
+        "fe3_source": melt_input.fe3_source,
         "geometry": geometry, "distance_range_um": list(rng_range) if rng_range else None,
         "radius_um": {c.name: c.radius_um for c in crystals}, "free": list(extra),
         "f_rim": f_rim, "retention": retention, "exclude": list(exclude),

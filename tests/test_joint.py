@@ -158,6 +158,10 @@ def test_planted_antecryst_is_named_and_shared_bands_contain_the_truth():
     verdicts = {c.name: c.verdict for c in res.crystals}
     assert [n for n, v in verdicts.items() if v == "likely antecryst"] == truth["antecrysts"]
     assert res.n_antecrysts == 1 and res.n_crystals == 6
+    # no fe3_fraction given: the melt reader's default, recorded as such (as for
+    # single fits; the command line passes None when --fe3 is not given)
+    assert res.settings["fe3_fraction"] == 0.10
+    assert res.settings["fe3_source"] == "default"
     for name in ("melt_mg_number", "f_rim", "retention", "kd", "melt0_ni_ppm"):
         e = res.estimates[name]
         assert e.lo95 <= truth[name] <= e.hi95, (name, e)
