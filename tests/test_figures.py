@@ -6,6 +6,7 @@ import matplotlib
 import numpy as np
 import pandas as pd
 import pytest
+from _tolerances import GROWTH_ONLY
 from matplotlib.collections import PolyCollection
 from matplotlib.figure import Figure
 from zoning.demo_data import DEMO_DIR
@@ -26,7 +27,8 @@ def _fit(name, mineral, melt, temperature_c=None, **kw):
         # numpy 'invalid value' from the fit's start grid on NaN model rows; the
         # figures and reports under test are not affected.
         warnings.simplefilter("ignore", RuntimeWarning)
-        return fit_traverse(traverse, melt=melt, n_walkers=16, n_steps=150, seed=2, **fit_kw)
+        return fit_traverse(traverse, melt=melt, n_walkers=16, n_steps=150, seed=2, **fit_kw,
+                            **GROWTH_ONLY)
 
 
 @pytest.fixture(scope="module")

@@ -5,6 +5,7 @@ import re
 import warnings
 
 import pytest
+from _tolerances import GROWTH_ONLY
 from zoning.demo_data import DEMO_DIR
 from zoning.fitting import fit_traverse
 from zoning.io import read_traverses
@@ -24,7 +25,7 @@ def plag():
         # figures and reports under test are not affected.
         warnings.simplefilter("ignore", RuntimeWarning)
         return fit_traverse(traverse, melt={"Na2O": 3.1}, kd=2.0, kd_sd=0.3,
-                            n_walkers=16, n_steps=150, seed=5)
+                            n_walkers=16, n_steps=150, seed=5, **GROWTH_ONLY)
 
 
 def _page_text(fig):
