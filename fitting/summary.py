@@ -79,6 +79,15 @@ def _versions() -> dict[str, str]:
     return out
 
 
+#: Process parameters (0: the process is absent). Their 95% band starts at 0
+#: (an upper limit) when the central band would start closer to 0 than
+#: :data:`ZERO_EDGE_SHARE` of its width: the data then cannot tell "no
+#: process" from "a little", and a band that stopped just short of 0 would
+#: read as evidence for the process.
+ZERO_EDGE_PARAMETERS = ("section_h_over_r", "diffusion_length_um")
+ZERO_EDGE_SHARE = 0.1
+
+
 def estimate_from_draws(name, unit, best, draws, lower, upper) -> Estimate:
     """Estimate of one quantity from its posterior draws and prior bounds.
 
@@ -99,6 +108,10 @@ def estimate_from_draws(name, unit, best, draws, lower, upper) -> Estimate:
         :data:`UNCONSTRAINED_FRACTION` of the prior range.
     """
     med, lo, hi, kind = credible_band(draws, lower, upper)
+    if (name in ZERO_EDGE_PARAMETERS and kind == "central" and np.isfinite(lo)
+            and lo - lower < ZERO_EDGE_SHARE * (hi - lo)):
+        x = np.asarray(draws, dtype=float)
+        lo, hi, kind = float(lower), float(np.percentile(x[np.isfinite(x)], 95.0)), "upper_limit"
     constrained = bool((hi - lo) <= UNCONSTRAINED_FRACTION * (upper - lower))
     note = ""
     if not constrained:

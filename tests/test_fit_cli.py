@@ -71,7 +71,8 @@ def test_zoning_fit_writes_summary_fit_json_and_profile(export, tmp_path, capsys
     for q in ("section_h_over_r", "diffusion_length_um"):
         assert {q, f"{q}_lo95", f"{q}_hi95", f"{q}_constrained"} <= set(summary.columns)
         assert row[f"{q}_lo95"] == 0.0
-    assert np.isnan(row["diffusion_time_days"])  # no --temperature-c: length only
+    # no --temperature-c: the length alone, no time column
+    assert "diffusion_time_days" not in summary.columns
     assert row["preferred_model"].startswith(("growth", "no clear preference"))
     folder = out / safe_name(summary.loc[0, "sample"])
     data = json.loads((folder / "fit.json").read_text(encoding="utf-8"))
