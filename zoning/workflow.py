@@ -1196,7 +1196,7 @@ def _fit_and_write(job: SampleJob, build: Path):
     check_fittable(traverse, include_flagged=bool(job.fit_options.get("include_flagged")),
                    distance_range=job.fit_options.get("distance_range"),
                    radius_um=job.fit_options.get("radius_um"))
-    result = fit_traverse(traverse, **job.fit_options)
+    result = _with_project_entry(fit_traverse(traverse, **job.fit_options), job)
     write_fit_json(result, build / "fit.json")
     write_profile_csv(result, build / "profile.csv")
     if job.figures or job.report:
@@ -1214,6 +1214,16 @@ def _fit_and_write(job: SampleJob, build: Path):
     return row, result
 
 
+def _with_project_entry(result, job: SampleJob):
+    """Record in ``result.settings["project_entry"]`` the project entry that reproduces it."""
+    import dataclasses
+
+    entry = {"sample": job.name, "file": job.file}
+    if job.traverse:
+        entry["traverse"] = job.traverse
+    return dataclasses.replace(result, settings={**result.settings, "project_entry": entry})
+
+
 def _fit_and_write_joint(job: SampleJob, build: Path):
     """Fit every traverse of the sample's files as one sample (joint fit)."""
     from zoning.fitting import fit_sample
@@ -1228,7 +1238,8 @@ def _fit_and_write_joint(job: SampleJob, build: Path):
         kw["n_chains"] = kw.pop("n_walkers")
     if "n_steps" in kw:
         kw["n_sweeps"] = kw.pop("n_steps")
-    result = fit_sample(traverses, name=job.name, **kw, **job.joint_options)
+    result = _with_project_entry(fit_sample(traverses, name=job.name, **kw,
+                                            **job.joint_options), job)
     write_sample_files(result, build, figures=job.figures, report=job.report)
     row = sample_summary_table([result]).iloc[0].to_dict()
     row["sample"] = job.name
