@@ -68,9 +68,24 @@ def olivine_pdf(olivine, tmp_path_factory):
                                   figures=[], date=DATE))
 
 
+class _PdfText(str):
+    """Text of a PDF compared without white space.
+
+    Text extraction puts line breaks where the report wraps, and older pypdf
+    releases insert spaces inside kerned words ("Di fferential"); comparing
+    with every white-space character removed checks the words and their order
+    whatever the version.
+    """
+
+    def __contains__(self, phrase):
+        return "".join(str(phrase).split()) in "".join(self.split())
+
+    def count(self, phrase, *args):
+        return "".join(self.split()).count("".join(str(phrase).split()), *args)
+
+
 def _pdf_text(path):
-    text = "\n".join(page.extract_text() for page in PdfReader(path).pages)
-    return " ".join(text.split())  # lines joined: wrapped sentences read whole
+    return _PdfText("\n".join(page.extract_text() for page in PdfReader(path).pages))
 
 
 def test_olivine_report_has_methods_references_definitions_and_date(olivine, olivine_pdf):
@@ -87,8 +102,7 @@ def test_olivine_report_has_methods_references_definitions_and_date(olivine, oli
     keys = {m.key for m in olivine.methods if m.key}
     assert {"roeder_emslie_1970", "hart_davis_1978", "helz_thornber_1987"} <= keys
     for key in keys:
-        full = " ".join(REFERENCES[key].full().split())
-        assert full in text, key
+        assert REFERENCES[key].full() in text, key
     assert "Mg#: melt Mg number, Mg/(Mg + Fe2+) in moles" in text
     assert "Fo: forsterite content of olivine" in text
     assert "Fe3+/FeT" in text
@@ -101,9 +115,9 @@ def test_report_states_data_quality_warnings_and_cautions(olivine, olivine_pdf):
     assert (f"{olivine.n_spots} spots read, {olivine.n_used} used in the fit, "
             f"{len(flagged)} left out") in text
     for reason in flagged["reason"]:
-        assert " ".join(reason.split())[:40] in text
+        assert reason in text
     for caution in CAUTIONS:
-        assert " ".join(caution.split())[:50] in text
+        assert caution in text
     # The thermometer's calibration warning of this fit reaches the report.
     calib = [w for w in olivine.warnings if "calibration range" in w]
     assert calib and "approximate calibration range of the helz_thornber_1987" in text
@@ -115,7 +129,7 @@ def test_plagioclase_report_has_no_olivine_only_settings(plag, tmp_path):
     for olivine_only in ("melt Fe3+/FeT", "glass thermometer"):
         assert olivine_only not in settings
         assert olivine_only not in text
-    assert "nan" not in text.lower().replace("nano", "")
+    assert "nan" not in str(text).lower().replace("nano", "")
     assert "Ca#: melt Ca number, Ca/(Ca + Na) in moles" in text
     assert "Mg#: melt Mg number" not in text
     assert text.count("random seed") == 1
@@ -163,7 +177,7 @@ def test_sample_report_carries_crystal_table_verdicts_and_shared_bands(joint, tm
     assert f"Verdict: {joint.verdict}." in text
     assert "parent melt Mg#" in text and "95% band" in text
     assert "Methods" in text and "fitted jointly" in text
-    assert "Wilks 1938" in text and " ".join(REFERENCES["wilks_1938"].full().split()) in text
+    assert "Wilks 1938" in text and REFERENCES["wilks_1938"].full() in text
     assert "Mg#: melt Mg number, Mg/(Mg + Fe2+) in moles" in text
 
 
