@@ -482,7 +482,7 @@ _CITING_INTRO = (
 
 
 def _uses_by_kind():
-    """Method records of each kind of result, from the functions the fits themselves call.
+    """Return the method records of each kind of result, from the functions the fits call.
 
     Imported here, not at module level: the registry stays importable on its own.
     """

@@ -1804,7 +1804,7 @@ def _write_tables(project: Project, out: Path, outcomes: Mapping[str, SampleOutc
     root.record("summary.csv", "summary.json")
     _write_crystals_table(project, out, outcomes, provenance, protect, root)
     if final:
-        if _write_xlsx(df, out / "summary.xlsx", protect=protect):
+        if _write_xlsx(df, out / "summary.xlsx", protect=protect, provenance=provenance):
             root.record("summary.xlsx")
         shown = df[df["run_status"].isin(["fitted", "unchanged", "failed"])]
         if (shown["run_status"] != "failed").any():
@@ -1844,26 +1844,19 @@ def _write_crystals_table(project, out, outcomes, provenance, protect, root) -> 
     root.record("crystals.csv", "crystals.json")
 
 
-def _write_xlsx(df: pd.DataFrame, path: Path, protect: Iterable[str] = ()) -> bool:
-    """Write ``summary.xlsx`` atomically if openpyxl is installed."""
+def _write_xlsx(df: pd.DataFrame, path: Path, protect: Iterable[str] = (),
+                provenance: Mapping[str, Any] | None = None) -> bool:
+    """Write ``summary.xlsx`` (units row, number formats, provenance sheet) atomically."""
     try:
         import openpyxl  # noqa: F401
     except ImportError:  # pragma: no cover - optional extra
         return False
     if str(path.resolve()) in {str(Path(p).resolve()) for p in protect}:
         raise ProjectError(f"refusing to overwrite input file {str(path)!r}; choose another --out.")
-    import tempfile
+    from zoning.io.results import band_digits, summary_number_formats, summary_units
+    from zoning.io.writers import write_xlsx
 
-    fd, name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp.xlsx", dir=path.parent)
-    os.close(fd)
-    tmp = Path(name)
-    try:
-        # Same neutralisation of formula injection as zoning.io.writers.write_csv.
-        from zoning.io.writers import _neutralise_frame
-
-        _neutralise_frame(df).to_excel(tmp, index=False, sheet_name="summary")
-        os.replace(tmp, path)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
+    write_xlsx(df, path, units=summary_units(df.columns),
+               number_formats=summary_number_formats(df.columns), provenance=provenance,
+               digits=band_digits(df.columns), protect=protect)
     return True
