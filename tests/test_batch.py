@@ -77,6 +77,13 @@ def test_batch_writes_summary_sample_folders_figures_and_report(tmp_path):
     assert [c for c in summary.columns if c in expected] == expected
     assert summary.columns[-2:].tolist() == ["file", "error"]
     assert (summary["error"] == "").all()
+    # Each warning of a fit is stated once: in 'warnings', not again in 'batch_warnings'.
+    assert summary["warnings"].fillna("").str.len().gt(0).all()
+    for stated, extra in zip(summary["warnings"].fillna(""),
+                             summary.get("batch_warnings", pd.Series([""] * len(summary)))
+                             .fillna(""), strict=True):
+        for text in filter(None, stated.split("; ")):
+            assert text not in extra
     files = {p.name for p in (out / "S1").iterdir()}
     assert {"fit.json", "profile.csv", "fingerprint.json", "report.pdf", "profile.png",
             "profile.pdf", "melt_path.png", "posterior.pdf"} <= files

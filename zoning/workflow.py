@@ -1112,7 +1112,10 @@ def run_sample(
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
             row, result = _fit_and_write(job, build)
-        extra = [_warning_text(w) for w in caught if str(w.message) not in result.warnings]
+        # Warnings the result states already (a fit warns "traverse 'X': <text>" and keeps
+        # <text> in result.warnings) are not repeated as batch warnings: once per traverse.
+        extra = [_warning_text(w) for w in caught
+                 if not any(text and text in str(w.message) for text in result.warnings)]
         row = dict(row)
         row["file"] = job.file
         row["error"] = ""
