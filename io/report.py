@@ -823,10 +823,14 @@ def _reproduce(result) -> str:
     entry = s.get("project_entry")
     if entry:
         if isinstance(entry, Mapping):
-            where = f"project file {entry['project']}, " if entry.get("project") else ""
-            return (f"Reproduce: zoning batch on the {where}sample entry "
-                    f"'{entry.get('sample', result.sample)}' (file {entry.get('file', '?')}); "
-                    "same settings and seed give the same numbers.")
+            sample = entry.get("sample", result.sample)
+            if entry.get("project"):
+                return (f"Reproduce: zoning batch {entry['project']} (sample entry '{sample}', "
+                        f"file {entry.get('file', '?')}); same settings and seed give the "
+                        "same numbers.")
+            return (f"Reproduce: zoning batch on the project's sample entry '{sample}' "
+                    f"(file {entry.get('file', '?')}); same settings and seed give the same "
+                    "numbers.")
         return f"Reproduce: {entry}"
     return ("Reproduce: fit the same file with the settings below (same settings and seed "
             "give the same numbers).")

@@ -106,6 +106,7 @@ def test_batch_writes_summary_sample_folders_figures_and_report(tmp_path):
     # The batch report says which project entry reproduces it.
     fit = json.loads((out / "S1" / "fit.json").read_text(encoding="utf-8"))
     assert fit["settings"]["project_entry"]["sample"] == "S1"
+    assert fit["settings"]["project_entry"]["project"] == str(read_project(path).path)
     text = stream.getvalue()
     assert "2/2 S2" in text and "elapsed" in text and "remaining" in text
 
