@@ -758,7 +758,9 @@ def settings_rows(result) -> list[list[str]]:
         rows.append(["sampler length", f"{s['n_chains']} chains × {s.get('n_sweeps', '?')} "
                      "sweeps"])
     labels = {"geometry": "growth geometry", "free": "free parameters",
-              "fixed": "fixed parameters", "sigma": "1σ of Fo/An", "robust": "robust loss",
+              "fixed": "fixed parameters",
+              "sigma": "1σ of Fo" if mineral == "olivine" else "1σ of An",
+              "robust": "robust loss",
               "f_rim": "F at the rim", "retention": "retention", "exclude": "crystals left out",
               "consistency_test": "consistency test", "sampler": "sampler",
               "kd_prior_mean": None, "melt": None, "fe3_fraction": None, "thermometer": None,
@@ -1093,11 +1095,10 @@ def _sample_methods(ctx):
     if s.get("sampler"):
         joint.append(f"The joint posterior was sampled by {s['sampler']}.")
     uses = list(getattr(r, "methods", ()))
-    closing = " ".join(joint + [_CLOSING])
-    if uses:
-        text = methods_paragraph(uses, lead=lead, closing=closing)
+    if uses:  # the records say it all, the consistency test and the sampler included
+        text = methods_paragraph(uses, lead=lead, closing=_CLOSING)
     else:
-        text = f"{lead} {closing}"
+        text = " ".join([lead, *joint, _CLOSING])
     return [Paragraph(text, size=8.5),
             Paragraph("Adapt this paragraph freely; every method named in it is listed in "
                       "full under References.", size=7.0, italic=True)]
