@@ -536,6 +536,7 @@ _LABELS = {
     "core_offset_um": "core offset",
     "section_h_over_r": "section offset h/R",
     "diffusion_length_um": "diffusion length",
+    "diffusion_time_days": "diffusion time",
     "melt0_ni_ppm": "initial melt Ni",
     "melt0_sr_ppm": "initial melt Sr",
     "melt0_mgo_wt": "initial melt MgO (trace)",

@@ -450,6 +450,7 @@ QUANTITY_UNITS = {
     "core_offset_um": "µm",
     "section_h_over_r": "fraction",
     "diffusion_length_um": "µm",
+    "diffusion_time_days": "days",
     "melt0_ni_ppm": "ppm",
     "melt0_sr_ppm": "ppm",
     "melt0_mgo_wt": "wt%",
@@ -457,7 +458,8 @@ QUANTITY_UNITS = {
 
 #: Excel number format by unit of a quantity (digits as the bands carry them).
 _UNIT_FORMATS = {"molar fraction": "0.000", "fraction": "0.000", "1": "0.000",
-                 "logit units": "0.00", "wt%": "0.00", "°C": "0", "µm": "0.0", "ppm": "0"}
+                 "logit units": "0.00", "wt%": "0.00", "°C": "0", "µm": "0.0", "ppm": "0",
+                 "days": "0.0"}
 
 #: Units and formats of the other columns of the summary tables.
 _OTHER_COLUMNS = {
