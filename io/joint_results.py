@@ -279,7 +279,9 @@ def write_sample_files(result: Any, folder: str | os.PathLike, *, protect=None,
             for stem, fig in drawn.items():
                 written += list(save_figure(fig, folder / stem).values())
         if report:
-            written.append(joint_figures.write_sample_report(
+            from zoning.io.report import write_sample_report
+
+            written.append(write_sample_report(
                 result, folder / "report.pdf", figures=list(drawn.values())))
     return written
 

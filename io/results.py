@@ -36,6 +36,9 @@ __all__ = [
     "SUMMARY_QUANTITIES",
     "SUMMARY_TAIL",
     "CAUTIONS",
+    "QUANTITY_UNITS",
+    "summary_units",
+    "summary_number_formats",
 ]
 
 #: Quantities of the summary table, in column order (the mineral decides
@@ -95,6 +98,20 @@ def _quantities(results: Sequence[Any]) -> list[str]:
     return [q for q in SUMMARY_QUANTITIES if q in present]
 
 
+#: Columns of the summary table on how the traverse was read, after ``n_used``.
+ORIENTATION_COLUMNS = ("orientation", "orientation_confidence", "core_position_um")
+
+
+def _orientation_fields(result: Any) -> dict[str, Any]:
+    """Orientation, its confidence and the core position of the fitted traverse."""
+    t = result.traverse
+    return {
+        "orientation": t.orientation,
+        "orientation_confidence": t.orientation_confidence,
+        "core_position_um": float(getattr(t, "core_position_um", math.nan)),
+    }
+
+
 def summary_table(results: Iterable[Any]) -> pd.DataFrame:
     """One row per fitted traverse: best values, 95% bands and verdicts.
 
@@ -106,7 +123,11 @@ def summary_table(results: Iterable[Any]) -> pd.DataFrame:
     Returns
     -------
     pandas.DataFrame
-        Columns ``sample``, ``mineral``, ``n_spots``, ``n_used``; for each
+        Columns ``sample``, ``mineral``, ``n_spots``, ``n_used``,
+        ``orientation``, ``orientation_confidence`` ("confirmed" when given
+        by the user, else "high" or "low" as decided from the file: see
+        the README's "Orientation and core") and ``core_position_um``
+        (stage position of the core on the traverse line [µm]); for each
         quantity of :data:`SUMMARY_QUANTITIES` present in any result:
         ``<name>`` (best value), ``<name>_lo95``, ``<name>_hi95``,
         ``<name>_constrained``; then ``reduced_chi_square``,
@@ -124,6 +145,7 @@ def summary_table(results: Iterable[Any]) -> pd.DataFrame:
             "mineral": r.mineral,
             "n_spots": int(r.n_spots),
             "n_used": int(r.n_used),
+            **_orientation_fields(r),
         }
         for q in quantities:
             e = r.estimates.get(q)
@@ -136,7 +158,7 @@ def summary_table(results: Iterable[Any]) -> pd.DataFrame:
         row["delta_bic"] = float(getattr(r, "delta_bic", math.nan))
         row["warnings"] = "; ".join(r.warnings)
         rows.append(row)
-    columns = ["sample", "mineral", "n_spots", "n_used"]
+    columns = ["sample", "mineral", "n_spots", "n_used", *ORIENTATION_COLUMNS]
     for q in quantities:
         columns += [q, f"{q}_lo95", f"{q}_hi95", f"{q}_constrained"]
     columns += list(SUMMARY_TAIL)
@@ -205,6 +227,8 @@ def fit_to_dict(result: Any) -> dict[str, Any]:
         "mineral": result.mineral,
         "n_spots": int(result.n_spots),
         "n_used": int(result.n_used),
+        **_orientation_fields(result),
+        "orientation_basis": result.traverse.orientation_basis,
         "estimates": {
             name: {
                 "unit": e.unit,
@@ -393,6 +417,11 @@ def format_report(result: Any) -> str:
         f"{result.sample} ({result.mineral}): {result.n_used} of {result.n_spots} spots "
         f"fitted, reduced chi-square {result.reduced_chi_square:.2f}"
     )
+    t = result.traverse
+    basis = f" ({t.orientation_basis})" if t.orientation_basis else ""
+    lines.extend(textwrap.wrap(
+        f"orientation {t.orientation}, confidence {t.orientation_confidence}{basis}",
+        width=96, initial_indent="  ", subsequent_indent="    "))
     width = max(len(_LABELS.get(n, n)) for n in result.estimates) if result.estimates else 10
     for name, e in result.estimates.items():
         label = _LABELS.get(name, name).ljust(width)
@@ -435,3 +464,96 @@ def format_report(result: Any) -> str:
             )
     lines.extend(textwrap.wrap("  note: " + CAUTIONS, width=100, subsequent_indent="    "))
     return "\n".join(lines) + "\n"
+
+
+#: Unit of each quantity of the result tables (``<q>``, ``<q>_lo95``, ``<q>_hi95``).
+QUANTITY_UNITS = {
+    "melt_mg_number": "molar fraction",
+    "melt_ca_number": "molar fraction",
+    "f_rim": "fraction",
+    "f_core": "fraction",
+    "retention": "fraction",
+    "retention_spread": "logit units",
+    "kd": "1",
+    "melt_mgo_wt": "wt%",
+    "melt_cao_wt": "wt%",
+    "temperature_c": "°C",
+    "growth_exponent": "1",
+    "core_offset_um": "µm",
+    "section_h_over_r": "fraction",
+    "diffusion_length_um": "µm",
+    "diffusion_time_days": "days",
+    "melt0_ni_ppm": "ppm",
+    "melt0_sr_ppm": "ppm",
+    "melt0_mgo_wt": "wt%",
+}
+
+#: Excel number format by unit of a quantity (digits as the bands carry them).
+_UNIT_FORMATS = {"molar fraction": "0.000", "fraction": "0.000", "1": "0.000",
+                 "logit units": "0.00", "wt%": "0.00", "°C": "0", "µm": "0.0", "ppm": "0",
+                 "days": "0.0"}
+
+#: Units and formats of the other columns of the summary tables.
+_OTHER_COLUMNS = {
+    "n_spots": ("count", "0"), "n_used": ("count", "0"), "n_crystals": ("count", "0"),
+    "n_antecrysts": ("count", "0"), "reduced_chi_square": ("1", "0.00"),
+    "delta_bic": ("BIC units", "0.0"),
+}
+
+
+def _base(column: str) -> str:
+    for suffix in ("_lo95", "_hi95", "_constrained"):
+        if column.endswith(suffix):
+            return column[: -len(suffix)]
+    return column
+
+
+def summary_units(columns: Iterable[Any]) -> dict[str, str]:
+    """Return the unit of each column of a summary table (row 2 of ``summary.xlsx``).
+
+    Parameters
+    ----------
+    columns : iterable of str
+
+    Returns
+    -------
+    dict of str to str
+        ``"molar fraction"``, ``"wt%"``, ``"°C"``, ``"count"``, ... ;
+        ``"true/false"`` for ``<q>_constrained``; ``""`` for text columns.
+    """
+    out = {}
+    for c in map(str, columns):
+        if c.endswith("_constrained"):
+            out[c] = "true/false"
+        elif _base(c) in QUANTITY_UNITS:
+            out[c] = QUANTITY_UNITS[_base(c)]
+        elif c in _OTHER_COLUMNS:
+            out[c] = _OTHER_COLUMNS[c][0]
+        else:
+            out[c] = ""
+    return out
+
+
+def summary_number_formats(columns: Iterable[Any]) -> dict[str, str]:
+    """Return the Excel number format of each numeric column of a summary table.
+
+    Parameters
+    ----------
+    columns : iterable of str
+
+    Returns
+    -------
+    dict of str to str
+        Fractions and Kd with 3 decimals, wt% with 2, °C and ppm whole,
+        counts as integers; columns not listed keep "General".
+    """
+    out = {}
+    for c in map(str, columns):
+        base = _base(c)
+        if c.endswith("_constrained"):
+            continue
+        if base in QUANTITY_UNITS:
+            out[c] = _UNIT_FORMATS[QUANTITY_UNITS[base]]
+        elif c in _OTHER_COLUMNS:
+            out[c] = _OTHER_COLUMNS[c][1]
+    return out

@@ -41,6 +41,7 @@ the samples whose inputs and settings are unchanged.
 from __future__ import annotations
 
 import concurrent.futures as cf
+import dataclasses
 import difflib
 import hashlib
 import json
@@ -465,6 +466,10 @@ class SampleJob:
         Why the sample cannot be run (e.g. its file lies outside the project
         folder); "" when it can. A sample with a problem is a failed row of
         the batch, its file is never opened.
+    project : str
+        The project file (or folder) the sample was read from; recorded in
+        the results so that reports say how to rerun them (not part of the
+        fingerprint).
     """
 
     name: str
@@ -478,6 +483,7 @@ class SampleJob:
     files: tuple[str, ...] = ()
     joint: bool = False
     joint_options: Mapping[str, Any] = field(default_factory=dict)
+    project: str = ""
 
     def __post_init__(self):
         object.__setattr__(self, "read_options", dict(self.read_options))
@@ -750,6 +756,7 @@ def read_project(
         _check_job_settings({FIT_OPTIONS[k][0]: v for k, v in merged.items() if k in FIT_OPTIONS},
                             where)
         jobs.append(_make_job(str(name), paths[0], traverse, merged, problem, tuple(paths)))
+    jobs = [dataclasses.replace(j, project=str(path.resolve())) for j in jobs]
     return Project(path=str(path.resolve()), jobs=tuple(jobs), defaults=defaults)
 
 
@@ -823,6 +830,7 @@ def project_from_folder(folder: str | os.PathLike, options: Mapping[str, Any]) -
                 name = f"{file.stem} {tname}" if tname else file.name
             used.add(name)
             jobs.append(_make_job(name, file, tname if len(names) > 1 else "", opts))
+    jobs = [dataclasses.replace(j, project=str(folder)) for j in jobs]
     return Project(path=str(folder), jobs=tuple(jobs), defaults=opts)
 
 
@@ -1126,7 +1134,10 @@ def run_sample(
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
             row, result = _fit_and_write(job, build)
-        extra = [_warning_text(w) for w in caught if str(w.message) not in result.warnings]
+        # Warnings the result states already (a fit warns "traverse 'X': <text>" and keeps
+        # <text> in result.warnings) are not repeated as batch warnings: once per traverse.
+        extra = [_warning_text(w) for w in caught
+                 if not any(text and text in str(w.message) for text in result.warnings)]
         row = dict(row)
         row["file"] = job.file
         row["error"] = ""
@@ -1210,7 +1221,7 @@ def _fit_and_write(job: SampleJob, build: Path):
     check_fittable(traverse, include_flagged=bool(job.fit_options.get("include_flagged")),
                    distance_range=job.fit_options.get("distance_range"),
                    radius_um=job.fit_options.get("radius_um"))
-    result = fit_traverse(traverse, **job.fit_options)
+    result = _with_project_entry(fit_traverse(traverse, **job.fit_options), job)
     write_fit_json(result, build / "fit.json")
     write_profile_csv(result, build / "profile.csv")
     if job.figures or job.report:
@@ -1226,6 +1237,16 @@ def _fit_and_write(job: SampleJob, build: Path):
     row = summary_table([result]).iloc[0].to_dict()
     row["sample"] = job.name
     return row, result
+
+
+def _with_project_entry(result, job: SampleJob):
+    """Record in ``result.settings["project_entry"]`` the project entry that reproduces it."""
+    entry = {"sample": job.name, "file": job.file}
+    if job.project:
+        entry["project"] = job.project
+    if job.traverse:
+        entry["traverse"] = job.traverse
+    return dataclasses.replace(result, settings={**result.settings, "project_entry": entry})
 
 
 def _fit_and_write_joint(job: SampleJob, build: Path):
@@ -1245,7 +1266,8 @@ def _fit_and_write_joint(job: SampleJob, build: Path):
         kw["n_chains"] = kw.pop("n_walkers")
     if "n_steps" in kw:
         kw["n_sweeps"] = kw.pop("n_steps")
-    result = fit_sample(traverses, name=job.name, **kw, **job.joint_options)
+    result = _with_project_entry(fit_sample(traverses, name=job.name, **kw,
+                                            **job.joint_options), job)
     write_sample_files(result, build, figures=job.figures, report=job.report)
     row = sample_summary_table([result]).iloc[0].to_dict()
     row["sample"] = job.name
@@ -1810,7 +1832,7 @@ def _write_tables(project: Project, out: Path, outcomes: Mapping[str, SampleOutc
     root.record("summary.csv", "summary.json")
     _write_crystals_table(project, out, outcomes, provenance, protect, root)
     if final:
-        if _write_xlsx(df, out / "summary.xlsx", protect=protect):
+        if _write_xlsx(df, out / "summary.xlsx", protect=protect, provenance=provenance):
             root.record("summary.xlsx")
         shown = df[df["run_status"].isin(["fitted", "unchanged", "failed"])]
         if (shown["run_status"] != "failed").any():
@@ -1850,26 +1872,19 @@ def _write_crystals_table(project, out, outcomes, provenance, protect, root) -> 
     root.record("crystals.csv", "crystals.json")
 
 
-def _write_xlsx(df: pd.DataFrame, path: Path, protect: Iterable[str] = ()) -> bool:
-    """Write ``summary.xlsx`` atomically if openpyxl is installed."""
+def _write_xlsx(df: pd.DataFrame, path: Path, protect: Iterable[str] = (),
+                provenance: Mapping[str, Any] | None = None) -> bool:
+    """Write ``summary.xlsx`` (units row, number formats, provenance sheet) atomically."""
     try:
         import openpyxl  # noqa: F401
     except ImportError:  # pragma: no cover - optional extra
         return False
     if str(path.resolve()) in {str(Path(p).resolve()) for p in protect}:
         raise ProjectError(f"refusing to overwrite input file {str(path)!r}; choose another --out.")
-    import tempfile
+    from zoning.io.results import band_digits, summary_number_formats, summary_units
+    from zoning.io.writers import write_xlsx
 
-    fd, name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp.xlsx", dir=path.parent)
-    os.close(fd)
-    tmp = Path(name)
-    try:
-        # Same neutralisation of formula injection as zoning.io.writers.write_csv.
-        from zoning.io.writers import _neutralise_frame
-
-        _neutralise_frame(df).to_excel(tmp, index=False, sheet_name="summary")
-        os.replace(tmp, path)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
+    write_xlsx(df, path, units=summary_units(df.columns),
+               number_formats=summary_number_formats(df.columns), provenance=provenance,
+               digits=band_digits(df.columns), protect=protect)
     return True

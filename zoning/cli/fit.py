@@ -13,7 +13,7 @@ from pathlib import Path
 from zoning.cli._reading import add_reading_options, reading_options
 from zoning.exceptions import ZoningError
 
-__all__ = ["add_parser", "run", "parse_melt", "parse_range", "parse_process"]
+__all__ = ["add_parser", "run", "parse_melt", "parse_range", "parse_process", "with_command"]
 
 
 def parse_melt(items: list[str] | None) -> dict[str, float]:
@@ -111,6 +111,23 @@ def parse_process(option: str, text: str | None) -> str | float | None:
             f"{option} expects 'free' or a number; got {text!r}. Give e.g. {option} free or "
             f"{option} 0."
         ) from None
+
+
+def with_command(result, args: argparse.Namespace):
+    """Return ``result`` with the command line and its folder in its settings.
+
+    ``settings["command"]`` (as typed, e.g. ``zoning fit FRL-07_ol1.csv --melt FeO=9.8``) and
+    ``settings["command_folder"]`` (the folder it was run from) let the report, ``fit.json`` and
+    the table sidecars say how to reproduce the result.
+    """
+    import dataclasses
+    import os
+
+    command = getattr(args, "command_line", "")
+    if not command:
+        return result
+    settings = {**result.settings, "command": command, "command_folder": os.getcwd()}
+    return dataclasses.replace(result, settings=settings)
 
 
 def _free(text: str | None) -> tuple[str, ...]:
@@ -300,6 +317,7 @@ def run(args: argparse.Namespace) -> int:
             failed += 1
             print(f"zoning fit: {traverse.name}: not fitted: {exc}", file=sys.stderr)
             continue
+        result = with_command(result, args)
         results.append(result)
         print(format_report(result))
     if not results:
@@ -335,6 +353,7 @@ def _run_joint(args, traverses, common, out_dir, sources) -> int:
         retention=args.joint_retention, exclude=_free(args.exclude),
         n_chains=32 if args.walkers is None else args.walkers, n_sweeps=args.steps,
     )
+    result = with_command(result, args)
     print(format_sample_report(result))
     provenance = {"sources": [str(p.resolve()) for p in sources],
                   "settings": dict(result.settings)}
