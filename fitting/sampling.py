@@ -280,6 +280,8 @@ def run_ensemble(
         if burn_in > 0
         else start
     )
+    if hop and burn_in > 0:
+        state = _reset_stragglers(state, rng)
     # Production: Metropolis steps with a Gaussian proposal shaped by the
     # covariance of the second half of the burn-in (scaled by 2.38^2/p,
     # Gelman, Roberts & Gilks 1996), mixed with differential-evolution steps.
@@ -305,6 +307,16 @@ def run_ensemble(
     ))
     sampler.run_mcmc(state, n_steps - burn_in, progress=progress, skip_initial_state_check=True)
     chain = sampler.get_chain()  # (steps, walkers, p)
+    # A walker that never moved in production (stranded in a small, narrow
+    # mode that no move reaches or leaves) carries no information on the
+    # posterior's shape and would give it a spike: leave it out.
+    moved = np.any(np.ptp(chain, axis=0) > 0, axis=1)
+    if 2 <= moved.sum() < chain.shape[1]:
+        chain = chain[:, moved]
+        log_prob_kept = sampler.get_log_prob()[:, moved]
+    else:
+        log_prob_kept = sampler.get_log_prob()
+    n_walkers = chain.shape[1]
     with np.errstate(invalid="ignore", divide="ignore"):
         # a walker that never moved has a zero autocorrelation at lag 0
         tau = emcee.autocorr.integrated_time(chain, c=5, tol=0, quiet=True)
@@ -319,7 +331,7 @@ def run_ensemble(
     # point of zero posterior is never accepted, so every kept draw has a
     # finite log-posterior; the check below guards that invariant (a draw
     # outside the prior would reach the derived quantities otherwise).
-    finite = np.isfinite(sampler.get_log_prob())
+    finite = np.isfinite(log_prob_kept)
     flat = chain.reshape(-1, n_par)[finite.reshape(-1)]
     thinned = chain[::thin].reshape(-1, n_par)[finite[::thin].reshape(-1)]
     return ChainSummary(
@@ -333,6 +345,28 @@ def run_ensemble(
         burn_in=int(burn_in),
         thin=thin,
     )
+
+
+#: At the end of the burn-in of a sampler started in several modes, walkers
+#: whose log-posterior lies more than this below the ensemble's median are
+#: moved onto other walkers (the modes they started in carry no mass; our
+#: choice, about a 1e-4 density ratio).
+STRAGGLER_LOG_PROB = 10.0
+
+
+def _reset_stragglers(state, rng):
+    """Move walkers far below the ensemble's median log-posterior onto good walkers."""
+    coords = np.array(state.coords, dtype=float, copy=True)
+    lp = np.asarray(state.log_prob, dtype=float)
+    good = np.isfinite(lp) & (lp >= np.median(lp[np.isfinite(lp)]) - STRAGGLER_LOG_PROB)
+    bad = ~good
+    if not bad.any() or good.sum() < 2:
+        return state
+    donors = rng.choice(np.flatnonzero(good), size=int(bad.sum()))
+    coords[bad] = coords[donors]
+    new_lp = lp.copy()
+    new_lp[bad] = lp[donors]
+    return emcee.State(coords, log_prob=new_lp, random_state=state.random_state)
 
 
 def _independence_move(mean, cov):

@@ -104,7 +104,9 @@ ORIENTATION_COLUMNS = ("orientation", "orientation_confidence", "core_position_u
 
 def _orientation_fields(result: Any) -> dict[str, Any]:
     """Orientation, its confidence and the core position of the fitted traverse."""
-    t = result.traverse
+    t = getattr(result, "traverse", None)
+    if t is None:  # a joint fit (several crystals): no single traverse to describe
+        return {"orientation": "", "orientation_confidence": "", "core_position_um": math.nan}
     return {
         "orientation": t.orientation,
         "orientation_confidence": t.orientation_confidence,
