@@ -1,6 +1,7 @@
 """Figures: content checks (labels, plotted points, bands), not pixels."""
 
 import dataclasses
+import shutil
 import warnings
 
 import matplotlib
@@ -359,3 +360,93 @@ def test_curve_under_the_best_fit_is_marked_in_the_legend(olivine):
         if label.startswith("pure "):
             gap = np.max(np.abs(np.asarray(ln.get_ydata()) - best.get_ydata()))
             assert label.endswith(": under the best fit") == (gap <= 0.01 * (hi - lo))
+
+
+# --- figures from every command ---------------------------------------------
+
+
+def _cli(argv):
+    from zoning.cli import main
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ZoningWarning)  # short chains warn, on purpose
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return main(argv)
+
+
+def test_zoning_fit_writes_the_figures_and_report_of_batch_and_says_where(tmp_path, capsys):
+    export = tmp_path / "FRL-07_ol1.csv"
+    shutil.copy(FERROLYN / "FRL-07_ol1.csv", export)
+    fast = ["--melt", "FeO=9.8", "--walkers", "16", "--steps", "150", "--seed", "2"]
+    out = tmp_path / "res"
+    assert _cli(["fit", str(export), *fast, "--out", str(out), "--figure-format", "svg,png",
+                 "--figure-style", "column"]) == 0
+    text = capsys.readouterr().out
+    folder = out / "FRL-07_ol1"
+    names = {p.name for p in folder.iterdir()}
+    assert {f"{stem}.{fmt}" for stem in figures.SAMPLE_FIGURES for fmt in ("png", "svg")} <= names
+    assert "report.pdf" in names and not any(n.endswith(".pdf") and n != "report.pdf"
+                                             for n in names)
+    assert (folder / "report.pdf").read_bytes().startswith(b"%PDF")
+    assert f"{folder}: figures profile, melt_path, posterior (png, svg); report.pdf" in text
+    # The PNG has the width of the chosen preset (85 mm at 300 dpi).
+    png = (folder / "profile.png").read_bytes()
+    assert int.from_bytes(png[16:20], "big") == pytest.approx(85 / 25.4 * 300, abs=2)
+    # --no-figures --no-report: the fit's tables only, and the console says so.
+    bare = tmp_path / "bare"
+    assert _cli(["fit", str(export), *fast, "--out", str(bare), "--no-figures",
+                 "--no-report"]) == 0
+    assert {p.name for p in (bare / "FRL-07_ol1").iterdir()} == {
+        "fit.json", "profile.csv", "profile.json"}
+    assert "no figures or reports" in capsys.readouterr().out
+    # A bad format is one clear line naming what exists, exit code 2.
+    assert _cli(["fit", str(export), *fast, "--out", str(bare), "--figure-format", "tif"]) == 2
+    assert "zoning writes png, pdf, svg" in capsys.readouterr().err
+
+
+def _one_sample(tmp_path, extra=""):
+    shutil.copy(FERROLYN / "FRL-07_ol1.csv", tmp_path / "a.csv")
+    path = tmp_path / "project.toml"
+    path.write_text('[defaults]\nwalkers = 16\nsteps = 120\nseed = 2\nreport = false\n'
+                    f'{extra}\n[samples."A"]\nfile = "a.csv"\nmelt = {{ FeO = 9.8 }}\n',
+                    encoding="utf-8")
+    return path
+
+
+def test_figure_format_and_style_are_project_keys_and_part_of_the_fingerprint(tmp_path):
+    from zoning.exceptions import ProjectError
+    from zoning.workflow import fingerprint, read_project
+
+    plain = fingerprint(read_project(_one_sample(tmp_path)).jobs[0])
+    job = read_project(_one_sample(tmp_path, 'figure_format = "svg,png"')).jobs[0]
+    assert job.figure_format == ("png", "svg") and job.figure_style == "thesis"
+    svg = fingerprint(job)
+    assert svg != plain
+    same = read_project(_one_sample(tmp_path, 'figure_format = ["png", "svg"]')).jobs[0]
+    assert fingerprint(same) == svg  # the same set, spelled another way
+    column = read_project(_one_sample(tmp_path, 'figure_style = "column"')).jobs[0]
+    assert column.figure_style == "column" and fingerprint(column) != plain
+    with pytest.raises(ProjectError, match="'figure_format'.*png, pdf, svg"):
+        read_project(_one_sample(tmp_path, 'figure_format = ["tiff"]'))
+    with pytest.raises(ProjectError, match="'figure_style'.*'thesis', 'column', 'slide'"):
+        read_project(_one_sample(tmp_path, 'figure_style = "poster"'))
+
+
+def test_batch_rerun_with_other_figure_formats_is_not_unchanged(tmp_path):
+    from zoning.workflow import read_project, run_batch
+
+    out = tmp_path / "out"
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ZoningWarning)
+        warnings.simplefilter("ignore", RuntimeWarning)
+        first = run_batch(read_project(_one_sample(tmp_path)), out, workers=1, progress=False)
+        again = run_batch(read_project(_one_sample(tmp_path)), out, workers=1, progress=False)
+        svg = run_batch(read_project(_one_sample(tmp_path, 'figure_format = "svg"\n'
+                                                 'figure_style = "slide"')),
+                        out, workers=1, progress=False)
+    assert [o.status for o in (*first.outcomes, *again.outcomes, *svg.outcomes)] == [
+        "fitted", "unchanged", "fitted"]
+    names = {p.name for p in (out / "A").iterdir()}
+    assert {"profile.svg", "melt_path.svg", "posterior.svg"} <= names
+    assert not names & {"profile.png", "profile.pdf"}  # the folder holds this run's set
+    assert (out / "overview.svg").exists()
