@@ -91,6 +91,9 @@ def fit_methods(
         MethodUse("model choice", "schwarz_1978",
                   "Bayesian information criterion BIC = chi2 + k ln n"),
         MethodUse("model choice", "akaike_1974", "Akaike information criterion, reported"),
+        MethodUse("model choice", "kass_raftery_1995",
+                  "a model is preferred when its BIC is lower than the runner-up's by at "
+                  "least 2 (positive evidence)"),
     ]
     if math.isfinite(sigma_scale) and sigma_scale > 1.0:
         uses.append(MethodUse("uncertainty scaling", "birge_1932",

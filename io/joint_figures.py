@@ -1,4 +1,4 @@
-"""Figures and report pages of a joint fit (one sample, many crystals).
+"""Figures of a joint fit (one sample, many crystals).
 
 * :func:`sample_figure`: every crystal's record placed on the shared melt
   path (composition against the crystallized fraction F, each crystal its own
@@ -6,8 +6,8 @@
   shared melt with its 95% band, the parent melt at F = 0;
 * :func:`crystals_figure`: each crystal's profile with the model band of the
   joint posterior of its group (or of its own fit when set apart);
-* :func:`crystals_section`: the report page with the table of crystals
-  (one function per report section), and :func:`write_sample_report`.
+* the report page with the table of crystals is a section of
+  :func:`zoning.io.report.write_sample_report`.
 
 Results are read by attribute; :mod:`zoning.fitting` is not imported.
 """
@@ -15,13 +15,8 @@ Results are read by attribute; :mod:`zoning.fitting` is not imported.
 from __future__ import annotations
 
 import math
-import os
-import textwrap
-from collections.abc import Sequence
-from pathlib import Path
 
 import numpy as np
-from matplotlib.backends.backend_pdf import PdfPages
 from matplotlib.figure import Figure
 from matplotlib.ticker import MaxNLocator
 from zoning.io.figures import (
@@ -37,8 +32,7 @@ from zoning.io.figures import (
     _wrap,
 )
 
-__all__ = ["sample_figure", "crystals_figure", "crystals_section", "sample_figures",
-           "write_sample_report", "JOINT_FIGURES"]
+__all__ = ["sample_figure", "crystals_figure", "sample_figures", "JOINT_FIGURES"]
 
 _MARKERS = ("o", "s", "^", "D", "v", "P", "X", "<", ">", "h", "*", "p")
 _RATIO = {"olivine": ("melt_mg_number", "Mg#"), "plagioclase": ("melt_ca_number", "Ca#")}
@@ -189,73 +183,6 @@ def crystals_figure(result, *, fig: Figure | None = None,
         return _finish(fig)
 
 
-def _f(value, digits=3) -> str:
-    return "–" if not (isinstance(value, float | int) and math.isfinite(value)) else (
-        f"{value:.{digits}f}")
-
-
-def crystals_section(result, *, fig: Figure | None = None) -> Figure:
-    """Report page of a joint fit: shared quantities and the table of crystals.
-
-    Parameters
-    ----------
-    result : SampleFitResult
-    fig : matplotlib.figure.Figure, optional
-        A4 page to draw into (default a new one).
-
-    Returns
-    -------
-    matplotlib.figure.Figure
-    """
-    from zoning.io.joint_results import JOINT_CAUTION
-
-    fig = fig if fig is not None else Figure(figsize=_A4)
-    ratio, label = _RATIO[result.mineral]
-    y = 0.96
-    fig.text(0.06, y, f"{result.name}: joint fit of {result.n_crystals} crystals",
-             fontsize=12, weight="bold")
-    y -= 0.03
-    fig.text(0.06, y, f"verdict: {result.verdict}; F counts from the nucleation of "
-             f"{result.anchor} (F_core = 0 by definition)", fontsize=8)
-    y -= 0.035
-    for name, e in result.estimates.items():
-        text = (f"{name}: NOT CONSTRAINED" if not e.constrained else
-                f"{name}: {_f(e.best)}  95% band [{_f(e.lo95)}, {_f(e.hi95)}] {e.unit}")
-        if e.note:
-            text += f"  ({e.note})"
-        for line in textwrap.wrap(text, 110):
-            fig.text(0.06, y, line, fontsize=7)
-            y -= 0.018
-    y -= 0.01
-    header = ["crystal", "verdict", "F_core [95%]", f"own {label} [95%]", "T (dof)", "p"]
-    rows = []
-    for c in result.crystals:
-        fc = c.estimates.get("f_core")
-        own = c.own_estimates.get(ratio)
-        rows.append([
-            c.name, c.verdict,
-            f"{_f(fc.best)} [{_f(fc.lo95)}, {_f(fc.hi95)}]" if fc is not None else "–",
-            f"[{_f(own.lo95)}, {_f(own.hi95)}]" if own is not None else "–",
-            f"{_f(c.consistency_statistic, 1)} ({c.consistency_dof})"
-            if math.isfinite(c.consistency_statistic) else "–",
-            f"{c.consistency_p:.2g}" if math.isfinite(c.consistency_p) else "–",
-        ])
-    height = 0.022 * (len(rows) + 1)
-    ax = fig.add_axes((0.06, y - height, 0.88, height))
-    ax.set_axis_off()
-    table = ax.table(cellText=rows, colLabels=header, loc="upper left", cellLoc="left")
-    table.auto_set_font_size(False)
-    table.set_fontsize(6.5)
-    y -= height + 0.03
-    for text in list(result.warnings) + [JOINT_CAUTION]:
-        for line in textwrap.wrap("- " + text, 120):
-            if y < 0.03:
-                break
-            fig.text(0.06, y, line, fontsize=6.5)
-            y -= 0.016
-    return fig
-
-
 #: File stems of the figures of a joint fit, in the order of :func:`sample_figures`.
 JOINT_FIGURES = ("sample", "crystals")
 
@@ -275,31 +202,3 @@ def sample_figures(result, *, style: str | FigureStyle | None = None) -> dict[st
     """
     return {"sample": sample_figure(result, style=style),
             "crystals": crystals_figure(result, style=style)}
-
-
-def write_sample_report(result, path: str | os.PathLike,
-                        figures: Sequence[Figure] | None = None) -> Path:
-    """Write the PDF report of a joint fit: crystals page, then the figures.
-
-    Parameters
-    ----------
-    result : SampleFitResult
-    path : str or path-like
-        Destination ``.pdf``.
-    figures : sequence of Figure, optional
-        Figures to append (default :func:`sample_figures`).
-
-    Returns
-    -------
-    pathlib.Path
-    """
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    figures = list(sample_figures(result).values()) if figures is None else list(figures)
-    tmp = path.with_name(f".partial-{path.name}")
-    with PdfPages(tmp, metadata={"Title": f"zoning joint fit {result.name}"}) as pdf:
-        pdf.savefig(crystals_section(result))
-        for f in figures:
-            pdf.savefig(f)
-    os.replace(tmp, path)
-    return path

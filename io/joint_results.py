@@ -290,9 +290,11 @@ def write_sample_files(result: Any, folder: str | os.PathLike, *, protect=None,
             for stem, fig in drawn.items():
                 written += list(save_figure(fig, folder / stem, formats=figure_format).values())
         if report:
+            from zoning.io.report import write_sample_report
+
             if style.name != DEFAULT_FIGURE_STYLE:  # A4 pages: thesis-size figures
                 drawn = joint_figures.sample_figures(result)
-            written.append(joint_figures.write_sample_report(
+            written.append(write_sample_report(
                 result, folder / "report.pdf", figures=list(drawn.values())))
     return written
 

@@ -36,6 +36,9 @@ __all__ = [
     "SUMMARY_QUANTITIES",
     "SUMMARY_TAIL",
     "CAUTIONS",
+    "QUANTITY_UNITS",
+    "summary_units",
+    "summary_number_formats",
 ]
 
 #: Quantities of the summary table, in column order (the mineral decides
@@ -455,3 +458,94 @@ def format_report(result: Any) -> str:
             )
     lines.extend(textwrap.wrap("  note: " + CAUTIONS, width=100, subsequent_indent="    "))
     return "\n".join(lines) + "\n"
+
+
+#: Unit of each quantity of the result tables (``<q>``, ``<q>_lo95``, ``<q>_hi95``).
+QUANTITY_UNITS = {
+    "melt_mg_number": "molar fraction",
+    "melt_ca_number": "molar fraction",
+    "f_rim": "fraction",
+    "f_core": "fraction",
+    "retention": "fraction",
+    "retention_spread": "logit units",
+    "kd": "1",
+    "melt_mgo_wt": "wt%",
+    "melt_cao_wt": "wt%",
+    "temperature_c": "°C",
+    "growth_exponent": "1",
+    "core_offset_um": "µm",
+    "section_h_over_r": "fraction",
+    "diffusion_length_um": "µm",
+    "melt0_ni_ppm": "ppm",
+    "melt0_sr_ppm": "ppm",
+    "melt0_mgo_wt": "wt%",
+}
+
+#: Excel number format by unit of a quantity (digits as the bands carry them).
+_UNIT_FORMATS = {"molar fraction": "0.000", "fraction": "0.000", "1": "0.000",
+                 "logit units": "0.00", "wt%": "0.00", "°C": "0", "µm": "0.0", "ppm": "0"}
+
+#: Units and formats of the other columns of the summary tables.
+_OTHER_COLUMNS = {
+    "n_spots": ("count", "0"), "n_used": ("count", "0"), "n_crystals": ("count", "0"),
+    "n_antecrysts": ("count", "0"), "reduced_chi_square": ("1", "0.00"),
+    "delta_bic": ("BIC units", "0.0"),
+}
+
+
+def _base(column: str) -> str:
+    for suffix in ("_lo95", "_hi95", "_constrained"):
+        if column.endswith(suffix):
+            return column[: -len(suffix)]
+    return column
+
+
+def summary_units(columns: Iterable[Any]) -> dict[str, str]:
+    """Return the unit of each column of a summary table (row 2 of ``summary.xlsx``).
+
+    Parameters
+    ----------
+    columns : iterable of str
+
+    Returns
+    -------
+    dict of str to str
+        ``"molar fraction"``, ``"wt%"``, ``"°C"``, ``"count"``, ... ;
+        ``"true/false"`` for ``<q>_constrained``; ``""`` for text columns.
+    """
+    out = {}
+    for c in map(str, columns):
+        if c.endswith("_constrained"):
+            out[c] = "true/false"
+        elif _base(c) in QUANTITY_UNITS:
+            out[c] = QUANTITY_UNITS[_base(c)]
+        elif c in _OTHER_COLUMNS:
+            out[c] = _OTHER_COLUMNS[c][0]
+        else:
+            out[c] = ""
+    return out
+
+
+def summary_number_formats(columns: Iterable[Any]) -> dict[str, str]:
+    """Return the Excel number format of each numeric column of a summary table.
+
+    Parameters
+    ----------
+    columns : iterable of str
+
+    Returns
+    -------
+    dict of str to str
+        Fractions and Kd with 3 decimals, wt% with 2, °C and ppm whole,
+        counts as integers; columns not listed keep "General".
+    """
+    out = {}
+    for c in map(str, columns):
+        base = _base(c)
+        if c.endswith("_constrained"):
+            continue
+        if base in QUANTITY_UNITS:
+            out[c] = _UNIT_FORMATS[QUANTITY_UNITS[base]]
+        elif c in _OTHER_COLUMNS:
+            out[c] = _OTHER_COLUMNS[c][1]
+    return out

@@ -85,6 +85,20 @@ def test_batch_writes_summary_sample_folders_figures_and_report(tmp_path):
     assert {p.name for p in (out / "S2").iterdir()} == {
         "fit.json", "profile.csv", "profile.json", "fingerprint.json", ".zoning-manifest.json"}
     assert (out / "summary.xlsx").exists() and (out / "overview.png").exists()
+    # summary.xlsx: the same table with a units row and its provenance.
+    book = openpyxl.load_workbook(out / "summary.xlsx")
+    sheet = book["summary"]
+    assert [c.value for c in sheet[1]][: len(summary.columns)] == summary.columns.tolist()
+    units = dict(zip(summary.columns, [c.value for c in sheet[2]], strict=False))
+    assert units["melt_mg_number"] == "molar fraction" and units["n_spots"] == "count"
+    assert sheet.freeze_panes == "B3" and sheet.max_row == 2 + len(summary)
+    col = summary.columns.tolist().index("melt_mg_number") + 1
+    assert sheet.cell(3, col).value == summary["melt_mg_number"].iloc[0]  # as in the CSV
+    provenance = {r[0].value: r[1].value for r in book["provenance"].iter_rows(min_row=2)}
+    assert provenance["project"] == str(read_project(path).path)
+    # The batch report says which project entry reproduces it.
+    fit = json.loads((out / "S1" / "fit.json").read_text(encoding="utf-8"))
+    assert fit["settings"]["project_entry"]["sample"] == "S1"
     text = stream.getvalue()
     assert "2/2 S2" in text and "elapsed" in text and "remaining" in text
 

@@ -98,3 +98,49 @@ def test_the_laws_name_registered_citations():
     assert make_trace_law("olivine", "Co", 1.5).citations == ()
     for t in THERMOMETERS.values():
         assert t.citation == t.name and t.citation in REFERENCES
+
+
+def _readme_section(title):
+    text = (Path(references.__file__).resolve().parents[1] / "README.md").read_text("utf-8")
+    start = text.index(f"## {title}\n")
+    following = re.search(r"^## ", text[start + 3:], flags=re.M)
+    return text[start: start + 3 + following.start()] if following else text[start:]
+
+
+def test_readme_citing_section_is_the_generated_text():
+    # Regenerate with: python -c "from zoning.references import citing_markdown as c; print(c())"
+    assert _readme_section("Citing").rstrip("\n") == references.citing_markdown().rstrip("\n")
+
+
+def test_citing_lists_the_methods_of_each_kind_of_result():
+    text = references.citing_markdown()
+    olivine = text[text.index("### Olivine traverse"): text.index("### Plagioclase traverse")]
+    plag = text[text.index("### Plagioclase traverse"): text.index("### Joint fit")]
+    for name in ("Roeder & Emslie (1970)", "Hart & Davis (1978)", "Helz & Thornber (1987)",
+                 "Foreman-Mackey et al. (2013)", "Schwarz (1978)", "Kass & Raftery (1995)"):
+        assert name in olivine, name
+    assert "Sisson & Grove (1993)" in plag and "Blundy & Wood (1991)" in plag
+    assert "Roeder" not in plag and "Helz" not in plag
+    refs = text[text.index("### References"):]
+    for key in ("roeder_emslie_1970", "wilks_1938", "crank_1975", "birge_1932"):
+        assert " ".join(REFERENCES[key].full().split()) in " ".join(refs.split()), key
+
+
+def test_citation_cff_is_valid_and_has_an_author_placeholder_to_fill():
+    # CFF 1.2.0 required keys: cff-version, message, title, authors (each with a name
+    # or family-names); version and date-released as the schema's string formats.
+    root = Path(references.__file__).resolve().parents[1]
+    text = (root / "CITATION.cff").read_text("utf-8")
+    import yaml
+
+    data = yaml.safe_load(text)
+    assert data["cff-version"] == "1.2.0"
+    for key in ("message", "title", "authors", "version", "date-released", "license"):
+        assert data[key], key
+    from zoning import __version__
+
+    assert str(data["version"]) == __version__
+    assert re.fullmatch(r"\d{4}-\d{2}-\d{2}", str(data["date-released"]))
+    author = data["authors"][0]
+    assert "family-names" in author and "given-names" in author
+    assert "REPLACE" in author["family-names"] or "REPLACE" in author["given-names"]

@@ -206,3 +206,43 @@ def test_safe_name_property(raw):
     assert not any(ord(ch) < 32 for ch in out)
     assert out.split(".")[0].upper() not in {"CON", "PRN", "AUX", "NUL"}
     assert safe_name(raw) == out
+
+
+def test_write_xlsx_has_units_row_formats_frozen_header_and_provenance(tmp_path):
+    import openpyxl
+    from zoning.io.results import summary_number_formats, summary_units
+    from zoning.io.writers import write_xlsx
+
+    df = pd.DataFrame({
+        "sample": ["FRL-07 ol1", "=SUM(A1)"],
+        "n_spots": pd.array([40, None], dtype="Int64"),
+        "melt_mg_number": [0.7651, np.nan],
+        "melt_mg_number_lo95": [0.729, np.nan],
+        "melt_mg_number_constrained": [True, None],
+        "melt_mgo_wt": [9.5123, 8.0],
+        "temperature_c": [1204.4, 1190.0],
+        "preferred_model": ["growth r free", ""],
+    })
+    before = df.copy()
+    path = write_xlsx(df, tmp_path / "out" / "summary.xlsx", units=summary_units(df.columns),
+                      number_formats=summary_number_formats(df.columns),
+                      provenance={"content": "test table", "settings": {"seed": 7}})
+    pd.testing.assert_frame_equal(df, before)
+    wb = openpyxl.load_workbook(path)
+    assert wb.sheetnames == ["summary", "provenance"]
+    ws = wb["summary"]
+    assert [c.value for c in ws[1]] == list(df.columns)
+    assert [c.value or "" for c in ws[2]] == ["", "count", "molar fraction", "molar fraction",
+                                              "true/false", "wt%", "°C", ""]
+    assert ws.freeze_panes == "B3"
+    assert ws["C3"].value == pytest.approx(0.7651) and ws["C3"].number_format == "0.000"
+    assert ws["F3"].number_format == "0.00" and ws["G3"].number_format == "0"
+    assert ws["B3"].value == 40 and ws["B3"].number_format == "0"
+    assert ws["C4"].value is None and ws["B4"].value is None  # NaN / NA: empty cells
+    assert ws["E3"].value is True
+    assert ws["A4"].value == "'=SUM(A1)"  # formula injection neutralised, as in CSV
+    prov = {r[0].value: r[1].value for r in wb["provenance"].iter_rows(min_row=2)}
+    assert prov["content"] == "test table" and prov["settings.seed"] == "7"
+    assert prov["zoning_version"] and prov["written_utc"].endswith("Z")
+    assert prov["versions.numpy"] == np.__version__
+    assert not list((tmp_path / "out").glob(".*tmp"))

@@ -39,6 +39,7 @@ __all__ = [
     "short_cite",
     "reference_list",
     "check_keys",
+    "citing_markdown",
 ]
 
 #: Kinds of publication a reference can be.
@@ -337,6 +338,17 @@ _ENTRIES = (
     _ref("kass_raftery_1995", ["Kass, R. E.", "Raftery, A. E."], 1995, "Bayes factors",
          "Journal of the American Statistical Association", "90", "773-795",
          "10.1080/01621459.1995.10476572"),
+    _ref("wilks_1938", ["Wilks, S. S."], 1938,
+         "The large-sample distribution of the likelihood ratio for testing composite "
+         "hypotheses", "Annals of Mathematical Statistics", "9", "60-62",
+         "10.1214/aoms/1177732360"),
+    _ref("gelman_rubin_1992", ["Gelman, A.", "Rubin, D. B."], 1992,
+         "Inference from iterative simulation using multiple sequences", "Statistical Science",
+         "7", "457-472", "10.1214/ss/1177011136"),
+    _ref("metropolis_1953", ["Metropolis, N.", "Rosenbluth, A. W.", "Rosenbluth, M. N.",
+                             "Teller, A. H.", "Teller, E."], 1953,
+         "Equation of state calculations by fast computing machines",
+         "Journal of Chemical Physics", "21", "1087-1092", "10.1063/1.1699114"),
     _ref("birge_1932", ["Birge, R. T."], 1932,
          "The calculation of errors by the method of least squares", "Physical Review", "40",
          "207-227", "10.1103/PhysRev.40.207"),
@@ -453,3 +465,108 @@ def reference_list(keys: Iterable[str]) -> list[Reference]:
     """
     unique = dict.fromkeys(check_keys(keys))
     return sorted((REFERENCES[k] for k in unique), key=_sort_key)
+
+
+# ------------------------------------------------------------------- README "Citing"
+#: Opening of the README's "Citing" section.
+_CITING_INTRO = (
+    "Cite `zoning` itself as given in `CITATION.cff` (replace the author placeholder there "
+    "with the names the project asks for, and give the version you used), and cite the "
+    "published methods your result rests on. Every `report.pdf` ends with the full reference "
+    "list of its own fit, and `fit.json` lists the same methods (`methods`: role, citation "
+    "key, detail) with their references (`references`). The lists below are those of the "
+    "default settings, generated from the same records as the reports "
+    "(`zoning.references.citing_markdown()`); entries marked [†] were recalled and should "
+    "be checked against the publication before citing."
+)
+
+
+def _uses_by_kind():
+    """Return the method records of each kind of result, from the functions the fits call.
+
+    Imported here, not at module level: the registry stays importable on its own.
+    """
+    from zoning.fitting.methods import fit_methods
+    from zoning.models import CrystallizationModel
+    from zoning.thermometry import THERMOMETERS
+
+    ol_model = CrystallizationModel("olivine", {"FeO": 9.8}, traces=("Ni",))
+    pl_model = CrystallizationModel("plagioclase", {"Na2O": 3.1}, traces=("Sr", "Mg"),
+                                    temperature_c=1150.0)
+    ol = ol_model.methods() + fit_methods("olivine", kd_mean=0.30, kd_sd=0.03,
+                                          kd_default=True, fe3_fraction=0.10,
+                                          fe3_source="default")
+    pl = pl_model.methods() + fit_methods("plagioclase", kd_mean=2.0, kd_sd=0.3,
+                                          kd_default=False)
+    base_keys = {u.key for u in ol + pl}
+
+    def added(uses):
+        return tuple(u for u in uses if u.key and u.key not in base_keys)
+
+    thermometers = tuple(
+        MethodUse("melt temperature (glass MgO thermometer)", th.citation, name)
+        for name, th in THERMOMETERS.items() if th.citation not in base_keys)
+    section = added(ol_model.methods(processes=("section",)))
+    diffusion = {m: added(model.methods(processes=("diffusion",)))
+                 for model, m in ((ol_model, "olivine"), (pl_model, "plagioclase"))}
+    birge = added(fit_methods("olivine", kd_mean=0.30, kd_sd=0.03, kd_default=True,
+                              sigma_scale=2.0))
+    joint = ol_model.methods() + (
+        MethodUse("consistency of the crystals with one melt", "wilks_1938",
+                  "leave-one-out likelihood-ratio test"),)
+    return (
+        ("Olivine traverse (`zoning fit`, `zoning batch`)", ol),
+        ("Plagioclase traverse (`--temperature-c` for the SrO and MgO profiles)", pl),
+        ("Joint fit of the crystals of a sample (`--joint`)", joint),
+        ("Another glass thermometer (`--thermometer`, olivine)", thermometers),
+        ("Off-centre section fitted", section),
+        ("Diffusion after growth fitted, olivine", diffusion["olivine"]),
+        ("Diffusion after growth fitted, plagioclase", diffusion["plagioclase"]),
+        ("Scatter larger than the stated uncertainties (sigma scaled by the Birge ratio)",
+         birge),
+    )
+
+
+def citing_markdown() -> str:
+    """Return the README's "Citing" section (Markdown), generated from the method records.
+
+    For each kind of result (olivine traverse, plagioclase traverse, joint
+    fit, and the options and processes that add a method) the roles and in-text citations of the
+    methods used with the default settings, then the full reference of every
+    key. The records are those the fits store in ``FitResult.methods``
+    (:meth:`zoning.models.CrystallizationModel.methods` and
+    :func:`zoning.fitting.methods.fit_methods`), so the README and the
+    reports cannot drift apart; ``tests/test_references.py`` checks that the
+    README holds exactly this text.
+
+    Returns
+    -------
+    str
+        From the ``## Citing`` heading to the last reference, ending in a
+        newline.
+    """
+    import textwrap
+
+    def wrap(text, indent=""):
+        return textwrap.fill(text, width=88, subsequent_indent=indent, break_long_words=False,
+                             break_on_hyphens=False)
+
+    out = ["## Citing", "", wrap(_CITING_INTRO), ""]
+    keys: list[str] = []
+    for title, uses in _uses_by_kind():
+        out += [f"### {title}", ""]
+        roles: dict[str, list[str]] = {}
+        for u in uses:
+            if u.key:
+                roles.setdefault(u.role, [])
+                if short_cite(u.key) not in roles[u.role]:
+                    roles[u.role].append(short_cite(u.key))
+                keys.append(u.key)
+        for role, cites in roles.items():
+            out.append(wrap(f"- {role}: {'; '.join(cites)}", "  "))
+        out.append("")
+    out += ["### References", ""]
+    for ref in reference_list(keys):
+        mark = " [†]" if ref.from_memory else ""
+        out.append(wrap(f"- {ref.full()}{mark}", "  "))
+    return "\n".join(out) + "\n"

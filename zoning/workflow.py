@@ -1233,7 +1233,7 @@ def _fit_and_write(job: SampleJob, build: Path):
     check_fittable(traverse, include_flagged=bool(job.fit_options.get("include_flagged")),
                    distance_range=job.fit_options.get("distance_range"),
                    radius_um=job.fit_options.get("radius_um"))
-    result = fit_traverse(traverse, **job.fit_options)
+    result = _with_project_entry(fit_traverse(traverse, **job.fit_options), job)
     write_fit_json(result, build / "fit.json")
     write_profile_csv(result, build / "profile.csv")
     if job.figures or job.report:
@@ -1244,6 +1244,16 @@ def _fit_and_write(job: SampleJob, build: Path):
     row = summary_table([result]).iloc[0].to_dict()
     row["sample"] = job.name
     return row, result
+
+
+def _with_project_entry(result, job: SampleJob):
+    """Record in ``result.settings["project_entry"]`` the project entry that reproduces it."""
+    import dataclasses
+
+    entry = {"sample": job.name, "file": job.file}
+    if job.traverse:
+        entry["traverse"] = job.traverse
+    return dataclasses.replace(result, settings={**result.settings, "project_entry": entry})
 
 
 def _fit_and_write_joint(job: SampleJob, build: Path):
@@ -1260,7 +1270,8 @@ def _fit_and_write_joint(job: SampleJob, build: Path):
         kw["n_chains"] = kw.pop("n_walkers")
     if "n_steps" in kw:
         kw["n_sweeps"] = kw.pop("n_steps")
-    result = fit_sample(traverses, name=job.name, **kw, **job.joint_options)
+    result = _with_project_entry(fit_sample(traverses, name=job.name, **kw,
+                                            **job.joint_options), job)
     write_sample_files(result, build, figures=job.figures, report=job.report,
                        figure_format=job.figure_format, figure_style=job.figure_style)
     row = sample_summary_table([result]).iloc[0].to_dict()
@@ -1826,7 +1837,7 @@ def _write_tables(project: Project, out: Path, outcomes: Mapping[str, SampleOutc
     root.record("summary.csv", "summary.json")
     _write_crystals_table(project, out, outcomes, provenance, protect, root)
     if final:
-        if _write_xlsx(df, out / "summary.xlsx", protect=protect):
+        if _write_xlsx(df, out / "summary.xlsx", protect=protect, provenance=provenance):
             root.record("summary.xlsx")
         shown = df[df["run_status"].isin(["fitted", "unchanged", "failed"])]
         if (shown["run_status"] != "failed").any():
@@ -1868,26 +1879,19 @@ def _write_crystals_table(project, out, outcomes, provenance, protect, root) -> 
     root.record("crystals.csv", "crystals.json")
 
 
-def _write_xlsx(df: pd.DataFrame, path: Path, protect: Iterable[str] = ()) -> bool:
-    """Write ``summary.xlsx`` atomically if openpyxl is installed."""
+def _write_xlsx(df: pd.DataFrame, path: Path, protect: Iterable[str] = (),
+                provenance: Mapping[str, Any] | None = None) -> bool:
+    """Write ``summary.xlsx`` (units row, number formats, provenance sheet) atomically."""
     try:
         import openpyxl  # noqa: F401
     except ImportError:  # pragma: no cover - optional extra
         return False
     if str(path.resolve()) in {str(Path(p).resolve()) for p in protect}:
         raise ProjectError(f"refusing to overwrite input file {str(path)!r}; choose another --out.")
-    import tempfile
+    from zoning.io.results import band_digits, summary_number_formats, summary_units
+    from zoning.io.writers import write_xlsx
 
-    fd, name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp.xlsx", dir=path.parent)
-    os.close(fd)
-    tmp = Path(name)
-    try:
-        # Same neutralisation of formula injection as zoning.io.writers.write_csv.
-        from zoning.io.writers import _neutralise_frame
-
-        _neutralise_frame(df).to_excel(tmp, index=False, sheet_name="summary")
-        os.replace(tmp, path)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
+    write_xlsx(df, path, units=summary_units(df.columns),
+               number_formats=summary_number_formats(df.columns), provenance=provenance,
+               digits=band_digits(df.columns), protect=protect)
     return True

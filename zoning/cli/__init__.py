@@ -28,6 +28,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import os
+import shlex
 import signal
 import sys
 import warnings
@@ -134,6 +135,8 @@ def main(argv: list[str] | None = None) -> int:
         parser.print_help()
         return EXIT_INPUT
     warnings.showwarning = _show_warning
+    # The command as typed, recorded in the results so that reports say how to rerun it.
+    args.command_line = shlex.join(["zoning", *(sys.argv[1:] if argv is None else argv)])
     try:
         code = int(args.run(args) or 0)
         sys.stdout.flush()

@@ -17,7 +17,7 @@ from zoning.cli._figures import add_figure_options, figure_settings, list_graphi
 from zoning.cli._reading import add_reading_options, reading_options
 from zoning.exceptions import ZoningError
 
-__all__ = ["add_parser", "run", "parse_melt", "parse_range"]
+__all__ = ["add_parser", "run", "parse_melt", "parse_range", "with_command"]
 
 
 def parse_melt(items: list[str] | None) -> dict[str, float]:
@@ -83,6 +83,23 @@ def parse_range(text: str | None) -> tuple[float, float] | None:
             f"--range expects A:B in µm with A < B; got {text!r}. Give e.g. --range 0:120."
         )
     return lo, hi
+
+
+def with_command(result, args: argparse.Namespace):
+    """Return ``result`` with the command line and its folder in its settings.
+
+    ``settings["command"]`` (as typed, e.g. ``zoning fit FRL-07_ol1.csv --melt FeO=9.8``) and
+    ``settings["command_folder"]`` (the folder it was run from) let the report, ``fit.json`` and
+    the table sidecars say how to reproduce the result.
+    """
+    import dataclasses
+    import os
+
+    command = getattr(args, "command_line", "")
+    if not command:
+        return result
+    settings = {**result.settings, "command": command, "command_folder": os.getcwd()}
+    return dataclasses.replace(result, settings=settings)
 
 
 def _free(text: str | None) -> tuple[str, ...]:
@@ -252,6 +269,7 @@ def run(args: argparse.Namespace) -> int:
             failed += 1
             print(f"zoning fit: {traverse.name}: not fitted: {exc}", file=sys.stderr)
             continue
+        result = with_command(result, args)
         results.append(result)
         print(format_report(result))
     if not results:
@@ -288,6 +306,7 @@ def _run_joint(args, traverses, common, out_dir, sources, graphics) -> int:
         retention=args.joint_retention, exclude=_free(args.exclude),
         n_chains=32 if args.walkers is None else args.walkers, n_sweeps=args.steps,
     )
+    result = with_command(result, args)
     print(format_sample_report(result))
     provenance = {"sources": [str(p.resolve()) for p in sources],
                   "settings": dict(result.settings)}
