@@ -379,8 +379,23 @@ def _all_legends(fig) -> list:
 
 
 def _panel_width(ax) -> float:
-    """Width of a panel before layout [in]."""
-    return float(ax.get_position().width * ax.get_figure(root=True).get_figwidth())
+    """Width a panel will have after the layout, about [in].
+
+    From its share of the grid (the positions before layout keep
+    matplotlib's default margins, far wider than constrained layout's).
+    """
+    root = ax.get_figure(root=True)
+    parent = ax.get_figure(root=False)
+    width = root.get_figwidth()
+    if parent is not root:
+        width *= parent.bbox_relative.width
+    spec = ax.get_subplotspec()
+    if spec is None:
+        return float(ax.get_position().width * root.get_figwidth())
+    grid = spec.get_gridspec()
+    ratios = list(grid.get_width_ratios() or [1.0] * grid.ncols)
+    share = sum(ratios[spec.colspan.start:spec.colspan.stop]) / sum(ratios)
+    return float(width * share * 0.85)
 
 
 #: Share of the figure width given to a legend on the right of the panels.
