@@ -15,9 +15,17 @@ position typed 100x too large) is written for n = 1,000, 10,000 and 62,000 spots
 Prints one line per size with wall times in seconds, the CPU time of the
 whole line (``cpu_s``, the fairer figure on a busy machine), the peak
 memory of the diagnostics (``tracemalloc``), the orientation found and the
-number of stray positions flagged (1 expected). Run:
-``nice -n 10 python benchmarks/long.py`` (``--sizes 1000,10000`` to
-choose the sizes).
+number of stray positions flagged (1 expected).
+
+Then whole fits (``fit_traverse`` with default settings, melt FeO 9.5 wt%,
+NiO fitted) of traverses of ``--fit-sizes`` spots, one line each:
+``long: spots=<n> fit_s=<wall> fit_cpu_s=<cpu> model_nodes=<k>`` (``k``: the
+positions at which the model was evaluated and interpolated to the spots,
+0 when every spot was evaluated; see ``zoning.fitting.dense``). Pin BLAS to
+one thread (``OMP_NUM_THREADS=1``) for comparable CPU times. Run:
+``nice -n 10 python benchmarks/long.py`` (``--sizes 1000,10000`` and
+``--fit-sizes 300,2000,20000`` choose the sizes; ``--fit-sizes ''`` skips
+the fits).
 """
 
 import argparse
@@ -107,15 +115,37 @@ def run(n: int, tmp: Path, rng: np.random.Generator) -> str:
             f"{traverse.orientation_confidence} stray_flagged={stray}")
 
 
+def fit_run(n: int, tmp: Path, rng: np.random.Generator) -> str:
+    """Time a whole default fit of an ``n``-spot traverse."""
+    import warnings
+
+    from zoning.fitting import fit_traverse
+
+    path = tmp / f"fit_{n}.csv"
+    make_traverse(path, n, rng)
+    (traverse,) = read_traverses(path, mineral="olivine")
+    c0 = time.process_time()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # chain-length and data warnings: not timed here
+        result, fit_s = _timed(fit_traverse, traverse, melt={"FeO": 9.5}, seed=0)
+    cpu_s = time.process_time() - c0
+    nodes = int(result.settings.get("model_nodes", 0))
+    return f"long: spots={n} fit_s={fit_s:.1f} fit_cpu_s={cpu_s:.1f} model_nodes={nodes}"
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--sizes", default="1000,10000,62000",
                         help="comma-separated spot counts (default: 1000,10000,62000)")
+    parser.add_argument("--fit-sizes", default="300,2000,20000",
+                        help="spot counts of the whole fits (default: 300,2000,20000)")
     args = parser.parse_args()
     rng = np.random.default_rng(20261202)
     with tempfile.TemporaryDirectory() as tmp:
-        for n in (int(s) for s in args.sizes.split(",")):
+        for n in (int(s) for s in args.sizes.split(",") if s):
             print(run(n, Path(tmp), rng), flush=True)
+        for n in (int(s) for s in args.fit_sizes.split(",") if s):
+            print(fit_run(n, Path(tmp), rng), flush=True)
 
 
 if __name__ == "__main__":

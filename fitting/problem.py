@@ -28,6 +28,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+from zoning.fitting.dense import plan_dense_nodes
 
 from zoning.exceptions import FitError, ZoningError
 from zoning.melt import read_melt
@@ -164,6 +165,9 @@ class FitProblem:
         The user's settings as resolved (recorded in the result).
     notes : tuple of str
         Plain-language notes from preparing (e.g. trace profiles skipped).
+    dense : zoning.fitting.dense.DenseNodes or None
+        For spot-dense traverses, the nodes at which the model is evaluated
+        and interpolated to the spots (:mod:`zoning.fitting.dense`).
     """
 
     traverse: Traverse
@@ -185,6 +189,7 @@ class FitProblem:
     sigma_scale: float = 1.0
     options: dict = field(default_factory=dict)
     notes: tuple = ()
+    dense: object = None
 
     # --- layout ---------------------------------------------------------------
     @property
@@ -248,21 +253,29 @@ class FitProblem:
         return out
 
     # --- likelihood -------------------------------------------------------------
-    def predict(self, params: Mapping, distance_um=None) -> dict:
+    def predict(self, params: Mapping, distance_um=None, keys=None) -> dict:
         """Forward model at the used spots (or at ``distance_um``), warnings silenced.
 
         Warnings of the forward model (calibration ranges) are silenced
         here, where the optimiser and sampler explore; the best fit is
-        checked once with warnings on (summary stage).
+        checked once with warnings on (summary stage). On a spot-dense
+        traverse (``dense`` set) the model is evaluated at the nodes and
+        interpolated to the used spots (only the outputs named in ``keys``,
+        when given).
         """
-        d = self.distance_um if distance_um is None else distance_um
+        dense = self.dense if distance_um is None else None
+        if dense is not None:
+            d = dense.nodes_um
+        else:
+            d = self.distance_um if distance_um is None else distance_um
         with np.errstate(all="ignore"), warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            return self.model.profile(d, self.radius_um, strict=False, **params)
+            out = self.model.profile(d, self.radius_um, strict=False, **params)
+        return out if dense is None else dense.interpolate(out, keys)
 
     def residuals(self, params: Mapping, m: int) -> np.ndarray:
         """Return normalized residuals (m, n_data + 1): data terms, then the Kd prior."""
-        out = self.predict(params)
+        out = self.predict(params, keys=("crystal", *(t.key for t in self.traces)))
         s = self.sigma * self.sigma_scale
         parts = [(self.y - np.reshape(out["crystal"], (m, -1))) / s]
         for t in self.traces:
@@ -651,7 +664,7 @@ def prepare_problem(
         "include_flagged": bool(include_flagged),
         "temperature_c": float("nan") if temperature_c is None else float(temperature_c),
     }
-    return FitProblem(
+    problem = FitProblem(
         traverse=traverse,
         usable=usable,
         model=model,
@@ -671,3 +684,18 @@ def prepare_problem(
         options=options,
         notes=tuple(notes),
     )
+    return _with_dense_nodes(problem)
+
+
+def _with_dense_nodes(problem: FitProblem) -> FitProblem:
+    """Attach the node plan of a spot-dense traverse (see :mod:`zoning.fitting.dense`)."""
+    plan = plan_dense_nodes(problem)
+    if plan is None:
+        return problem
+    options = {**problem.options, "model_nodes": plan.n_nodes,
+               "model_nodes_max_error_sigma": plan.max_error}
+    note = (f"{problem.y.size} spots: the model was evaluated at {plan.n_nodes} positions and "
+            f"interpolated to the spots (largest error {plan.max_error:.2g} sigma on prior "
+            "draws)")
+    return dataclasses.replace(problem, dense=plan, options=options,
+                               notes=(*problem.notes, note))

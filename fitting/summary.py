@@ -19,6 +19,7 @@ import numpy as np
 import pandas as pd
 from zoning.fitting.bestfit import CandidateFit
 from zoning.fitting.choice import ModelChoice
+from zoning.fitting.dense import predict_at
 from zoning.fitting.diagnostics import residual_runs, runs_test_z
 from zoning.fitting.methods import fit_methods
 from zoning.fitting.problem import DEFAULT_SIGMA, FitProblem
@@ -218,8 +219,8 @@ def _curves(prob: FitProblem, best, frac, eq, draws):
     m_draw = draws.shape[0]
     with np.errstate(all="ignore"), warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        out_best = prob.predict(prob.params(best[None, :]), pts)
-        out_draw = prob.predict(prob.params(draws), pts)
+        out_best = predict_at(prob, prob.params(best[None, :]), pts)
+        out_draw = predict_at(prob, prob.params(draws), pts)
         out_frac = prob.predict(prob.params(frac[None, :]), grid)
         out_eq = prob.predict(prob.params(eq[None, :]), grid)
 
@@ -238,8 +239,7 @@ def _curves(prob: FitProblem, best, frac, eq, draws):
     if col in spots.columns:
         file_sig = spots[col].to_numpy(float)
         sigma_all = np.where(np.isfinite(file_sig) & (file_sig > 0), file_sig, sigma_all)
-    for k, idx in enumerate(usable.index):
-        sigma_all[spots.index.get_loc(idx)] = prob.sigma[k]
+    sigma_all[spots.index.get_indexer(usable.index)] = prob.sigma
     observed = spots[major].to_numpy(float)
     model_v = np.full(n, np.nan)
     lo_v = np.full(n, np.nan)
@@ -542,6 +542,8 @@ def summarise_fit(
         "robust": bool(prob.robust),
         "temperature_c": opts.get("temperature_c", float("nan")),
         "thermometer": prob.model.thermometer,
+        # spot-dense traverses: model positions interpolated to the spots (0: every spot)
+        "model_nodes": int(opts.get("model_nodes", 0)),
         "seed": int(seed),
         "n_walkers": int(chain.n_walkers),
         "n_steps": int(chain.n_steps),

@@ -392,11 +392,10 @@ class _Layout:
         self.y -= 2
 
     def table(self, block: Table) -> None:
-        total = sum(block.widths)
-        widths = [w / total * _TEXT_W for w in block.widths]
-        xs = [_LEFT + sum(widths[:j]) for j in range(len(widths))]
         pad = 4.0
         lead = block.size * 1.28
+        widths = _column_widths(block, pad)
+        xs = [_LEFT + sum(widths[:j]) for j in range(len(widths))]
 
         def cells(row, weight="normal"):
             return [wrap_text(str(c), max(w - pad, 8.0), block.size, weight=weight)
@@ -447,6 +446,32 @@ class _Layout:
             fig.text((_LEFT + _TEXT_W) / _PAGE_W, (_BOTTOM * 0.5) / _PAGE_H,
                      f"page {k + 1} of {n} (text)", fontsize=6.5, family=_FONT,
                      color="#555555", va="center", ha="right", parse_math=False)
+
+
+def _column_widths(block: Table, pad: float) -> list[float]:
+    """Column widths [pt]: the given shares, widened so that the longest word of each fits.
+
+    Width taken by a widened column is given back by the columns with room
+    to spare, in proportion to that room; words only break when the words
+    of the row cannot fit side by side at all.
+    """
+    total = sum(block.widths)
+    widths = [w / total * _TEXT_W for w in block.widths]
+    need = []
+    for j in range(len(widths)):
+        texts = [block.header[j]] + [str(r[j]) for r in block.rows]
+        longest = max((_width(word, block.size, "bold" if k == 0 else "normal")
+                       for k, t in enumerate(texts) for word in t.split()), default=0.0)
+        need.append(longest + pad + 0.5)
+    if sum(need) > _TEXT_W:
+        return widths
+    short = sum(max(n - w, 0.0) for n, w in zip(need, widths, strict=True))
+    if short <= 0:
+        return widths
+    room = [max(w - n, 0.0) for n, w in zip(need, widths, strict=True)]
+    spare = sum(room)
+    return [max(w, n) - (r / spare * short if spare else 0.0)
+            for w, n, r in zip(widths, need, room, strict=True)]
 
 
 def _first_height(block) -> float:
@@ -511,6 +536,7 @@ _LABELS = {
     "core_offset_um": "core offset",
     "section_h_over_r": "section offset h/R",
     "diffusion_length_um": "diffusion length",
+    "diffusion_time_days": "diffusion time",
     "melt0_ni_ppm": "initial melt Ni",
     "melt0_sr_ppm": "initial melt Sr",
     "melt0_mgo_wt": "initial melt MgO (trace)",
@@ -733,7 +759,9 @@ def settings_rows(result) -> list[list[str]]:
         rows.append(["sampler length", f"{s['n_chains']} chains × {s.get('n_sweeps', '?')} "
                      "sweeps"])
     labels = {"geometry": "growth geometry", "free": "free parameters",
-              "fixed": "fixed parameters", "sigma": "1σ of Fo/An", "robust": "robust loss",
+              "fixed": "fixed parameters",
+              "sigma": "1σ of Fo" if mineral == "olivine" else "1σ of An",
+              "robust": "robust loss",
               "f_rim": "F at the rim", "retention": "retention", "exclude": "crystals left out",
               "consistency_test": "consistency test", "sampler": "sampler",
               "kd_prior_mean": None, "melt": None, "fe3_fraction": None, "thermometer": None,
@@ -798,10 +826,14 @@ def _reproduce(result) -> str:
     entry = s.get("project_entry")
     if entry:
         if isinstance(entry, Mapping):
-            where = f"project file {entry['project']}, " if entry.get("project") else ""
-            return (f"Reproduce: zoning batch on the {where}sample entry "
-                    f"'{entry.get('sample', result.sample)}' (file {entry.get('file', '?')}); "
-                    "same settings and seed give the same numbers.")
+            sample = entry.get("sample", result.sample)
+            if entry.get("project"):
+                return (f"Reproduce: zoning batch {entry['project']} (sample entry '{sample}', "
+                        f"file {entry.get('file', '?')}); same settings and seed give the "
+                        "same numbers.")
+            return (f"Reproduce: zoning batch on the project's sample entry '{sample}' "
+                    f"(file {entry.get('file', '?')}); same settings and seed give the same "
+                    "numbers.")
         return f"Reproduce: {entry}"
     return ("Reproduce: fit the same file with the settings below (same settings and seed "
             "give the same numbers).")
@@ -830,7 +862,7 @@ def _traverse_results(ctx):
     r = ctx.result
     rows = results_rows(r)
     blocks = [Table(("quantity", "best", "95% band", "unit", "statement"),
-                    tuple(map(tuple, rows)), (0.2, 0.12, 0.16, 0.07, 0.45))]
+                    tuple(map(tuple, rows)), (0.2, 0.14, 0.16, 0.07, 0.43))]
     text = (f"Reduced chi-square of the best fit: {_fmt(r.reduced_chi_square)}. "
             "Where a quantity is not constrained the band covers most of its physical "
             "range: quote the band, never a single value.")
@@ -994,7 +1026,7 @@ def _sample_results(ctx):
                     "table for each group.")
     return [Paragraph(verdict, size=9.0),
             Table(("quantity", "best", "95% band", "unit", "statement"),
-                  tuple(map(tuple, results_rows(r))), (0.22, 0.12, 0.16, 0.07, 0.43)),
+                  tuple(map(tuple, results_rows(r))), (0.22, 0.14, 0.16, 0.07, 0.41)),
             Paragraph(f"Reduced chi-square of the joint best fit: "
                       f"{_fmt(r.reduced_chi_square)}; F counts from the nucleation of the "
                       f"anchor crystal {r.anchor!r} (F_core = 0 by definition).", size=7.5,
@@ -1028,8 +1060,8 @@ def crystal_rows(result) -> list[list[str]]:
                   else "–")
         own_text = (f"{_fmt(own.lo95)}–{_fmt(own.hi95)}" if own is not None else "–")
         if math.isfinite(c.consistency_p):
-            test = (f"T = {c.consistency_statistic:.1f} ({c.consistency_dof} dof), "
-                    f"p = {c.consistency_p:.2g}")
+            p_text = "< 0.001" if c.consistency_p < 1e-3 else f"= {c.consistency_p:.2g}"
+            test = f"T = {c.consistency_statistic:.1f} ({c.consistency_dof} dof), p {p_text}"
         else:
             test = "–"
         rows.append([name, c.verdict, str(c.group), f_text, own_text, test,
@@ -1044,7 +1076,7 @@ def _sample_crystals(ctx):
     return [Table(("crystal", "verdict", "group", "F at the core (95% band)",
                    f"own parent {sym} (95%)", "consistency test", "spots used"),
                   tuple(map(tuple, crystal_rows(r))),
-                  (0.17, 0.14, 0.06, 0.19, 0.14, 0.21, 0.09)),
+                  (0.17, 0.13, 0.07, 0.19, 0.13, 0.22, 0.09)),
             Paragraph("consistent: shares the melt of the others and enters the shared "
                       "answer; likely antecryst: disagrees with the others (leave-one-out "
                       "likelihood-ratio test) and is left out of the shared answer; excluded: "
@@ -1064,11 +1096,10 @@ def _sample_methods(ctx):
     if s.get("sampler"):
         joint.append(f"The joint posterior was sampled by {s['sampler']}.")
     uses = list(getattr(r, "methods", ()))
-    closing = " ".join(joint + [_CLOSING])
-    if uses:
-        text = methods_paragraph(uses, lead=lead, closing=closing)
+    if uses:  # the records say it all, the consistency test and the sampler included
+        text = methods_paragraph(uses, lead=lead, closing=_CLOSING)
     else:
-        text = f"{lead} {closing}"
+        text = " ".join([lead, *joint, _CLOSING])
     return [Paragraph(text, size=8.5),
             Paragraph("Adapt this paragraph freely; every method named in it is listed in "
                       "full under References.", size=7.0, italic=True)]

@@ -92,6 +92,20 @@ def _quantities(results: Sequence[Any]) -> list[str]:
     return [q for q in SUMMARY_QUANTITIES if q in present]
 
 
+#: Columns of the summary table on how the traverse was read, after ``n_used``.
+ORIENTATION_COLUMNS = ("orientation", "orientation_confidence", "core_position_um")
+
+
+def _orientation_fields(result: Any) -> dict[str, Any]:
+    """Orientation, its confidence and the core position of the fitted traverse."""
+    t = result.traverse
+    return {
+        "orientation": t.orientation,
+        "orientation_confidence": t.orientation_confidence,
+        "core_position_um": float(getattr(t, "core_position_um", math.nan)),
+    }
+
+
 def summary_table(results: Iterable[Any]) -> pd.DataFrame:
     """One row per fitted traverse: best values, 95% bands and verdicts.
 
@@ -103,7 +117,11 @@ def summary_table(results: Iterable[Any]) -> pd.DataFrame:
     Returns
     -------
     pandas.DataFrame
-        Columns ``sample``, ``mineral``, ``n_spots``, ``n_used``; for each
+        Columns ``sample``, ``mineral``, ``n_spots``, ``n_used``,
+        ``orientation``, ``orientation_confidence`` ("confirmed" when given
+        by the user, else "high" or "low" as decided from the file: see
+        the README's "Orientation and core") and ``core_position_um``
+        (stage position of the core on the traverse line [µm]); for each
         quantity of :data:`SUMMARY_QUANTITIES` present in any result:
         ``<name>`` (best value), ``<name>_lo95``, ``<name>_hi95``,
         ``<name>_constrained``; then ``reduced_chi_square``,
@@ -121,6 +139,7 @@ def summary_table(results: Iterable[Any]) -> pd.DataFrame:
             "mineral": r.mineral,
             "n_spots": int(r.n_spots),
             "n_used": int(r.n_used),
+            **_orientation_fields(r),
         }
         for q in quantities:
             e = r.estimates.get(q)
@@ -133,7 +152,7 @@ def summary_table(results: Iterable[Any]) -> pd.DataFrame:
         row["delta_bic"] = float(getattr(r, "delta_bic", math.nan))
         row["warnings"] = "; ".join(r.warnings)
         rows.append(row)
-    columns = ["sample", "mineral", "n_spots", "n_used"]
+    columns = ["sample", "mineral", "n_spots", "n_used", *ORIENTATION_COLUMNS]
     for q in quantities:
         columns += [q, f"{q}_lo95", f"{q}_hi95", f"{q}_constrained"]
     columns += list(SUMMARY_TAIL)
@@ -202,6 +221,8 @@ def fit_to_dict(result: Any) -> dict[str, Any]:
         "mineral": result.mineral,
         "n_spots": int(result.n_spots),
         "n_used": int(result.n_used),
+        **_orientation_fields(result),
+        "orientation_basis": result.traverse.orientation_basis,
         "estimates": {
             name: {
                 "unit": e.unit,
@@ -416,6 +437,11 @@ def format_report(result: Any) -> str:
         f"{result.sample} ({result.mineral}): {result.n_used} of {result.n_spots} spots "
         f"fitted, reduced chi-square {result.reduced_chi_square:.2f}"
     )
+    t = result.traverse
+    basis = f" ({t.orientation_basis})" if t.orientation_basis else ""
+    lines.extend(textwrap.wrap(
+        f"orientation {t.orientation}, confidence {t.orientation_confidence}{basis}",
+        width=96, initial_indent="  ", subsequent_indent="    "))
     width = max(len(_LABELS.get(n, n)) for n in result.estimates) if result.estimates else 10
     for name, e in result.estimates.items():
         label = _LABELS.get(name, name).ljust(width)
@@ -476,6 +502,7 @@ QUANTITY_UNITS = {
     "core_offset_um": "µm",
     "section_h_over_r": "fraction",
     "diffusion_length_um": "µm",
+    "diffusion_time_days": "days",
     "melt0_ni_ppm": "ppm",
     "melt0_sr_ppm": "ppm",
     "melt0_mgo_wt": "wt%",
@@ -483,7 +510,8 @@ QUANTITY_UNITS = {
 
 #: Excel number format by unit of a quantity (digits as the bands carry them).
 _UNIT_FORMATS = {"molar fraction": "0.000", "fraction": "0.000", "1": "0.000",
-                 "logit units": "0.00", "wt%": "0.00", "°C": "0", "µm": "0.0", "ppm": "0"}
+                 "logit units": "0.00", "wt%": "0.00", "°C": "0", "µm": "0.0", "ppm": "0",
+                 "days": "0.0"}
 
 #: Units and formats of the other columns of the summary tables.
 _OTHER_COLUMNS = {

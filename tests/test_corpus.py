@@ -99,6 +99,28 @@ def test_split_names_and_nothing_dropped(corpus, name):
     assert_allclose(read, written, rtol=RTOL_IDENTITY)
 
 
+#: Traverses of the corpus whose orientation cannot be told from the data and
+#: must be asked about (``orientation_confidence == "uncertain"``), and why.
+ASKED = {
+    ("ferrolyn_long_table.csv", "FRL-21 prof 1"): "4 spots: too few to tell the ends apart",
+    ("reverse_olivine.csv", "reverse_olivine"): "reversely zoned: shape and trends disagree",
+    ("flat_olivine.csv", "flat_olivine"): "flat within the noise",
+}
+
+
+@pytest.mark.parametrize("name", list(FILES))
+def test_orientation_as_measured_or_asked(corpus, name):
+    # every traverse is either read in the orientation it was written in
+    # (make_corpus.FILES) from its data, or asked about; never confidently wrong
+    expected = FILES[name]["orientation"]
+    for t in corpus[name]:
+        if (name, t.name) in ASKED:
+            assert t.orientation_confidence == "uncertain", (t.name, t.orientation_basis)
+        else:
+            assert t.orientation == expected, (t.name, t.orientation_basis)
+            assert t.orientation_confidence in ("high", "low"), (t.name, t.orientation_basis)
+
+
 @pytest.mark.parametrize("name", list(FILES))
 def test_every_column_is_accounted_for_in_the_notes(corpus, name):
     t = corpus[name][0]

@@ -27,7 +27,9 @@ def _result(name="FRL-07 ol/1", retention_constrained=False):
             "reason": ["", "", "total 96.1 wt% below 98.5"],
         }
     )
-    tr = Traverse(name, "FRL-07.csv", "olivine", spots)
+    tr = Traverse(name, "FRL-07.csv", "olivine", spots, core_position_um=0.0,
+                  orientation_confidence="low",
+                  orientation_basis="core-to-rim (one line of evidence): NiO falls rimward")
     est = {
         "melt_mg_number": Estimate("melt_mg_number", "1", 0.70, 0.70, 0.68, 0.72, 0.3, 0.9),
         "f_rim": Estimate("f_rim", "1", 0.30, 0.31, 0.25, 0.36, 0.0, 0.95),
@@ -76,6 +78,9 @@ def test_summary_table_has_one_row_with_bands_and_verdicts():
     assert row["retention_constrained"] == False  # noqa: E712 (numpy bool)
     assert row["f_rim_lo95"] == 0.25 and row["preferred_model"] == "fractional"
     assert "not constrained" in row["warnings"]
+    # how far the orientation was trusted travels with the numbers
+    assert row["orientation"] == "core-to-rim" and row["orientation_confidence"] == "low"
+    assert row["core_position_um"] == 0.0
 
 
 def test_outputs_are_written_with_safe_names_and_null_for_nan(tmp_path):
@@ -87,6 +92,8 @@ def test_outputs_are_written_with_safe_names_and_null_for_nan(tmp_path):
     assert data["estimates"]["retention"]["constrained"] is False
     assert data["seed"] == 3 and data["versions"]["numpy"] == np.__version__
     assert data["comparison"][0]["model"] == "fractional"
+    assert data["orientation_confidence"] == "low"
+    assert data["orientation_basis"].startswith("core-to-rim (one line")
     profile = pd.read_csv(folder / "profile.csv", comment="#")
     assert len(profile) == 3  # every input spot, flagged ones included
     assert list(profile["used"]) == [True, True, False]
@@ -98,6 +105,7 @@ def test_report_states_unconstrained_quantities_and_cautions():
     text = format_report(_result())
     assert "retention r" in text and "NOT CONSTRAINED" in text
     assert "preferred: fractional" in text
+    assert "orientation core-to-rim, confidence low (core-to-rim (one line" in text
     assert "diffusion" in CAUTIONS and "Kd" in CAUTIONS
     assert "diffusion" in text.replace("\n    ", " ")
     constrained = format_report(_result(retention_constrained=True))

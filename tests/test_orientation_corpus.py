@@ -39,11 +39,11 @@ def test_flat_olivine_is_uncertain():
     assert "flat" in t.orientation_basis
 
 
-@pytest.mark.parametrize("name", ["plag_rim_to_core.csv", "FRL-12_pl9.csv"])
+@pytest.mark.parametrize("name", ["FRL-31_pl7.csv", "plag_traverse_B.csv"])
 def test_plagioclase_measured_rim_to_core_is_read_from_its_data(tmp_path, name):
     # a copy under a neutral name: no hint in the name, only the data
     path = tmp_path / name
-    shutil.copyfile(CORPUS / "plag_rim_to_core.csv", path)
+    shutil.copyfile(CORPUS / "FRL-31_pl7.csv", path)
     t = _one(path)
     assert t.mineral == "plagioclase"
     assert t.orientation == "rim-to-core", t.orientation_basis

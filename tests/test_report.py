@@ -276,3 +276,19 @@ def test_cautions_name_the_four_ways_results_mislead():
     text = " ".join(CAUTIONS).lower()
     for phrase in ("surface", "diffus", "section", "kd", "reference melt"):
         assert phrase in text
+
+
+def test_table_words_are_never_cut(joint, olivine):
+    from zoning.io.report import crystal_rows, sample_report_pages
+
+    for pages, rows in ((sample_report_pages(joint, figures=[]), crystal_rows(joint)),
+                        (report_pages(olivine, figures=[]), settings_rows(olivine))):
+        tokens = {w for p in pages for t in p.texts for w in t.get_text().split()}
+        for row in rows:
+            for cell in row:
+                for word in str(cell).split():
+                    if len(word) < 30:  # a long path may break after '/'
+                        assert word in tokens, (word, cell)
+    header = {w for p in sample_report_pages(joint, figures=[]) for t in p.texts
+              for w in t.get_text().split()}
+    assert {"group", "verdict", "consistency"} <= header

@@ -41,6 +41,7 @@ the samples whose inputs and settings are unchanged.
 from __future__ import annotations
 
 import concurrent.futures as cf
+import dataclasses
 import difflib
 import hashlib
 import json
@@ -479,6 +480,10 @@ class SampleJob:
         Why the sample cannot be run (e.g. its file lies outside the project
         folder); "" when it can. A sample with a problem is a failed row of
         the batch, its file is never opened.
+    project : str
+        The project file (or folder) the sample was read from; recorded in
+        the results so that reports say how to rerun them (not part of the
+        fingerprint).
     """
 
     name: str
@@ -494,6 +499,7 @@ class SampleJob:
     files: tuple[str, ...] = ()
     joint: bool = False
     joint_options: Mapping[str, Any] = field(default_factory=dict)
+    project: str = ""
 
     def __post_init__(self):
         object.__setattr__(self, "read_options", dict(self.read_options))
@@ -772,6 +778,7 @@ def read_project(
         _check_job_settings({FIT_OPTIONS[k][0]: v for k, v in merged.items() if k in FIT_OPTIONS},
                             where)
         jobs.append(_make_job(str(name), paths[0], traverse, merged, problem, tuple(paths)))
+    jobs = [dataclasses.replace(j, project=str(path.resolve())) for j in jobs]
     return Project(path=str(path.resolve()), jobs=tuple(jobs), defaults=defaults)
 
 
@@ -845,6 +852,7 @@ def project_from_folder(folder: str | os.PathLike, options: Mapping[str, Any]) -
                 name = f"{file.stem} {tname}" if tname else file.name
             used.add(name)
             jobs.append(_make_job(name, file, tname if len(names) > 1 else "", opts))
+    jobs = [dataclasses.replace(j, project=str(folder)) for j in jobs]
     return Project(path=str(folder), jobs=tuple(jobs), defaults=opts)
 
 
@@ -1149,7 +1157,10 @@ def run_sample(
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
             row, result = _fit_and_write(job, build)
-        extra = [_warning_text(w) for w in caught if str(w.message) not in result.warnings]
+        # Warnings the result states already (a fit warns "traverse 'X': <text>" and keeps
+        # <text> in result.warnings) are not repeated as batch warnings: once per traverse.
+        extra = [_warning_text(w) for w in caught
+                 if not any(text and text in str(w.message) for text in result.warnings)]
         row = dict(row)
         row["file"] = job.file
         row["error"] = ""
@@ -1248,9 +1259,9 @@ def _fit_and_write(job: SampleJob, build: Path):
 
 def _with_project_entry(result, job: SampleJob):
     """Record in ``result.settings["project_entry"]`` the project entry that reproduces it."""
-    import dataclasses
-
     entry = {"sample": job.name, "file": job.file}
+    if job.project:
+        entry["project"] = job.project
     if job.traverse:
         entry["traverse"] = job.traverse
     return dataclasses.replace(result, settings={**result.settings, "project_entry": entry})

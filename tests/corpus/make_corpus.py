@@ -58,8 +58,8 @@ FILES = {
                                     orientation="core-to-rim"),
     "reverse_olivine.csv": dict(mineral="olivine", traverses={"reverse_olivine": 17},
                                 orientation="core-to-rim"),
-    "plag_rim_to_core.csv": dict(mineral="plagioclase", traverses={"plag_rim_to_core": 18},
-                                 orientation="rim-to-core"),
+    "FRL-31_pl7.csv": dict(mineral="plagioclase", traverses={"FRL-31_pl7": 18},
+                           orientation="rim-to-core"),
     "flat_olivine.csv": dict(mineral="olivine", traverses={"flat_olivine": 14},
                              orientation="uncertain"),
 }
@@ -301,14 +301,17 @@ def reverse_olivine(out: Path) -> None:
 
 
 def plag_rim_to_core(out: Path) -> None:
-    """Normally zoned plagioclase measured from the rim inward; only K2O/FeO tell the rim."""
+    """Normally zoned plagioclase measured from the rim inward; only K2O/FeO tell the rim.
+
+    Written as ``FRL-31_pl7.csv``: the name gives no hint of the orientation.
+    """
     rng = np.random.default_rng(2901)
-    n = FILES["plag_rim_to_core.csv"]["traverses"]["plag_rim_to_core"]
+    n = FILES["FRL-31_pl7.csv"]["traverses"]["FRL-31_pl7"]
     ox, _ = normal_plag(n, rng)
     ox = rounded({k: v[::-1] for k, v in ox.items()}, 3)
     rows = [{"Point": i + 1, "Distance (µm)": 18.0 * i, **{k: ox[k][i] for k in ox},
              "Total": round(float(sum(ox[k][i] for k in ox)), 2)} for i in range(n)]
-    pd.DataFrame(rows).to_csv(out / "plag_rim_to_core.csv", index=False, encoding="utf-8",
+    pd.DataFrame(rows).to_csv(out / "FRL-31_pl7.csv", index=False, encoding="utf-8",
                               lineterminator="\n")
 
 
