@@ -25,7 +25,6 @@ import warnings
 from pathlib import Path
 
 import pandas as pd
-
 from zoning.demo_data import DEMO_DIR
 from zoning.fitting import fit_sample, fit_traverse
 from zoning.io import read_traverses
