@@ -97,8 +97,14 @@ ORIENTATION_COLUMNS = ("orientation", "orientation_confidence", "core_position_u
 
 
 def _orientation_fields(result: Any) -> dict[str, Any]:
-    """Orientation, its confidence and the core position of the fitted traverse."""
-    t = result.traverse
+    """Orientation, its confidence and the core position of the fitted traverse.
+
+    Empty for results without one traverse (joint fits of several crystals
+    give them per crystal in ``crystals.csv``).
+    """
+    t = getattr(result, "traverse", None)
+    if t is None:
+        return {"orientation": "", "orientation_confidence": "", "core_position_um": math.nan}
     return {
         "orientation": t.orientation,
         "orientation_confidence": t.orientation_confidence,

@@ -1782,7 +1782,7 @@ def _summary_frame(project: Project, outcomes: Mapping[str, SampleOutcome],
 
     Samples without an outcome yet are rows with ``run_status`` "pending".
     """
-    from zoning.io.results import SUMMARY_QUANTITIES, SUMMARY_TAIL
+    from zoning.io.results import ORIENTATION_COLUMNS, SUMMARY_QUANTITIES, SUMMARY_TAIL
 
     why = why or {}
     rows = []
@@ -1811,7 +1811,7 @@ def _summary_frame(project: Project, outcomes: Mapping[str, SampleOutcome],
             df[col] = pd.array(
                 [None if v is None or (isinstance(v, float) and not math.isfinite(v))
                  else int(v) for v in df[col].tolist()], dtype="Int64")
-    order = ["sample", "mineral", "n_spots", "n_used"]
+    order = ["sample", "mineral", "n_spots", "n_used", *ORIENTATION_COLUMNS]
     for q in SUMMARY_QUANTITIES:
         order += [q, f"{q}_lo95", f"{q}_hi95", f"{q}_constrained"]
     order += list(SUMMARY_TAIL)
