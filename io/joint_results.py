@@ -198,7 +198,8 @@ def _crystal_folders(result: Any) -> list[tuple[Any, str]]:
             if c.verdict != "excluded" and not c.spots.empty]
 
 
-def sample_output_names(result: Any, *, figures: bool = True, report: bool = True) -> list[str]:
+def sample_output_names(result: Any, *, figures: bool = True, report: bool = True,
+                        figure_format=None) -> list[str]:
     """Relative paths :func:`write_sample_files` writes into a sample folder.
 
     Parameters
@@ -206,23 +207,26 @@ def sample_output_names(result: Any, *, figures: bool = True, report: bool = Tru
     result : SampleFitResult
     figures, report : bool, optional
         Whether the figures and the PDF report are written (default both).
+    figure_format : str or iterable of str, optional
+        Figure file formats (default PNG and PDF).
 
     Returns
     -------
     list of str
     """
+    from zoning.io.figures import graphics_names
+    from zoning.io.joint_figures import JOINT_FIGURES
+
     names = ["fit.json", "crystals.csv", "crystals.json"]
     for _c, sub in _crystal_folders(result):
         names += [f"{sub}/profile.csv", f"{sub}/profile.json"]
-    if figures:
-        names += [f"{stem}.{ext}" for stem in ("sample", "crystals") for ext in ("png", "pdf")]
-    if report:
-        names.append("report.pdf")
-    return names
+    return names + graphics_names(figures=figures, report=report, formats=figure_format,
+                                  stems=JOINT_FIGURES)
 
 
 def write_sample_files(result: Any, folder: str | os.PathLike, *, protect=None,
-                       figures: bool = True, report: bool = True) -> list[Path]:
+                       figures: bool = True, report: bool = True, figure_format=None,
+                       figure_style=None) -> list[Path]:
     """Write one joint fit into its sample folder.
 
     ``fit.json``, ``crystals.csv`` (with its JSON provenance sidecar), each
@@ -242,6 +246,11 @@ def write_sample_files(result: Any, folder: str | os.PathLike, *, protect=None,
         Paths never to overwrite (the input files).
     figures, report : bool, optional
         Draw the figures / write the PDF report (default both).
+    figure_format : str or iterable of str, optional
+        Figure file formats (default PNG and PDF).
+    figure_style : str, optional
+        Preset of :data:`zoning.io.figures.FIGURE_STYLES` of the saved figures
+        (default ``"thesis"``; the report always holds thesis figures).
 
     Returns
     -------
@@ -272,15 +281,19 @@ def write_sample_files(result: Any, folder: str | os.PathLike, *, protect=None,
                         "source": str(c.traverse.source), **base}))
     if figures or report:
         from zoning.io import joint_figures
-        from zoning.io.figures import save_figure
+        from zoning.io.figures import DEFAULT_FIGURE_STYLE, save_figure
+        from zoning.io.figures import figure_style as resolve_style
 
-        drawn = joint_figures.sample_figures(result)
+        style = resolve_style(figure_style)
+        drawn = joint_figures.sample_figures(result, style=style)
         if figures:
             for stem, fig in drawn.items():
-                written += list(save_figure(fig, folder / stem).values())
+                written += list(save_figure(fig, folder / stem, formats=figure_format).values())
         if report:
             from zoning.io.report import write_sample_report
 
+            if style.name != DEFAULT_FIGURE_STYLE:  # A4 pages: thesis-size figures
+                drawn = joint_figures.sample_figures(result)
             written.append(write_sample_report(
                 result, folder / "report.pdf", figures=list(drawn.values())))
     return written
@@ -288,7 +301,8 @@ def write_sample_files(result: Any, folder: str | os.PathLike, *, protect=None,
 
 def write_sample_outputs(results: Iterable[Any], out_dir: str | os.PathLike, *,
                          protect=None, provenance=None, output=None, figures: bool = True,
-                         report: bool = True) -> list[Path]:
+                         report: bool = True, figure_format=None,
+                         figure_style=None) -> list[Path]:
     """Write ``summary.csv``, ``crystals.csv`` and one folder per sample.
 
     The output folder gets a manifest (:mod:`zoning.io.outputs`); a file of
@@ -309,6 +323,8 @@ def write_sample_outputs(results: Iterable[Any], out_dir: str | os.PathLike, *,
         The folder object, when the caller already checked it.
     figures, report : bool, optional
         Per sample: draw the figures / write the PDF report (default both).
+    figure_format, figure_style : optional
+        Figure file formats and preset (see :func:`write_sample_files`).
 
     Returns
     -------
@@ -323,7 +339,8 @@ def write_sample_outputs(results: Iterable[Any], out_dir: str | os.PathLike, *,
     subs = unique_names([r.name for r in results])
     names = ["summary.csv", "summary.json", "crystals.csv", "crystals.json"]
     for r, sub in zip(results, subs, strict=True):
-        names += [f"{sub}/{n}" for n in sample_output_names(r, figures=figures, report=report)]
+        names += [f"{sub}/{n}" for n in sample_output_names(r, figures=figures, report=report,
+                                                            figure_format=figure_format)]
     folder.claim(names)
     summary = sample_summary_table(results)
     crystals = pd.concat([crystals_table(r) for r in results], ignore_index=True)
@@ -340,7 +357,8 @@ def write_sample_outputs(results: Iterable[Any], out_dir: str | os.PathLike, *,
     ]
     for r, sub in zip(results, subs, strict=True):
         written += write_sample_files(r, folder.path(sub), protect=protect, figures=figures,
-                                      report=report)
+                                      report=report, figure_format=figure_format,
+                                      figure_style=figure_style)
     folder.record(*names)
     folder.finish()
     return written

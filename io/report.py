@@ -557,9 +557,18 @@ _IN_TEXT = {**_LABELS, "melt_mg_number": "melt Mg#", "melt_ca_number": "melt Ca#
             "melt_mgo_wt": "melt MgO", "melt_cao_wt": "melt CaO"}
 
 
+_KEY = re.compile(r"(?<![-\w])([a-z]+(?:_[a-z]+)*_\d{4}[a-z]?)(?![-\w])")
+
+
 def humanize(text: str) -> str:
-    """Replace quantity names (``melt_mg_number``) in a message by words; ``+/-`` by ``±``."""
-    return _NAME.sub(lambda m: _IN_TEXT[m.group(1)], str(text)).replace("+/-", "±")
+    """Put a message in words: quantity names and citation keys replaced, ``+/-`` as ``±``.
+
+    ``melt_mg_number`` becomes "melt Mg#", a registered citation key such as
+    ``helz_thornber_1987`` its in-text citation "Helz & Thornber (1987)".
+    """
+    text = _NAME.sub(lambda m: _IN_TEXT[m.group(1)], str(text)).replace("+/-", "±")
+    return _KEY.sub(lambda m: short_cite(m.group(1)) if m.group(1) in REFERENCES
+                    else m.group(1), text)
 
 
 def _unit(unit: str) -> str:

@@ -312,31 +312,44 @@ def write_profile_csv(result: Any, path: str | os.PathLike, *, protect=None) -> 
                        digits=band_digits(result.spots.columns), protect=protect)
 
 
-def fit_output_names(samples: Iterable[str]) -> list[str]:
+def fit_output_names(samples: Iterable[str], *, figures: bool = False, report: bool = False,
+                     figure_format=None) -> list[str]:
     """Relative paths :func:`write_fit_outputs` writes for these sample names.
 
     Parameters
     ----------
     samples : iterable of str
         Traverse names, in order.
+    figures, report : bool, optional
+        Whether the figures / ``report.pdf`` are written (default neither).
+    figure_format : str or iterable of str, optional
+        Figure file formats (default PNG and PDF).
 
     Returns
     -------
     list of str
         ``summary.csv``, ``summary.json`` and per traverse
-        ``<folder>/fit.json``, ``<folder>/profile.csv``, ``<folder>/profile.json``.
+        ``<folder>/fit.json``, ``<folder>/profile.csv``, ``<folder>/profile.json``
+        and the figures and report (:func:`zoning.io.figures.graphics_names`).
     """
+    graphics: list[str] = []
+    if figures or report:
+        from zoning.io.figures import graphics_names
+
+        graphics = graphics_names(figures=figures, report=report, formats=figure_format)
     names = ["summary.csv", "summary.json"]
     for folder in unique_names(list(samples)):
         names += [f"{folder}/fit.json", f"{folder}/profile.csv", f"{folder}/profile.json"]
+        names += [f"{folder}/{g}" for g in graphics]
     return names
 
 
 def write_fit_outputs(
     results: Iterable[Any], out_dir: str | os.PathLike, *, protect=None, provenance=None,
-    output=None,
+    output=None, figures: bool = False, report: bool = False, figure_format=None,
+    figure_style=None,
 ) -> list[Path]:
-    """Write ``summary.csv`` and, per traverse, ``fit.json`` and ``profile.csv``.
+    """Write ``summary.csv`` and, per traverse, ``fit.json``, ``profile.csv``, figures, report.
 
     The folder gets a manifest (:mod:`zoning.io.outputs`); a file of the same
     name that zoning did not write is never replaced
@@ -356,6 +369,12 @@ def write_fit_outputs(
         Extra provenance for the sidecar of ``summary.csv`` (e.g. the source).
     output : zoning.io.outputs.OutputFolder, optional
         The folder object, when the caller already claimed the names.
+    figures, report : bool, optional
+        Per traverse, draw the figures / write ``report.pdf`` with
+        :func:`zoning.io.figures.write_sample_graphics`, the writer of
+        ``zoning batch`` (default neither).
+    figure_format, figure_style : optional
+        Figure file formats and preset (default PNG + PDF, ``"thesis"``).
 
     Returns
     -------
@@ -366,7 +385,8 @@ def write_fit_outputs(
 
     results = list(results)
     folder = output if output is not None else OutputFolder(out_dir, kind="fit")
-    names = fit_output_names([r.sample for r in results])
+    names = fit_output_names([r.sample for r in results], figures=figures, report=report,
+                             figure_format=figure_format)
     folder.claim(names)
     table = summary_table(results)
     meta = {"content": "one row per fitted traverse: best values and 95% bands",
@@ -376,6 +396,12 @@ def write_fit_outputs(
     for r, sub in zip(results, unique_names([r.sample for r in results]), strict=True):
         written.append(write_fit_json(r, folder.path(f"{sub}/fit.json"), protect=protect))
         written.append(write_profile_csv(r, folder.path(f"{sub}/profile.csv"), protect=protect))
+        if figures or report:
+            from zoning.io.figures import write_sample_graphics
+
+            written += write_sample_graphics(r, folder.path(sub), figures=figures,
+                                             report=report, formats=figure_format,
+                                             style=figure_style)
     folder.record(*names)
     folder.finish()
     return written

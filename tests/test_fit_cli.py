@@ -1,6 +1,7 @@
 """``zoning fit`` end to end on an invented olivine export."""
 
 import json
+import os
 import warnings
 
 import numpy as np
@@ -69,6 +70,10 @@ def test_zoning_fit_writes_summary_fit_json_and_profile(export, tmp_path, capsys
     folder = out / safe_name(summary.loc[0, "sample"])
     data = json.loads((folder / "fit.json").read_text(encoding="utf-8"))
     assert data["seed"] == 3 and data["settings"]["melt"] == {"FeO": 9.5}
+    # The command that reproduces the result, as typed, and where it was run.
+    assert data["settings"]["command"] == (
+        f"zoning fit {export} --melt FeO=9.5 --out {out} --steps 300 --walkers 32 --seed 3")
+    assert data["settings"]["command_folder"] == os.getcwd()
     assert {"zoning", "python", "numpy", "scipy", "lmfit", "emcee", "pandas"} <= set(
         data["versions"]
     )

@@ -123,7 +123,7 @@ def test_report_states_data_quality_warnings_and_cautions(olivine, olivine_pdf):
     assert f"Orientation {t.orientation}, core at {t.core_position_um:g} µm" in text
     # The thermometer's calibration warning of this fit reaches the report.
     calib = [w for w in olivine.warnings if "calibration range" in w]
-    assert calib and "approximate calibration range of the helz_thornber_1987" in text
+    assert calib and "approximate calibration range of the Helz & Thornber (1987)" in text
 
 
 def test_plagioclase_report_has_no_olivine_only_settings(plag, tmp_path):

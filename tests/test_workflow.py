@@ -66,7 +66,9 @@ def test_every_zoning_fit_option_has_a_project_file_name():
              for a in p._actions if a.option_strings and a.dest != "help"}
     names -= {"out"}  # the output folder is a batch argument, not a per-sample option
     names -= {"name"}  # a joint sample's name is its [samples."..."] table name
-    known = set(FIT_OPTIONS) | set(READ_OPTIONS) | set(JOINT_OPTIONS)
+    # --no-figures / --no-report are the project keys figures / report = false
+    names = {n[len("no_"):] if n in ("no_figures", "no_report") else n for n in names}
+    known = set(FIT_OPTIONS) | set(READ_OPTIONS) | set(JOINT_OPTIONS) | set(OUTPUT_OPTIONS)
     assert names <= known, names - known
 
 

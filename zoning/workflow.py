@@ -280,10 +280,33 @@ JOINT_OPTIONS: dict[str, tuple[str, Callable[[str, Any], Any]]] = {
     "joint_retention": ("retention", _as_str),
 }
 
-#: Options of the batch itself: which outputs to draw (both default true).
+def _as_figure_format(key: str, value: Any) -> tuple[str, ...]:
+    from zoning.io.figures import FIGURE_FORMATS, parse_figure_formats
+
+    try:
+        return parse_figure_formats(value)
+    except ZoningError:
+        raise TypeError(f"figure file formats from {', '.join(FIGURE_FORMATS)}, e.g. "
+                        f'{key} = ["png", "svg"] or {key} = "png,pdf"') from None
+
+
+def _as_figure_style(key: str, value: Any) -> str:
+    from zoning.io.figures import FIGURE_STYLES, figure_style
+
+    try:
+        return figure_style(value if isinstance(value, str) else repr(value)).name
+    except ZoningError:
+        raise TypeError(f"a figure preset, one of {', '.join(map(repr, FIGURE_STYLES))}, "
+                        f'e.g. {key} = "column"') from None
+
+
+#: Options of the batch itself: which outputs to draw (figures and report
+#: default true) and how (figure file formats and size/font preset).
 OUTPUT_OPTIONS: dict[str, tuple[str, Callable[[str, Any], Any]]] = {
     "figures": ("figures", _as_bool),
     "report": ("report", _as_bool),
+    "figure_format": ("figure_format", _as_figure_format),
+    "figure_style": ("figure_style", _as_figure_style),
 }
 
 #: Keys only a sample table may hold.
@@ -447,7 +470,12 @@ class SampleJob:
     fit_options : mapping
         Keyword arguments of :func:`zoning.fitting.fit_traverse`.
     figures, report : bool
-        Draw the figures (PNG + PDF) and the PDF report.
+        Draw the figures and the PDF report.
+    figure_format : tuple of str
+        Figure file formats (project key ``figure_format``; default PNG + PDF).
+    figure_style : str
+        Figure preset of :data:`zoning.io.figures.FIGURE_STYLES` (project key
+        ``figure_style``; default ``"thesis"``).
     problem : str
         Why the sample cannot be run (e.g. its file lies outside the project
         folder); "" when it can. A sample with a problem is a failed row of
@@ -465,6 +493,8 @@ class SampleJob:
     fit_options: Mapping[str, Any] = field(default_factory=dict)
     figures: bool = True
     report: bool = True
+    figure_format: tuple[str, ...] = ("png", "pdf")
+    figure_style: str = "thesis"
     problem: str = ""
     files: tuple[str, ...] = ()
     joint: bool = False
@@ -486,6 +516,10 @@ class SampleJob:
             "fit": _jsonable(self.fit_options),
             "figures": self.figures,
             "report": self.report,
+            # Part of the fingerprint: a folder with other formats or another
+            # preset is not "unchanged".
+            "figure_format": list(self.figure_format) if self.figures else [],
+            "figure_style": self.figure_style if self.figures else "",
             **({"files": list(self.files), "joint": _jsonable(self.joint_options)}
                if self.joint else {}),
         }
@@ -597,6 +631,8 @@ def _make_job(name: str, file: Path, traverse: str, options: Mapping[str, Any],
         fit_options=fit,
         figures=out.get("figures", True),
         report=out.get("report", True),
+        figure_format=tuple(out.get("figure_format", ("png", "pdf"))),
+        figure_style=out.get("figure_style", "thesis"),
         problem=problem,
         files=tuple(str(f) for f in files),
         joint=is_joint,
@@ -965,7 +1001,8 @@ class BatchResult:
 _FINGERPRINT_FILE = "fingerprint.json"
 
 #: Files the batch writes into the output folder itself (besides sample folders).
-BATCH_FILES = ("summary.csv", "summary.json", "summary.xlsx", "overview.png", "overview.pdf")
+BATCH_FILES = ("summary.csv", "summary.json", "summary.xlsx", "overview.png", "overview.pdf",
+               "overview.svg")
 
 #: Limits of the batch's parallelism: each worker holds a full Python with
 #: numpy, scipy and matplotlib (about 200 MB).
@@ -1211,15 +1248,10 @@ def _fit_and_write(job: SampleJob, build: Path):
     write_fit_json(result, build / "fit.json")
     write_profile_csv(result, build / "profile.csv")
     if job.figures or job.report:
-        from zoning.io import figures
+        from zoning.io.figures import write_sample_graphics
 
-        drawn = figures.sample_figures(result)
-        if job.figures:
-            figures.save_sample_figures(result, build, figures=drawn)
-        if job.report:
-            from zoning.io.report import write_report
-
-            write_report(result, build / "report.pdf", figures=list(drawn.values()))
+        write_sample_graphics(result, build, figures=job.figures, report=job.report,
+                              formats=job.figure_format, style=job.figure_style)
     row = summary_table([result]).iloc[0].to_dict()
     row["sample"] = job.name
     return row, result
@@ -1251,7 +1283,8 @@ def _fit_and_write_joint(job: SampleJob, build: Path):
         kw["n_sweeps"] = kw.pop("n_steps")
     result = _with_project_entry(fit_sample(traverses, name=job.name, **kw,
                                             **job.joint_options), job)
-    write_sample_files(result, build, figures=job.figures, report=job.report)
+    write_sample_files(result, build, figures=job.figures, report=job.report,
+                       figure_format=job.figure_format, figure_style=job.figure_style)
     row = sample_summary_table([result]).iloc[0].to_dict()
     row["sample"] = job.name
     return row, result
@@ -1823,8 +1856,10 @@ def _write_tables(project: Project, out: Path, outcomes: Mapping[str, SampleOutc
 
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
-                fig = overview_figure(shown.reset_index(drop=True))
-            for path in save_figure(fig, out / "overview").values():
+                fig = overview_figure(shown.reset_index(drop=True),
+                                      style=project.defaults.get("figure_style"))
+            formats = project.defaults.get("figure_format")
+            for path in save_figure(fig, out / "overview", formats=formats).values():
                 root.record_path(path)
             import matplotlib.pyplot as plt
 

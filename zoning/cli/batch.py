@@ -14,6 +14,7 @@ import argparse
 import sys
 from pathlib import Path
 
+from zoning.cli._figures import add_figure_options, where_graphics
 from zoning.cli._reading import add_reading_options, reading_options
 from zoning.exceptions import ZoningError
 
@@ -56,6 +57,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="do not draw the sample figures (project key figures = false)")
     p.add_argument("--no-report", dest="report", action="store_false", default=None,
                    help="do not write report.pdf per sample (project key report = false)")
+    add_figure_options(p, batch=True)
     p.add_argument("--wait", type=float, default=0.0, metavar="SECONDS",
                    help="wait up to SECONDS for another batch writing into the same --out "
                         "(default: refuse at once, naming it)")
@@ -131,7 +133,7 @@ def options_from_args(args: argparse.Namespace) -> dict:
     opts.update(reading_options(args))
     if args.melt:
         opts["melt"] = parse_melt(args.melt)
-    for key in ("figures", "report"):
+    for key in ("figures", "report", "figure_format", "figure_style"):
         if getattr(args, key, None) is not None:
             opts[key] = getattr(args, key)
     return opts
@@ -239,5 +241,5 @@ def run(args: argparse.Namespace) -> int:
         elif o.status == "fitted" and o.note:
             print(f"  {o.name}: {o.note}", file=sys.stderr)
     print(f"summary: {Path(result.out_dir) / 'summary.csv'}")
-    print(f"reports: {Path(result.out_dir)}/<sample>/report.pdf")
+    print(where_graphics(project.jobs, Path(result.out_dir)))
     return 1 if result.n_failed else 0

@@ -1,7 +1,10 @@
 """``zoning fit``: fit crystallization models to every traverse of one export.
 
 Prints a plain report per traverse and writes ``summary.csv`` and, per
-traverse, ``fit.json`` and ``profile.csv`` into the output folder.
+traverse, ``fit.json``, ``profile.csv``, the figures (profile, melt path,
+posterior) and ``report.pdf`` into the output folder: the same figures and
+report as ``zoning batch``, written by the same code
+(:func:`zoning.io.figures.write_sample_graphics`).
 """
 
 from __future__ import annotations
@@ -10,6 +13,7 @@ import argparse
 import sys
 from pathlib import Path
 
+from zoning.cli._figures import add_figure_options, figure_settings, list_graphics
 from zoning.cli._reading import add_reading_options, reading_options
 from zoning.exceptions import ZoningError
 
@@ -180,6 +184,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    "traverse names)")
     p.add_argument("--out", help="output folder (default: <file name>_fit)")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    add_figure_options(p.add_argument_group("figures and report (as for zoning batch)"))
     add_reading_options(p.add_argument_group("reading options (as for zoning inspect)"))
     p.set_defaults(run=run)
     return p
@@ -224,6 +229,7 @@ def run(args: argparse.Namespace) -> int:
         )
     distance_range = parse_range(args.distance_range)
     check_sampler_settings(args.walkers, args.steps, args.seed)
+    graphics = figure_settings(args)
     out_dir = Path(args.out) if args.out else source.with_name(source.stem + "_fit")
     check_output_dir(out_dir)
     traverses = [t for s in sources
@@ -239,12 +245,14 @@ def run(args: argparse.Namespace) -> int:
         robust=args.robust, temperature_c=args.temperature_c, seed=args.seed,
     )
     if args.joint:
-        return _run_joint(args, traverses, common, out_dir, sources)
+        return _run_joint(args, traverses, common, out_dir, sources, graphics)
     if args.exclude:
         raise ZoningError("--exclude applies to joint fits only; add --joint.")
     # Before any fit: every file the fit will write must be new or zoning's own.
     output = OutputFolder(out_dir, kind="fit")
-    output.check(fit_output_names([t.name for t in traverses]))
+    output.check(fit_output_names([t.name for t in traverses], figures=graphics["figures"],
+                                  report=graphics["report"],
+                                  figure_format=graphics["figure_format"]))
     results = []
     failed = 0
     for traverse in traverses:
@@ -272,12 +280,13 @@ def run(args: argparse.Namespace) -> int:
     provenance = {"source": [str(p.resolve()) for p in sources] if len(sources) > 1
                   else str(source.resolve()), "settings": dict(results[0].settings)}
     written = write_fit_outputs(results, out_dir, protect=sources, provenance=provenance,
-                                output=output)
+                                output=output, **graphics)
     print(f"wrote {len(written)} files to {out_dir}")
+    print("\n".join(list_graphics(written, out_dir)))
     return 1 if failed else 0
 
 
-def _run_joint(args, traverses, common, out_dir, sources) -> int:
+def _run_joint(args, traverses, common, out_dir, sources, graphics) -> int:
     """Fit every traverse as one crystal of one sample and write the joint outputs."""
     from zoning.fitting import fit_sample
     from zoning.io.joint_results import format_sample_report, write_sample_outputs
@@ -302,6 +311,7 @@ def _run_joint(args, traverses, common, out_dir, sources) -> int:
     provenance = {"sources": [str(p.resolve()) for p in sources],
                   "settings": dict(result.settings)}
     written = write_sample_outputs([result], out_dir, protect=sources, provenance=provenance,
-                                   output=output)
+                                   output=output, **graphics)
     print(f"wrote {len(written)} files to {out_dir}")
+    print("\n".join(list_graphics(written, out_dir)))
     return 0
