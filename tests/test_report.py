@@ -119,6 +119,9 @@ def test_report_states_data_quality_warnings_and_cautions(olivine, olivine_pdf):
         assert reason in text
     for caution in CAUTIONS:
         assert caution in text
+    # How the orientation was decided travels with the numbers.
+    t = olivine.traverse
+    assert f"Orientation {t.orientation}, core at {t.core_position_um:g} µm" in text
     # The thermometer's calibration warning of this fit reaches the report.
     calib = [w for w in olivine.warnings if "calibration range" in w]
     assert calib and "approximate calibration range of the Helz & Thornber (1987)" in text
