@@ -47,6 +47,20 @@ RETENTIONS = ("free", "0", "1")
 GRID_RATIO, GRID_F, GRID_R = 14, 9, 5
 #: Grid points refined by the local minimiser (plus the model's own guess).
 N_REFINE = 4
+#: Largest number of model evaluations of one local refinement. A start far
+#: from any optimum on a nearly flat, noisy surface (e.g. a diffusion length
+#: for a model that cannot fit at all) can otherwise take minutes; the good
+#: starts converge within a few tens of evaluations.
+MAX_NFEV = 200
+#: Starting levels of each process parameter when a candidate switches the
+#: process on (from the best fits of the nested models without it): the
+#: section offset h/R, and the diffusion length as a fraction of its upper
+#: bound. The least-squares gradient with respect to a process parameter
+#: vanishes at 0 (a smooth profile changes by O(L^2), a cut by O(h^2)), so a
+#: start at 0 would stay there.
+PROCESS_START_LEVELS = {"section_h_over_r": (0.45, 0.8), "diffusion_length_um": (0.1, 0.3)}
+#: Nested best fits (lowest objectives) a process candidate starts from.
+N_NESTED_STARTS = 2
 
 
 @dataclass(frozen=True)
@@ -285,7 +299,7 @@ def _least_squares(prob: FitProblem, start: np.ndarray):
     def jac(p):
         return evaluate(vector(p))[1:].T
 
-    kws = {"jac": jac}
+    kws = {"jac": jac, "max_nfev": MAX_NFEV}
     if prob.robust:
         kws.update(loss="soft_l1", f_scale=1.0)
     with np.errstate(all="ignore"), warnings.catch_warnings():
@@ -313,6 +327,27 @@ def _restrict(full: FitProblem, sub: FitProblem, rows: np.ndarray) -> np.ndarray
     """Rows of the full problem's free parameters -> columns of ``sub``'s."""
     cols = [full.free.index(n) for n in sub.free]
     return np.atleast_2d(rows)[:, cols]
+
+
+def _process_levels(problem: FitProblem, sub: FitProblem, fit: CandidateFit) -> np.ndarray:
+    """Rows of ``fit`` (full problem) with the processes ``sub`` frees set to start levels."""
+    base = fit.theta_full
+    switched = [n for n in PROCESS_PARAMETERS.values()
+                if n in sub.free and n not in fit.problem.free]
+    rows = [base.copy()]
+    for name in switched:
+        j = problem.free.index(name)
+        levels = np.asarray(PROCESS_START_LEVELS[name], dtype=float)
+        if name == "diffusion_length_um":
+            levels = problem.lower[j] + levels * (problem.upper[j] - problem.lower[j])
+        new_rows = []
+        for row in rows:
+            for v in levels:
+                r = row.copy()
+                r[j] = v
+                new_rows.append(r)
+        rows = new_rows
+    return np.array(rows)
 
 
 def fit_candidates(
@@ -346,17 +381,22 @@ def fit_candidates(
     for i in order:
         cand = candidates[i]
         sub = problem.with_fixed(cand.fixed_values(problem))
-        rows = [_restrict(problem, sub, starts)]
-        # Warm starts: the best fits of nested models with more processes
-        # switched off are points of this model too (its optimum can only be
-        # as good or better). Same process set: shared starts only.
-        nested = [
-            f for f in fits.values()
-            if cand.contains(f.candidate) and f.candidate.processes != cand.processes
-            and np.isfinite(f.objective)
-        ]
+        # Warm starts: the best fits of nested models with processes switched
+        # off are points of this model too (its optimum can only be as good or
+        # better). A candidate with processes starts from the best of them,
+        # as they are and with the new process parameters at their start
+        # levels; growth-only candidates start from the shared starts.
+        nested = sorted(
+            (f for f in fits.values()
+             if cand.contains(f.candidate) and f.candidate.processes != cand.processes
+             and np.isfinite(f.objective)),
+            key=lambda f: f.objective,
+        )[:N_NESTED_STARTS]
         if nested:
-            rows.append(_restrict(problem, sub, np.array([f.theta_full for f in nested])))
+            rows = [_restrict(problem, sub, np.array([f.theta_full for f in nested]))]
+            rows += [_restrict(problem, sub, _process_levels(problem, sub, f)) for f in nested]
+        else:
+            rows = [_restrict(problem, sub, starts)]
         sub_starts = np.vstack(rows)
         theta, obj, n_same, n_starts, success = _optimise(sub, sub_starts)
         fits[i] = CandidateFit(

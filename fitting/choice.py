@@ -32,7 +32,7 @@ Statistics 6, 461-464.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -49,6 +49,14 @@ __all__ = ["ModelChoice", "choose_model", "comparison_table", "CLEAR_PREFERENCE_
 CLEAR_PREFERENCE_BIC = 2.0
 #: ``preferred_model`` when the best two models are within CLEAR_PREFERENCE_BIC.
 NO_CLEAR_PREFERENCE = "no clear preference"
+
+#: -2 log posterior above the sampled model's best within which the best fit
+#: of another candidate seeds walkers as a further mode (9: density ratio
+#: exp(-4.5), about 1%; our choice).
+MODE_DELTA = 9.0
+#: Two seeds closer than this (largest difference over the parameters, as a
+#: fraction of each prior range) count as one.
+MODE_SEPARATION = 0.05
 
 COMPARISON_COLUMNS = ["model", "processes", "retention", "chi_square", "n_params", "aic",
                       "bic", "delta_bic", "weight"]
@@ -84,6 +92,13 @@ class ModelChoice:
     reversal_sigma : float
         Per-spot 1-sigma the reversals were tested against
         (:func:`zoning.fitting.diagnostics.reversal_sigma`) [mol%].
+    modes : ndarray, shape (q, p)
+        Best fits of other candidates, as points of the sampled model, that
+        lie within :data:`MODE_DELTA` of its best -2 log posterior: starting
+        points of walkers in other modes (e.g. fractional with diffusion
+        against equilibrium without). Shape (0, p) when there are none.
+    mode_weights : ndarray, shape (q + 1,)
+        exp(-delta/2) of the sampled best fit (1) and of each mode.
     """
 
     comparison: pd.DataFrame
@@ -96,6 +111,8 @@ class ModelChoice:
     reversals: pd.DataFrame
     messages: tuple[str, ...] = ()
     reversal_sigma: float = float("nan")
+    modes: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+    mode_weights: np.ndarray = field(default_factory=lambda: np.ones(1))
 
 
 def comparison_table(fits: Sequence[CandidateFit], n_data: int) -> pd.DataFrame:
@@ -153,6 +170,32 @@ def _sampled_fit(fits: Sequence[CandidateFit]) -> CandidateFit:
     return max(free, key=lambda f: len(f.candidate.processes))
 
 
+def _modes(sub: FitProblem, sampled: CandidateFit, fits: Sequence[CandidateFit]):
+    """Other candidates' best fits that are modes worth seeding (see ModelChoice)."""
+    rows = np.array([sub.expand(f.theta[None, :], f.problem)[0] for f in fits
+                     if f is not sampled and np.isfinite(f.objective)])
+    p = len(sub.free)
+    if not sampled.candidate.processes or rows.size == 0:
+        return np.zeros((0, p)), np.ones(1)
+    rows = np.clip(rows, sub.lower, sub.upper)
+    z = sub.residuals(sub.params(np.vstack([sampled.theta[None, :], rows])), rows.shape[0] + 1)
+    obj = sub.objective(z)
+    delta = obj[1:] - obj[0]
+    span = np.where(sub.upper > sub.lower, sub.upper - sub.lower, 1.0)
+    kept, weights = [], []
+    for i in np.argsort(np.where(np.isfinite(delta), delta, np.inf), kind="stable"):
+        if not delta[i] <= MODE_DELTA:
+            break
+        seen = [sampled.theta, *kept]
+        if min(np.max(np.abs(rows[i] - s) / span) for s in seen) < MODE_SEPARATION:
+            continue
+        kept.append(rows[i])
+        weights.append(np.exp(-0.5 * max(float(delta[i]), 0.0)))
+    if not kept:
+        return np.zeros((0, p)), np.ones(1)
+    return np.array(kept), np.array([1.0, *weights])
+
+
 def choose_model(problem: FitProblem, fits: Sequence[CandidateFit]) -> ModelChoice:
     """Compare the candidates, scale sigma if needed, find reversals (stage 3).
 
@@ -190,9 +233,15 @@ def choose_model(problem: FitProblem, fits: Sequence[CandidateFit]) -> ModelChoi
     reduced = chi_data / dof
 
     messages = []
-    if sampled.n_same < 2 and sampled.n_starts > 1:
+    # Several minima of the growth model (shared starts) point at the profile
+    # or the reference melt; the starts of models with processes begin at
+    # different process levels on purpose and would reach different optima
+    # where processes trade off (reported from the posterior instead).
+    growth = [f for f in fits if not f.candidate.processes and f.candidate.retention == "free"]
+    ref = growth[0] if growth else sampled
+    if ref.n_same < 2 and ref.n_starts > 1:
         messages.append(
-            f"only {sampled.n_same} of {sampled.n_starts} starts reached the best optimum; the "
+            f"only {ref.n_same} of {ref.n_starts} starts reached the best optimum; the "
             "fit surface has several minima, check the profile and the reference melt."
         )
     # Misfit beyond the stated uncertainties widens the bands (Birge ratio).
@@ -215,6 +264,7 @@ def choose_model(problem: FitProblem, fits: Sequence[CandidateFit]) -> ModelChoi
     reversals = find_reversals(problem.distance_um, problem.y, rev_sigma)
     if len(reversals):
         preferred = ""
+    modes, mode_weights = _modes(sub, sampled, fits)
     return ModelChoice(
         comparison=table,
         preferred_model=preferred,
@@ -226,4 +276,6 @@ def choose_model(problem: FitProblem, fits: Sequence[CandidateFit]) -> ModelChoi
         reversals=reversals,
         messages=tuple(messages),
         reversal_sigma=rev_sigma,
+        modes=modes,
+        mode_weights=mode_weights,
     )

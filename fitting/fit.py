@@ -26,8 +26,9 @@ forward model and, for a process, its parameter in
 
 Assumptions a user must keep in mind (stated in every report): each zone
 grew in surface equilibrium with the melt; later diffusion can smooth the
-zoning; off-centre sections distort the distance-to-F mapping; the answer
-depends on the chosen Kd and reference melt.
+zoning and off-centre sections distort the distance-to-F mapping (both
+fitted as processes unless fixed); the answer depends on the chosen Kd and
+reference melt.
 """
 
 from __future__ import annotations
@@ -75,6 +76,9 @@ def fit_traverse(
     n_steps: int | None = None,
     progress: bool = False,
     thermometer: str = "helz_thornber_1987",
+    section_h_over_r: str | float | None = None,
+    diffusion_length_um: str | float | None = None,
+    delta_qfm: float | None = None,
 ) -> FitResult:
     """Fit a crystallization model to one traverse and sample its posterior.
 
@@ -126,8 +130,11 @@ def fit_traverse(
     robust : bool, optional
         Soft-L1 loss instead of squares (down-weights stray spots).
     temperature_c : float, optional
-        Crystallization temperature [°C]; needed by the plagioclase Sr and
-        Mg partitioning laws (without it, ``traces="auto"`` skips them).
+        Temperature [°C]; needed by the plagioclase Sr and Mg partitioning
+        laws (without it, ``traces="auto"`` skips them). When diffusion
+        after growth is fitted it is also the temperature of that
+        diffusion, and the diffusion length is converted into a time
+        (``diffusion_time_days``, :func:`zoning.diffusion.diffusion_time_days`).
     seed : int, optional
         Seed of every random step (same seed, same numbers).
     n_walkers, n_steps : int, optional
@@ -140,6 +147,26 @@ def fit_traverse(
         (:data:`zoning.thermometry.THERMOMETERS`, default Helz & Thornber
         1987). Warns once (CalibrationRangeWarning) when the best-fit melt
         path leaves its calibration range.
+
+    section_h_over_r : "free" or float, optional
+        Distance of the section plane from the crystal centre over the true
+        radius, h/R [1]: ``"free"`` fits it with the prior of a random cut
+        (uniform on [0, 0.95]: for random planes meeting a sphere, or planes
+        parallel to a prism's axis meeting it, h/R is uniform on [0, 1); see
+        :mod:`zoning.geometry`), a number fixes it (0: the cut went through
+        the core, e.g. a core feature is visible). Default ``"free"``
+        (geometry ``"slab"``: fixed at 0, where a cut's offset changes
+        nothing).
+    diffusion_length_um : "free" or float, optional
+        Diffusion length L = sqrt(D t) after growth of Fe-Mg (olivine) or
+        Mg (plagioclase) [µm]: ``"free"`` fits it with a uniform prior on
+        [0, min(radius, 500 µm)] (zero included), a number fixes it.
+        Default: ``"free"`` for olivine; 0 for plagioclase, whose An record
+        is practically frozen (give ``"free"`` with an MgO/SrO profile).
+    delta_qfm : float, optional
+        Oxygen fugacity relative to the QFM buffer [log10 units] for the
+        olivine Fe-Mg diffusivity (Dohmen & Chakraborty 2007) when a
+        diffusion time is computed; default 0 (QFM, stated in the warnings).
 
     Returns
     -------
@@ -182,13 +209,16 @@ def fit_traverse(
         robust=robust,
         temperature_c=temperature_c,
         thermometer=thermometer,
+        section_h_over_r=section_h_over_r,
+        diffusion_length_um=diffusion_length_um,
+        delta_qfm=delta_qfm,
     )
     starts, n_grid = shared_starts(problem)
     fits = fit_candidates(problem, starts=starts)
     choice = choose_model(problem, fits)
     posterior = sample_posterior(
         choice.problem, choice.sampled.theta, n_walkers=n_walkers, n_steps=n_steps,
-        seed=seed, progress=progress,
+        seed=seed, progress=progress, modes=choice.modes, mode_weights=choice.mode_weights,
     )
     return summarise_fit(problem, fits, choice, posterior, seed=seed, n_grid=n_grid,
                          stacklevel=3)

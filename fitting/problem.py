@@ -44,7 +44,9 @@ __all__ = [
     "KD_PRIOR",
     "KD_RELATIVE_SD",
     "OPTIONAL_FREE",
+    "PROCESS_DEFAULTS",
     "TRACES",
+    "diffusion_length_max_um",
 ]
 
 #: Default per-spot 1-sigma of the major-element record when the file gives
@@ -83,6 +85,22 @@ KD_RELATIVE_SD = {"olivine": 0.10, "plagioclase": 0.25}
 #: Parameters the user may free in addition to the melt ratio, f_rim,
 #: retention and kd (and the trace initial melt contents).
 OPTIONAL_FREE = ("f_core", "growth_exponent", "core_offset_um")
+
+#: Default setting of the processes after growth, per mineral: "free" (fitted
+#: with the prior of :func:`process_prior_note`) or a fixed value. Plagioclase
+#: diffusion is fixed at 0: its An record is practically frozen (CaAl-NaSi
+#: interdiffusion, Grove et al. 1984, Geochim. Cosmochim. Acta 48, 2113-2121),
+#: so only a fitted Mg or Sr profile could constrain a diffusion length.
+PROCESS_DEFAULTS = {
+    "olivine": {"section_h_over_r": "free", "diffusion_length_um": "free"},
+    "plagioclase": {"section_h_over_r": "free", "diffusion_length_um": 0.0},
+}
+
+#: CLI option and project key of each process parameter (for messages).
+_PROCESS_OPTION = {
+    "section_h_over_r": ("--section-h-over-r", "section_h_over_r"),
+    "diffusion_length_um": ("--diffusion-length-um", "diffusion_length_um"),
+}
 
 #: Minimum number of finite values for a trace profile to be fitted.
 MIN_TRACE_SPOTS = 5
@@ -535,6 +553,103 @@ def _kd_prior(mineral, kd, kd_sd, specs):
     return kd0, kd_sd
 
 
+def diffusion_length_max_um(radius_um: float, maximum: float) -> float:
+    """Upper bound of the fitted diffusion length [µm].
+
+    The prior of L = sqrt(D t) is uniform on [0, min(radius_um, maximum)]:
+    at L = R (D t / R^2 = 1) a sphere, cylinder or slab has come within a
+    fraction of a per cent of homogeneity (Crank 1975, The Mathematics of
+    Diffusion, figs. 6.4 and 5.7; from memory), so longer lengths give the
+    same flat profile and cannot be told apart.
+
+    Parameters
+    ----------
+    radius_um : float
+        Section (core-to-rim) radius of the traverse [µm].
+    maximum : float
+        The forward model's upper bound [µm].
+
+    Returns
+    -------
+    float
+    """
+    return float(min(float(radius_um), float(maximum)))
+
+
+def _process_setting(name, value, mineral, geometry, traces, notes):
+    """Resolve one process setting to "free" or a fixed float (notes appended)."""
+    option, key = _PROCESS_OPTION[name]
+    hint = f"Give e.g. {option} free or {option} 0 (project key {key} = \"free\" or 0)."
+    given = value is not None
+    if not given:
+        value = PROCESS_DEFAULTS[mineral][name]
+    if isinstance(value, str):
+        text = value.strip().lower()
+        if text == "free":
+            value = "free"
+        else:
+            try:
+                value = float(text)
+            except ValueError:
+                raise ZoningError(
+                    f"{name} must be 'free' or a number; got {value!r}. {hint}"
+                ) from None
+    elif isinstance(value, bool) or not isinstance(value, (int, float, np.floating,
+                                                           np.integer)):
+        raise ZoningError(f"{name} must be 'free' or a number; got {value!r}. {hint}")
+    else:
+        value = float(value)
+    if name == "section_h_over_r":
+        if geometry == "slab" and value != 0.0:
+            if not given:
+                notes.append(
+                    "section offset not fitted (geometry slab): zones of a slab are planes, so "
+                    "the offset of a cut changes nothing; an oblique cut, which stretches the "
+                    "profile, is not modelled."
+                )
+                return 0.0
+            raise ZoningError(
+                f"{name} cannot be {value!r} for geometry 'slab': zones of a slab are planes "
+                f"and the offset of a cut changes nothing. Give {option} 0 (project key "
+                f"{key} = 0) or --geometry sphere/cylinder."
+            )
+        if value != "free" and not (np.isfinite(value) and 0.0 <= value < 1.0):
+            raise ZoningError(
+                f"{name} must be in [0, 1) (distance of the section plane from the crystal "
+                f"centre over the true radius); got {value!r}. Give e.g. {option} 0 for a "
+                f"cut through the core, or {option} free."
+            )
+        return value
+    if value != "free" and not (np.isfinite(value) and value >= 0.0):
+        raise ZoningError(
+            f"{name} must be a diffusion length >= 0 [µm] or 'free'; got {value!r}. "
+            f"Give e.g. {option} 0 (no diffusion after growth) or {option} free."
+        )
+    if mineral == "plagioclase" and not traces:
+        if value == "free":
+            raise ZoningError(
+                "diffusion after growth cannot be fitted for plagioclase without an MgO or "
+                "SrO profile: An (CaAl-NaSi) is practically frozen, so the An record says "
+                "nothing about it. Fit an MgO/SrO profile (with --temperature-c), or give "
+                f"{option} 0 (project key {key} = 0)."
+            )
+        if value > 0.0:
+            notes.append(
+                f"diffusion length {value:g} µm has no effect on this fit: An (CaAl-NaSi) "
+                "is practically frozen and no MgO/SrO profile is fitted."
+            )
+            return 0.0
+    if mineral == "plagioclase" and not given:
+        notes.append(
+            "diffusion after growth not fitted (plagioclase default): An (CaAl-NaSi) is "
+            "practically frozen, so only MgO/SrO profiles could show it; "
+            + (f"give {option} free (project key {key} = \"free\") to fit it from them."
+               if traces else "fit an MgO/SrO profile (with --temperature-c) and give "
+               f"{option} free to fit it.")
+        )
+    return value
+
+
 def prepare_problem(
     traverse: Traverse,
     *,
@@ -553,6 +668,9 @@ def prepare_problem(
     robust: bool = False,
     temperature_c: float | None = None,
     thermometer: str = "helz_thornber_1987",
+    section_h_over_r: str | float | None = None,
+    diffusion_length_um: str | float | None = None,
+    delta_qfm: float | None = None,
 ) -> FitProblem:
     """Check the settings and lay out the fit of one traverse (stage 1).
 
@@ -630,20 +748,39 @@ def prepare_problem(
     )
     specs = {spec.name: spec for spec in model.parameters}
     kd0, kd_sd = _kd_prior(mineral, kd, kd_sd, specs)
+    process = {
+        "section_h_over_r": _process_setting("section_h_over_r", section_h_over_r, mineral,
+                                             geometry, chosen, notes),
+        "diffusion_length_um": _process_setting("diffusion_length_um", diffusion_length_um,
+                                                mineral, geometry, chosen, notes),
+    }
+    if delta_qfm is not None and not np.isfinite(float(delta_qfm)):
+        raise ZoningError(
+            f"delta_qfm must be a number (log10 fO2 relative to QFM); got {delta_qfm!r}. "
+            "Give e.g. --delta-qfm 0 (project key delta_qfm = 0)."
+        )
 
     free_names = [_RATIO[mineral], "f_rim", "retention"]
     if kd_sd > 0:
         free_names.append("kd")
     free_names += [n for n in OPTIONAL_FREE if n in extra]
     free_names += [c.param for c in chosen]
+    free_names += [n for n, v in process.items() if v == "free"]
     order = [s.name for s in model.parameters]
     free_names = tuple(n for n in order if n in free_names)
     fixed = {n: float(specs[n].default) for n in order if n not in free_names}
     fixed["kd"] = kd0 if kd_sd == 0 else fixed.get("kd", kd0)
+    for n, v in process.items():
+        if v != "free":
+            fixed[n] = float(v)
     fixed = {n: v for n, v in fixed.items() if n not in free_names}
     lower = np.array([float(specs[n].lower) for n in free_names])
     upper = np.array([float(specs[n].upper) for n in free_names])
-    n_min = len(free_names) + 2
+    if "diffusion_length_um" in free_names:
+        j = free_names.index("diffusion_length_um")
+        upper[j] = diffusion_length_max_um(radius, upper[j])
+    # Process parameters are nested at 0 (growth only) and do not raise the minimum.
+    n_min = len([n for n in free_names if n not in process]) + 2
     if len(usable) < n_min:
         raise FitError(
             f"traverse {traverse.name!r} has {len(usable)} usable spots"
@@ -663,6 +800,9 @@ def prepare_problem(
         "sigma": sigma_source,
         "include_flagged": bool(include_flagged),
         "temperature_c": float("nan") if temperature_c is None else float(temperature_c),
+        "delta_qfm": float("nan") if delta_qfm is None else float(delta_qfm),
+        "section_h_over_r": process["section_h_over_r"],
+        "diffusion_length_um": process["diffusion_length_um"],
     }
     problem = FitProblem(
         traverse=traverse,

@@ -67,6 +67,9 @@ PROPOSAL_SCALE = 2.38
 #: independence move.
 GAUSSIAN_SHARE = 0.3
 DE_SHARE = 0.1
+#: With several starting modes: share of steps that are differential-evolution
+#: moves with gamma = 1, which jump between modes (ter Braak 2006).
+MODE_JUMP_SHARE = 0.1
 #: Degrees of freedom and widening of the Student-t independence proposal.
 T_DOF = 5.0
 T_WIDEN = 1.2
@@ -139,6 +142,30 @@ def _start_ball(best, lower, upper, n_walkers, rng, covariance=None):
     return np.clip(pos, lower + 1e-12 * (upper - lower), upper - 1e-12 * (upper - lower))
 
 
+def _mode_ball(centres, weights, lower, upper, n_walkers, rng, covariance=None):
+    """Walkers shared among several starting points in proportion to ``weights``.
+
+    Every centre gets at least two walkers (so that the ensemble moves see
+    each mode); the first centre (the best fit) takes the rest.
+    """
+    centres = np.atleast_2d(np.asarray(centres, dtype=float))
+    w = np.asarray(weights, dtype=float)
+    w = w / w.sum()
+    counts = np.maximum(2, np.floor(w * n_walkers).astype(int))
+    counts[0] += n_walkers - counts.sum()
+    while counts[0] < 2:  # more centres than walkers allow: drop the least likely
+        keep = np.argsort(-w, kind="stable")[: max(1, centres.shape[0] - 1)]
+        keep.sort()
+        centres, w = centres[keep], w[keep] / w[keep].sum()
+        counts = np.maximum(2, np.floor(w * n_walkers).astype(int))
+        counts[0] += n_walkers - counts.sum()
+    pos, home = [], []
+    for c, k in zip(centres, counts, strict=True):
+        pos.append(_start_ball(c, lower, upper, int(k), rng, covariance))
+        home.append(np.repeat(c[None, :], int(k), axis=0))
+    return np.vstack(pos), np.vstack(home)
+
+
 def _finite_start(log_prob, start, best, max_halvings=40):
     """Pull starting walkers with zero posterior towards ``best`` until all are positive.
 
@@ -149,15 +176,16 @@ def _finite_start(log_prob, start, best, max_halvings=40):
     the sampler compare -inf with -inf (NaN) and could stay outside the prior.
     """
     start = np.array(start, dtype=float, copy=True)
+    best = np.broadcast_to(np.asarray(best, dtype=float), start.shape)
     lp = np.asarray(log_prob(start), dtype=float)
     bad = ~np.isfinite(lp)
     for _ in range(max_halvings):
         if not bad.any():
             break
-        start[bad] = best + 0.5 * (start[bad] - best)
+        start[bad] = best[bad] + 0.5 * (start[bad] - best[bad])
         lp[bad] = log_prob(start[bad])
         bad = ~np.isfinite(lp)
-    start[bad] = best
+    start[bad] = best[bad]
     return start
 
 
@@ -173,6 +201,8 @@ def run_ensemble(
     seed: int,
     covariance: np.ndarray | None = None,
     progress: bool = False,
+    modes: np.ndarray | None = None,
+    mode_weights: np.ndarray | None = None,
 ) -> ChainSummary:
     """Sample a posterior with emcee, starting next to the best fit.
 
@@ -198,6 +228,13 @@ def run_ensemble(
         starting ball).
     progress : bool, optional
         Show emcee's progress bar.
+    modes : ndarray, shape (q, p), optional
+        Further starting points (other optima of the posterior, e.g. where
+        two processes trade off); walkers are shared among ``best`` and
+        these in proportion to ``mode_weights``, so that the sampler
+        starts in every mode instead of having to find the others.
+    mode_weights : ndarray, shape (q + 1,), optional
+        Relative weights of ``best`` and ``modes`` (default equal).
 
     Returns
     -------
@@ -207,8 +244,15 @@ def run_ensemble(
     upper = np.asarray(upper, dtype=float)
     n_par = lower.size
     rng = np.random.default_rng(seed)
-    start = _finite_start(log_prob, _start_ball(best, lower, upper, n_walkers, rng, covariance),
-                          best)
+    if modes is not None and np.size(modes):
+        centres = np.vstack([np.asarray(best, dtype=float)[None, :], np.atleast_2d(modes)])
+        weights = (np.ones(centres.shape[0]) if mode_weights is None
+                   else np.asarray(mode_weights, dtype=float))
+        ball, home = _mode_ball(centres, weights, lower, upper, n_walkers, rng, covariance)
+        start = _finite_start(log_prob, ball, home)
+    else:
+        start = _finite_start(log_prob,
+                              _start_ball(best, lower, upper, n_walkers, rng, covariance), best)
 
     def seeded(sampler):
         # emcee keeps its own legacy RandomState; seed it from our generator
@@ -220,9 +264,14 @@ def run_ensemble(
 
     # Burn-in: differential-evolution moves, which adapt to the posterior's
     # shape through the ensemble itself (emcee documentation: "moves").
+    hop = modes is not None and bool(np.size(modes))
+    burn_moves = [(emcee.moves.DEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)]
+    if hop:
+        burn_moves = [(emcee.moves.DEMove(), 0.8 - MODE_JUMP_SHARE),
+                      (emcee.moves.DEMove(gamma0=1.0), MODE_JUMP_SHARE),
+                      (emcee.moves.DESnookerMove(), 0.2)]
     burn = seeded(emcee.EnsembleSampler(
-        n_walkers, n_par, log_prob, vectorize=True,
-        moves=[(emcee.moves.DEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)],
+        n_walkers, n_par, log_prob, vectorize=True, moves=burn_moves,
     ))
     # The starting ball may be very thin along well-determined directions;
     # emcee's check for linearly dependent walkers would then refuse it.
@@ -231,6 +280,8 @@ def run_ensemble(
         if burn_in > 0
         else start
     )
+    if hop and burn_in > 0:
+        state = _reset_stragglers(state, rng)
     # Production: Metropolis steps with a Gaussian proposal shaped by the
     # covariance of the second half of the burn-in (scaled by 2.38^2/p,
     # Gelman, Roberts & Gilks 1996), mixed with differential-evolution steps.
@@ -249,12 +300,26 @@ def run_ensemble(
                 (emcee.moves.DEMove(), DE_SHARE),
                 (independence, 1.0 - GAUSSIAN_SHARE - DE_SHARE),
             ]
+            if hop:
+                moves.append((emcee.moves.DEMove(gamma0=1.0), MODE_JUMP_SHARE))
     sampler = seeded(emcee.EnsembleSampler(
         n_walkers, n_par, log_prob, vectorize=True, moves=moves
     ))
     sampler.run_mcmc(state, n_steps - burn_in, progress=progress, skip_initial_state_check=True)
     chain = sampler.get_chain()  # (steps, walkers, p)
-    tau = emcee.autocorr.integrated_time(chain, c=5, tol=0, quiet=True)
+    # A walker that never moved in production (stranded in a small, narrow
+    # mode that no move reaches or leaves) carries no information on the
+    # posterior's shape and would give it a spike: leave it out.
+    moved = np.any(np.ptp(chain, axis=0) > 0, axis=1)
+    if 2 <= moved.sum() < chain.shape[1]:
+        chain = chain[:, moved]
+        log_prob_kept = sampler.get_log_prob()[:, moved]
+    else:
+        log_prob_kept = sampler.get_log_prob()
+    n_walkers = chain.shape[1]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        # a walker that never moved has a zero autocorrelation at lag 0
+        tau = emcee.autocorr.integrated_time(chain, c=5, tol=0, quiet=True)
     n_kept = chain.shape[0]
     # A parameter whose walkers never moved has no finite tau: count it as
     # not converged (tau = chain length, so the ESS is tiny and a warning follows).
@@ -266,7 +331,7 @@ def run_ensemble(
     # point of zero posterior is never accepted, so every kept draw has a
     # finite log-posterior; the check below guards that invariant (a draw
     # outside the prior would reach the derived quantities otherwise).
-    finite = np.isfinite(sampler.get_log_prob())
+    finite = np.isfinite(log_prob_kept)
     flat = chain.reshape(-1, n_par)[finite.reshape(-1)]
     thinned = chain[::thin].reshape(-1, n_par)[finite[::thin].reshape(-1)]
     return ChainSummary(
@@ -280,6 +345,28 @@ def run_ensemble(
         burn_in=int(burn_in),
         thin=thin,
     )
+
+
+#: At the end of the burn-in of a sampler started in several modes, walkers
+#: whose log-posterior lies more than this below the ensemble's median are
+#: moved onto other walkers (the modes they started in carry no mass; our
+#: choice, about a 1e-4 density ratio).
+STRAGGLER_LOG_PROB = 10.0
+
+
+def _reset_stragglers(state, rng):
+    """Move walkers far below the ensemble's median log-posterior onto good walkers."""
+    coords = np.array(state.coords, dtype=float, copy=True)
+    lp = np.asarray(state.log_prob, dtype=float)
+    good = np.isfinite(lp) & (lp >= np.median(lp[np.isfinite(lp)]) - STRAGGLER_LOG_PROB)
+    bad = ~good
+    if not bad.any() or good.sum() < 2:
+        return state
+    donors = rng.choice(np.flatnonzero(good), size=int(bad.sum()))
+    coords[bad] = coords[donors]
+    new_lp = lp.copy()
+    new_lp[bad] = lp[donors]
+    return emcee.State(coords, log_prob=new_lp, random_state=state.random_state)
 
 
 def _independence_move(mean, cov):
@@ -449,6 +536,8 @@ def sample_posterior(
     n_steps: int,
     seed: int,
     progress: bool = False,
+    modes: np.ndarray | None = None,
+    mode_weights: np.ndarray | None = None,
 ) -> Posterior:
     """Sample the posterior of ``problem`` starting at its best fit (stage 4).
 
@@ -465,6 +554,10 @@ def sample_posterior(
         Seed of the sampler.
     progress : bool, optional
         Show the sampler's progress bar.
+    modes : ndarray, shape (q, p), optional
+        Other optima to start walkers in (problem's free parameters).
+    mode_weights : ndarray, shape (q + 1,), optional
+        Relative weights of ``theta_best`` and ``modes``.
 
     Returns
     -------
@@ -494,6 +587,8 @@ def sample_posterior(
             seed=seed,
             covariance=laplace_covariance(problem, u_best),
             progress=progress,
+            modes=None if modes is None or not np.size(modes) else problem.to_sampler(modes),
+            mode_weights=mode_weights,
         )
     except (ValueError, np.linalg.LinAlgError) as exc:
         raise FitError(

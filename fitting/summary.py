@@ -17,7 +17,7 @@ from importlib import metadata
 
 import numpy as np
 import pandas as pd
-from zoning.fitting.bestfit import CandidateFit
+from zoning.fitting.bestfit import PROCESS_PARAMETERS, CandidateFit
 from zoning.fitting.choice import ModelChoice
 from zoning.fitting.dense import predict_at
 from zoning.fitting.diagnostics import residual_runs, runs_test_z
@@ -34,7 +34,8 @@ from zoning.exceptions import (
 )
 from zoning.thermometry import THERMOMETERS
 
-__all__ = ["summarise_fit", "estimate_from_draws", "UNCONSTRAINED_FRACTION"]
+__all__ = ["summarise_fit", "estimate_from_draws", "UNCONSTRAINED_FRACTION",
+           "TRADE_OFF_CORRELATION", "trade_off_messages"]
 
 #: Fraction of the prior range above which a 95% band means "not constrained".
 UNCONSTRAINED_FRACTION = 0.75
@@ -45,6 +46,21 @@ N_CURVE_POINTS = 200
 
 _MAJOR_LABEL = {"olivine": "Fo", "plagioclase": "An"}
 _OXIDE_LABEL = {"mgo": "MgO", "feo": "FeO", "cao": "CaO", "na2o": "Na2O"}
+
+#: |posterior correlation| of retention with a process parameter from which,
+#: with retention not pinned down (band wider than
+#: :data:`TRADE_OFF_R_WIDTH`), r and the process are said to trade off (our
+#: choice).
+TRADE_OFF_CORRELATION = 0.4
+#: Width of the retention band [1] from which r counts as not pinned down for
+#: the trade-off statement (our choice: half of its range).
+TRADE_OFF_R_WIDTH = 0.5
+#: A process parameter whose draws are piled within this share of its range
+#: at 0 for some of the draws and away from 0 for others, while r differs
+#: between the two groups by :data:`TRADE_OFF_R_SPLIT`, is read as a second
+#: mode (bimodality between "process" and "no process").
+TRADE_OFF_SPLIT_SHARE = 0.05
+TRADE_OFF_R_SPLIT = 0.25
 
 #: F_rim / F_max (largest F the melt can give as the one mineral) from which
 #: a fit is said to drive the melt towards exhaustion (our choice).
@@ -62,6 +78,19 @@ def _versions() -> dict[str, str]:
         except metadata.PackageNotFoundError:
             out[dist] = "unknown"
     return out
+
+
+#: Quantities whose prior bounds are physical states the data may not tell
+#: from values close to them, by bound ("lower", "upper"): a process absent
+#: (0), fractional (r = 0) and equilibrium (r = 1) crystallization. The 95%
+#: band of such a quantity is made one-sided at the bound (an upper or lower
+#: limit) when the central band would stop closer to it than
+#: :data:`EDGE_SHARE` of its width: a band that stopped just short of the
+#: bound would read as evidence against it (our rule; in the calibration
+#: benchmark central bands missed r = 0 and r = 1 by a few hundredths).
+EDGE_PARAMETERS = {"section_h_over_r": ("lower",), "diffusion_length_um": ("lower",),
+                   "retention": ("lower", "upper")}
+EDGE_SHARE = 0.1
 
 
 def estimate_from_draws(name, unit, best, draws, lower, upper) -> Estimate:
@@ -84,6 +113,18 @@ def estimate_from_draws(name, unit, best, draws, lower, upper) -> Estimate:
         :data:`UNCONSTRAINED_FRACTION` of the prior range.
     """
     med, lo, hi, kind = credible_band(draws, lower, upper)
+    edges = EDGE_PARAMETERS.get(name, ())
+    if kind == "central" and np.isfinite(lo) and edges:
+        x = np.asarray(draws, dtype=float)
+        x = x[np.isfinite(x)]
+        near_lower = "lower" in edges and lo - lower < EDGE_SHARE * (hi - lo)
+        near_upper = "upper" in edges and upper - hi < EDGE_SHARE * (hi - lo)
+        if near_lower and near_upper:
+            lo, hi, kind = float(lower), float(upper), "bounds"
+        elif near_lower:
+            lo, hi, kind = float(lower), float(np.percentile(x, 95.0)), "upper_limit"
+        elif near_upper:
+            lo, hi, kind = float(np.percentile(x, 5.0)), float(upper), "lower_limit"
     constrained = bool((hi - lo) <= UNCONSTRAINED_FRACTION * (upper - lower))
     note = ""
     if not constrained:
@@ -162,7 +203,8 @@ def _estimates(prob: FitProblem, theta_best, flat, rng) -> dict[str, Estimate]:
             name, specs[name].unit, theta_best[j], flat[:, j], lower[j], hi_j
         )
     for name, value in prob.fixed.items():
-        if name in (ratio_name, "f_rim", "retention", "kd"):
+        if name in (ratio_name, "f_rim", "retention", "kd", "section_h_over_r",
+                    "diffusion_length_um"):
             estimates[name] = Estimate(
                 name=name, unit=specs[name].unit, best=value, median=value, lo95=value,
                 hi95=value, lower=float(specs[name].lower), upper=float(specs[name].upper),
@@ -203,6 +245,133 @@ def _estimates(prob: FitProblem, theta_best, flat, rng) -> dict[str, Estimate]:
             + ("" if ratio_est.constrained else "; not constrained by these data"),
         )
     return estimates
+
+
+_TRADE_OFF_TEXT = {
+    "diffusion_length_um": (
+        "r and the diffusion length trade off: the rim could be relaxed by diffusion after "
+        "growth (lower r, longer L) or grown near equilibrium (higher r, little diffusion), "
+        "and these data cannot tell which, so the r band spans both; a NiO profile or a "
+        "slower-diffusing element (e.g. Ca or P in olivine), or a known diffusion length "
+        "(--diffusion-length-um), would tell them apart."
+    ),
+    "section_h_over_r": (
+        "r and the section offset trade off: the profile could be flattened by a cut far "
+        "from the crystal's centre (lower r, larger h/R) or grown near equilibrium (higher "
+        "r, central cut), and these data cannot tell which, so the r band spans both; a "
+        "traverse through the crystal's core (a visible core feature; then "
+        "--section-h-over-r 0) or a trace-element profile would tell them apart."
+    ),
+}
+
+
+def trade_off_messages(names: Sequence[str], flat: np.ndarray, lower: np.ndarray,
+                       upper: np.ndarray) -> list[str]:
+    """Plain sentences when retention trades off with a process parameter.
+
+    Read from the posterior draws alone: retention is not pinned down (95%
+    band wider than :data:`TRADE_OFF_R_WIDTH`) and either its correlation
+    with the process parameter reaches :data:`TRADE_OFF_CORRELATION`, or the
+    draws split into a group with the process at about 0 and a group with
+    it clearly on whose retention differs by :data:`TRADE_OFF_R_SPLIT`
+    (two modes).
+
+    Parameters
+    ----------
+    names : sequence of str
+        Free parameter names (columns of ``flat``).
+    flat : ndarray, shape (k, p)
+        Posterior draws.
+    lower, upper : ndarray, shape (p,)
+        Prior bounds.
+
+    Returns
+    -------
+    list of str
+    """
+    names = list(names)
+    if "retention" not in names or flat.shape[0] < 10:
+        return []
+    r = flat[:, names.index("retention")]
+    lo, hi = np.percentile(r, [2.5, 97.5])
+    if not hi - lo > TRADE_OFF_R_WIDTH:
+        return []
+    out = []
+    for name, text in _TRADE_OFF_TEXT.items():
+        if name not in names:
+            continue
+        j = names.index(name)
+        x = flat[:, j]
+        span = upper[j] - lower[j]
+        if not span > 0 or np.std(x) == 0:
+            continue
+        with np.errstate(all="ignore"):
+            rho = float(np.corrcoef(r, x)[0, 1])
+        near = x <= lower[j] + TRADE_OFF_SPLIT_SHARE * span
+        split = False
+        if 0.1 <= near.mean() <= 0.9:
+            split = abs(float(np.median(r[near]) - np.median(r[~near]))) >= TRADE_OFF_R_SPLIT
+        if (np.isfinite(rho) and abs(rho) >= TRADE_OFF_CORRELATION) or split:
+            out.append(text)
+    return out
+
+
+def _diffusion_time(prob: FitProblem, theta_best, flat, estimates) -> tuple[Estimate | None,
+                                                                              str]:
+    """Diffusion time [days] from the diffusion length and the temperature, with a note."""
+    from zoning.diffusion import diffusion_time_days
+
+    est = estimates.get("diffusion_length_um")
+    temp = float(prob.options.get("temperature_c", float("nan")))
+    if est is None or not np.isfinite(temp) or (
+            "diffusion_length_um" not in prob.free and not est.best > 0):
+        return None, ""
+    # Rim composition of the best fit (the rim is held at its grown value).
+    out = prob.predict(prob.params(theta_best[None, :]), np.array([prob.radius_um]))
+    rim = float(np.ravel(out.get("crystal_grown", out["crystal"]))[-1])
+    dq = float(prob.options.get("delta_qfm", float("nan")))
+    note = ""
+    kwargs = {"mineral": prob.mineral}
+    if prob.mineral == "olivine":
+        if not np.isfinite(dq):
+            dq = 0.0
+            note = ("diffusion time computed at fO2 = QFM (give --delta-qfm for another "
+                    "oxygen fugacity) and for a traverse of unknown crystallographic "
+                    "direction (average over directions; along c the time is 0.44 times, "
+                    "along a or b 2.67 times the value given).")
+        else:
+            note = ("diffusion time for a traverse of unknown crystallographic direction "
+                    "(average over directions; along c the time is 0.44 times, along a or b "
+                    "2.67 times the value given).")
+        kwargs.update(delta_qfm=dq, x_fe=float(np.clip(1.0 - 0.01 * rim, 0.0, 1.0)))
+    else:
+        kwargs.update(x_an=float(np.clip(0.01 * rim, 0.0, 1.0)))
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        if "diffusion_length_um" in prob.free:
+            j = prob.free.index("diffusion_length_um")
+            draws = diffusion_time_days(flat[:, j], temp, **kwargs)
+            best = diffusion_time_days(float(theta_best[j]), temp, **kwargs)
+            top = diffusion_time_days(float(prob.upper[j]), temp, **kwargs)
+        else:
+            best = top = diffusion_time_days(est.best, temp, **kwargs)
+            draws = None
+    if not np.isfinite(best):
+        return None, ""
+    if draws is None:
+        return Estimate(name="diffusion_time_days", unit="days", best=best, median=best,
+                        lo95=best, hi95=best, lower=0.0, upper=best, constrained=True,
+                        note=f"diffusion_time_days from the fixed diffusion length at "
+                        f"{temp:g} °C", best_fit=best), note
+    # t = L^2 / D is monotone in L: the band is the band of L transformed,
+    # and one-sided exactly when that of L is.
+    med, lo, hi, _kind = credible_band(draws, 0.0, top)
+    return Estimate(
+        name="diffusion_time_days", unit="days", best=med, median=med, lo95=lo, hi95=hi,
+        lower=0.0, upper=float(top), constrained=est.constrained,
+        note=("diffusion_time_days not constrained by these data (diffusion length "
+              "not constrained)" if not est.constrained else ""), best_fit=float(best),
+    ), note
 
 
 def _curves(prob: FitProblem, best, frac, eq, draws):
@@ -280,6 +449,8 @@ def _curves(prob: FitProblem, best, frac, eq, draws):
         "fractional": row(out_frac, "crystal")[0],
         "equilibrium": row(out_eq, "crystal")[0],
     }
+    if "crystal_grown" in out_best:  # the grown profile before diffusion after growth
+        curve["best_grown"] = row(out_best, "crystal_grown")[0][n_spot:]
     for t in prob.traces:
         tb = row(out_best, t.key)[0]
         tband = np.nanpercentile(row(out_draw, t.key, m_draw), [2.5, 97.5], axis=0)
@@ -415,6 +586,13 @@ def summarise_fit(
 
     rng = np.random.default_rng(seed + 1)
     estimates = _estimates(prob, theta_best, flat, rng)
+    days, days_note = _diffusion_time(prob, theta_best, flat, estimates)
+    if days is not None:
+        estimates["diffusion_time_days"] = days
+    trade_offs = trade_off_messages(prob.free, flat, prob.lower, prob.upper)
+    for text in trade_offs:
+        warn_list.append(text)
+        emit.append((DataQualityWarning, text))
 
     with np.errstate(all="ignore"):
         corr = np.corrcoef(flat, rowvar=False) if flat.shape[1] > 1 else np.ones((1, 1))
@@ -504,6 +682,8 @@ def summarise_fit(
         warn_list.append(exhausted)
         emit.append((DataQualityWarning, exhausted))
     warn_list.extend(problem.notes)
+    if days_note:
+        warn_list.append(days_note)
 
     diagnostics = {
         "acceptance_fraction": chain.acceptance_fraction,
@@ -541,6 +721,9 @@ def summarise_fit(
         "include_flagged": bool(include_flagged),
         "robust": bool(prob.robust),
         "temperature_c": opts.get("temperature_c", float("nan")),
+        "section_h_over_r": opts.get("section_h_over_r", 0.0),
+        "diffusion_length_um": opts.get("diffusion_length_um", 0.0),
+        "delta_qfm": opts.get("delta_qfm", float("nan")),
         "thermometer": prob.model.thermometer,
         # spot-dense traverses: model positions interpolated to the spots (0: every spot)
         "model_nodes": int(opts.get("model_nodes", 0)),
@@ -574,7 +757,9 @@ def summarise_fit(
         settings=settings,
         versions=_versions(),
         seed=int(seed),
-        methods=prob.model.methods() + fit_methods(
+        methods=prob.model.methods(processes=tuple(
+            p for p, n in PROCESS_PARAMETERS.items() if n in prob.free
+            or float(prob.fixed.get(n, 0.0)) > 0)) + fit_methods(
             problem.mineral, kd_mean=prob.kd0, kd_sd=prob.kd_sd,
             kd_default=bool(opts.get("kd_default", True)),
             fe3_fraction=opts.get("fe3_fraction", float("nan")),

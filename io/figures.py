@@ -718,13 +718,20 @@ def _profile_main(ax, result) -> None:
     if "equilibrium" in curve:
         ax.plot(d, curve["equilibrium"], color=PALETTE["green"], ls=":", lw=1.5,
                 label="pure equilibrium (r = 1)", zorder=2)
+    grown = "best_grown" in curve and bool(np.any(
+        np.abs(curve["best_grown"].to_numpy(float) - curve["best"].to_numpy(float)) > 0))
+    if grown:  # diffusion after growth fitted: the profile as grown, before relaxing
+        ax.plot(d, curve["best_grown"], color=PALETTE["blue"], ls="-.", lw=1.1,
+                label="best fit as grown (before diffusion)", zorder=3)
     if "best" in curve:
-        ax.plot(d, curve["best"], color=PALETTE["blue"], lw=1.8, label="best fit", zorder=3)
+        ax.plot(d, curve["best"], color=PALETTE["blue"], lw=1.8,
+                label="best fit (relaxed)" if grown else "best fit", zorder=3)
     _draw_spots(ax, spots, "distance_um", "observed", "sigma", PALETTE["black"],
                 sides=_sides(result, spots))
     _zoom_to_used(ax, spots, "observed", "sigma",
                   [curve[c].to_numpy(float) for c in ("best", "lo95", "hi95", "fractional",
-                                                      "equilibrium") if c in curve])
+                                                      "equilibrium", "best_grown")
+                   if c in curve])
     ax.set_ylabel(_major_label(result.mineral))
     ax.set_xlabel("Distance from core [µm]")
 

@@ -968,6 +968,15 @@ def _traverse_data_quality(ctx):
     text = (f"{r.n_spots} spots read, {r.n_used} used in the fit, {r.n_spots - r.n_used} left "
             f"out; {n_flag} flagged by the checks of the reader.")
     blocks = [Paragraph(text)]
+    t = getattr(r, "traverse", None)
+    if t is not None:
+        trust = {"confirmed": "given by the user",
+                 "high": "decided from the file, independent lines of evidence agree",
+                 "low": "decided from the file on one line of evidence: confirm it if you can"}
+        basis = f" Evidence: {t.orientation_basis}." if t.orientation_basis else ""
+        blocks.append(Paragraph(
+            f"Orientation {t.orientation}, core at {t.core_position_um:g} µm on the traverse "
+            f"line ({trust.get(t.orientation_confidence, t.orientation_confidence)}).{basis}"))
     if rows:
         blocks.append(Table(("row", "point", "distance [µm]", "status", "reason"),
                             tuple(map(tuple, rows)), (0.07, 0.08, 0.12, 0.1, 0.63)))

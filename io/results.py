@@ -51,6 +51,9 @@ SUMMARY_QUANTITIES = (
     "kd",
     "melt_mgo_wt",
     "melt_cao_wt",
+    "section_h_over_r",
+    "diffusion_length_um",
+    "diffusion_time_days",
 )
 
 #: Columns of the summary table after the quantities, in order.
@@ -61,10 +64,10 @@ _OXIDE = {"olivine": "melt_mgo_wt", "plagioclase": "melt_cao_wt"}
 
 #: Plain statement of the model assumptions printed with every report.
 CAUTIONS = (
-    "Assumes each zone grew in surface equilibrium with the melt and that the "
-    "zoning has not changed since; later diffusion smooths zoning, off-centre "
-    "sections distort distances, and every number depends on the chosen Kd and "
-    "reference melt."
+    "Assumes each zone grew in surface equilibrium with the melt. An off-centre section and "
+    "diffusion after growth (olivine; plagioclase only through MgO/SrO) are fitted as "
+    "processes unless fixed, and trade off with r when the data cannot tell them apart; "
+    "every number depends on the chosen Kd and reference melt."
 )
 
 _LABELS = {
@@ -82,6 +85,9 @@ _LABELS = {
     "melt0_sr_ppm": "initial melt Sr",
     "melt0_mgo_wt": "initial melt MgO (trace)",
     "temperature_c": "parent temperature",
+    "section_h_over_r": "section offset h/R",
+    "diffusion_length_um": "diffusion length",
+    "diffusion_time_days": "diffusion time",
 }
 
 

@@ -23,3 +23,11 @@ ATOL_DIFFUSION_STEP = 5e-3
 ATOL_DIFFUSION_FO = 0.02
 #: Finite-volume sums conserved by the implicit steps (solver round-off).
 ATOL_CONSERVED = 1e-12
+
+# --- fit settings shared by tests --------------------------------------------
+#: Fit settings of tests that do not test the processes after growth: the
+#: section offset and the diffusion length fixed at 0 (growth only), which
+#: keeps those tests as fast as before the processes were fitted.
+GROWTH_ONLY = {"section_h_over_r": 0.0, "diffusion_length_um": 0.0}
+#: The same for the command line.
+GROWTH_ONLY_ARGS = ["--section-h-over-r", "0", "--diffusion-length-um", "0"]

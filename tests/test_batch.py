@@ -26,7 +26,8 @@ from zoning.exceptions import ProjectError
 from zoning.workflow import read_project, run_batch
 
 FERROLYN = DEMO_DIR / "ferrolyn"
-FAST = "walkers = 8\nsteps = 100\nfigures = false\nreport = false\n"
+FAST = ("walkers = 8\nsteps = 100\nfigures = false\nreport = false\n"
+        "section_h_over_r = 0\ndiffusion_length_um = 0\n")
 
 
 def _small_export(path: Path, n: int = 12, *, rim: bool = False) -> Path:

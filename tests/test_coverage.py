@@ -9,6 +9,7 @@ import warnings
 import numpy as np
 import pandas as pd
 import pytest
+from _tolerances import GROWTH_ONLY
 from zoning.fitting import fit_traverse
 
 from zoning.models import CrystallizationModel
@@ -59,7 +60,7 @@ def _coverage(n_cases, seed, **fit_kw):
         tr, truth = _case(k, seed)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")  # short chains warn by design
-            r = fit_traverse(tr, melt=MELT[tr.mineral], seed=k, **fit_kw)
+            r = fit_traverse(tr, melt=MELT[tr.mineral], seed=k, **{**GROWTH_ONLY, **fit_kw})
         for q, name in (("ratio", RATIO[tr.mineral]), ("f_rim", "f_rim"),
                         ("retention", "retention"), ("kd", "kd")):
             e = r.estimates[name]

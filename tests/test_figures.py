@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 import pytest
 from _layout import layout_problems, legend_texts
-from _tolerances import RTOL_IDENTITY
+from _tolerances import GROWTH_ONLY, RTOL_IDENTITY
 from matplotlib.collections import PolyCollection
 from matplotlib.figure import Figure
 from zoning.demo_data import DEMO_DIR
@@ -30,7 +30,8 @@ def _fit(name, mineral, melt, temperature_c=None, **kw):
         # numpy 'invalid value' from the fit's start grid on NaN model rows; the
         # figures and reports under test are not affected.
         warnings.simplefilter("ignore", RuntimeWarning)
-        return fit_traverse(traverse, melt=melt, n_walkers=16, n_steps=150, seed=2, **fit_kw)
+        return fit_traverse(traverse, melt=melt, n_walkers=16, n_steps=150, seed=2, **fit_kw,
+                            **GROWTH_ONLY)
 
 
 @pytest.fixture(scope="module")

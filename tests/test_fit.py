@@ -5,7 +5,7 @@ import warnings
 import numpy as np
 import pandas as pd
 import pytest
-from _tolerances import RTOL_IDENTITY
+from _tolerances import GROWTH_ONLY, RTOL_IDENTITY
 from zoning.fitting import FitResult, fit_traverse
 
 from zoning.exceptions import (
@@ -57,7 +57,7 @@ def _fit(traverse, **kw):
         # separately below.
         warnings.simplefilter("ignore", ConvergenceWarning)
         warnings.simplefilter("ignore", CalibrationRangeWarning)
-        return fit_traverse(traverse, **kw)
+        return fit_traverse(traverse, **{**GROWTH_ONLY, **kw})
 
 
 def _inside(result: FitResult, name, value):
@@ -214,7 +214,7 @@ def test_reversed_profile_is_reported_not_fitted_with_confidence():
     tr = Traverse("FRL-09", "FRL-09.csv", "olivine", spots)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        r = fit_traverse(tr, melt=MELT_OL, seed=5, n_steps=300)
+        r = fit_traverse(tr, melt=MELT_OL, seed=5, n_steps=300, **GROWTH_ONLY)
     assert any(
         issubclass(w.category, DataQualityWarning)
         and "back towards the core composition" in str(w.message)
@@ -269,7 +269,7 @@ def test_short_chain_warns_with_a_remedy():
     tr = synthetic("olivine", truth, melt=MELT_OL, n=20, seed=8)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        r = fit_traverse(tr, melt=MELT_OL, seed=0, n_walkers=12, n_steps=100)
+        r = fit_traverse(tr, melt=MELT_OL, seed=0, n_walkers=12, n_steps=100, **GROWTH_ONLY)
     assert any(
         issubclass(w.category, ConvergenceWarning) and "run longer: --steps" in str(w.message)
         for w in caught
@@ -305,7 +305,8 @@ def test_uninformed_direction_is_sampled_across_its_prior_not_pinned():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         traverse = read_traverses(path, mineral="olivine", orientation="core-to-rim")[0]
-        result = fit_traverse(traverse, melt={"FeO": 10.4}, n_walkers=16, n_steps=300, seed=7)
+        result = fit_traverse(traverse, melt={"FeO": 10.4}, n_walkers=16, n_steps=300, seed=7,
+                              **GROWTH_ONLY)
     r = result.estimates["retention"]
     assert r.hi95 - r.lo95 > 0.75
     assert not r.constrained

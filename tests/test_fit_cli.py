@@ -67,6 +67,14 @@ def test_zoning_fit_writes_summary_fit_json_and_profile(export, tmp_path, capsys
     row = summary.iloc[0]
     assert row["mineral"] == "olivine" and row["n_used"] == 40
     assert row["melt_mg_number_lo95"] <= 0.72 <= row["melt_mg_number_hi95"]
+    # Processes after growth are fitted by default (olivine): their columns are
+    # filled; the crystal grew without them, so both bands reach 0.
+    for q in ("section_h_over_r", "diffusion_length_um"):
+        assert {q, f"{q}_lo95", f"{q}_hi95", f"{q}_constrained"} <= set(summary.columns)
+        assert row[f"{q}_lo95"] == 0.0
+    # no --temperature-c: the length alone, no time column
+    assert "diffusion_time_days" not in summary.columns
+    assert row["preferred_model"].startswith(("growth", "no clear preference"))
     folder = out / safe_name(summary.loc[0, "sample"])
     data = json.loads((folder / "fit.json").read_text(encoding="utf-8"))
     assert data["seed"] == 3 and data["settings"]["melt"] == {"FeO": 9.5}
@@ -94,6 +102,10 @@ def test_zoning_fit_writes_summary_fit_json_and_profile(export, tmp_path, capsys
         ([], "no reference melt given"),
         (["--melt", "FeO=9.5", "--range", "50:10"], "--range expects A:B"),
         (["--melt", "FeO=9.5", "--free", "viscosity"], "cannot free"),
+        (["--melt", "FeO=9.5", "--section-h-over-r", "half"],
+         "--section-h-over-r expects 'free' or a number"),
+        (["--melt", "FeO=9.5", "--section-h-over-r", "1.2"], "must be in [0, 1)"),
+        (["--melt", "FeO=9.5", "--diffusion-length-um", "-3"], "diffusion length >= 0"),
     ],
 )
 def test_bad_options_give_one_clear_line_and_exit_code_2(export, tmp_path, capsys, argv, message):

@@ -10,6 +10,7 @@ import warnings
 import numpy as np
 import pandas as pd
 import pytest
+from _tolerances import GROWTH_ONLY
 from zoning.fitting import fit_traverse
 from zoning.fitting.bestfit import fit_candidates
 from zoning.fitting.choice import choose_model
@@ -44,7 +45,8 @@ def _traverse(mineral, truth, *, sigma, n=60, radius=300.0, seed=0, name="FRL-31
 
 
 def _choice(traverse, **kw):
-    problem = prepare_problem(traverse, melt=MELT[traverse.mineral], traces=(), **kw)
+    problem = prepare_problem(traverse, melt=MELT[traverse.mineral], traces=(),
+                              **{**GROWTH_ONLY, **kw})
     return choose_model(problem, fit_candidates(problem))
 
 
@@ -105,7 +107,8 @@ def plagioclase_fit():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", ConvergenceWarning)
         warnings.simplefilter("ignore", CalibrationRangeWarning)
-        return fit_traverse(tr, melt=MELT["plagioclase"], seed=1, n_steps=400), truth
+        return fit_traverse(tr, melt=MELT["plagioclase"], seed=1, n_steps=400,
+                            **GROWTH_ONLY), truth
 
 
 def test_every_reported_value_lies_inside_its_band_and_the_best_fit_is_kept(plagioclase_fit):
@@ -127,7 +130,7 @@ def test_posterior_draws_all_lie_in_the_prior(plagioclase_fit):
 def test_parent_melt_of_rows_outside_the_prior_is_nan_not_an_error():
     truth = {"melt_ca_number": 0.62, "f_rim": 0.45, "retention": 0.3, "kd": 2.0}
     tr = _traverse("plagioclase", truth, sigma=0.5, seed=5, name="FRL-33")
-    problem = prepare_problem(tr, melt=MELT["plagioclase"], traces=())
+    problem = prepare_problem(tr, melt=MELT["plagioclase"], traces=(), **GROWTH_ONLY)
     inside = np.array([0.62, 0.45, 0.3, 2.0])
     rows = np.vstack([inside, inside, inside])
     rows[1, 0] = 0.995   # melt Ca# beyond its range
@@ -162,7 +165,8 @@ def test_fit_that_drains_the_melt_warns_and_names_the_missing_minerals():
     tr = _traverse("olivine", truth, sigma=0.2, seed=7, name="FRL-34")
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        r = fit_traverse(tr, melt=MELT["olivine"], traces=(), seed=1, n_steps=300)
+        r = fit_traverse(tr, melt=MELT["olivine"], traces=(), seed=1, n_steps=300,
+                         **GROWTH_ONLY)
     texts = [str(w.message) for w in caught if issubclass(w.category, DataQualityWarning)]
     assert any("exhaustion" in t and "not modelled" in t for t in texts)
     assert any("exhaustion" in t for t in r.warnings)
@@ -175,5 +179,6 @@ def test_ordinary_fit_does_not_warn_of_exhaustion():
         warnings.simplefilter("ignore", ConvergenceWarning)
         # the glass thermometer may warn of its calibration range: not the point here
         warnings.simplefilter("ignore", CalibrationRangeWarning)
-        r = fit_traverse(tr, melt=MELT["olivine"], traces=(), seed=1, n_steps=300)
+        r = fit_traverse(tr, melt=MELT["olivine"], traces=(), seed=1, n_steps=300,
+                         **GROWTH_ONLY)
     assert not any("exhaustion" in t for t in r.warnings)

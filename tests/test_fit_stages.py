@@ -29,7 +29,7 @@ from zoning.models import CrystallizationModel
 from zoning.traverse import Traverse
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from _tolerances import RTOL_IDENTITY  # noqa: E402
+from _tolerances import GROWTH_ONLY, RTOL_IDENTITY  # noqa: E402
 
 MELT = {"FeO": 9.5}
 TRUTH = dict(melt_mg_number=0.72, f_rim=0.12, retention=0.0, kd=0.30, melt0_ni_ppm=300.0)
@@ -53,7 +53,7 @@ def _traverse(*, n=30, seed=3, shift_outer=0.0, name="FRL-21"):
 
 @pytest.fixture(scope="module")
 def problem():
-    return prepare_problem(_traverse(), melt=MELT)
+    return prepare_problem(_traverse(), melt=MELT, **GROWTH_ONLY)
 
 
 @pytest.fixture(scope="module")
@@ -178,7 +178,7 @@ def test_close_models_give_no_clear_preference(problem, fits):
 
 def test_reversal_voids_the_preferred_model():
     tr = _traverse(shift_outer=3.0, name="FRL-22")
-    prob = prepare_problem(tr, melt=MELT)
+    prob = prepare_problem(tr, melt=MELT, **GROWTH_ONLY)
     choice = choose_model(prob, fit_candidates(prob))
     assert len(choice.reversals) == 1
     assert choice.preferred_model == ""

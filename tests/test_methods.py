@@ -6,6 +6,7 @@ import warnings
 import numpy as np
 import pandas as pd
 import pytest
+from _tolerances import GROWTH_ONLY
 from zoning.fitting import fit_traverse
 from zoning.fitting.methods import fit_methods
 from zoning.io.results import fit_to_dict, write_fit_json
@@ -85,7 +86,7 @@ def _fit(traverse, **kw):
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         result = fit_traverse(traverse, melt={"FeO": 9.5}, n_walkers=16, n_steps=120, seed=3,
-                              traces=(), **kw)
+                              traces=(), **{**GROWTH_ONLY, **kw})
     calib = [w for w in caught if issubclass(w.category, CalibrationRangeWarning)]
     # Short test chains and noise-free data (residual runs) warn too, on purpose.
     allowed = (CalibrationRangeWarning, ConvergenceWarning, DataQualityWarning)

@@ -7,6 +7,7 @@ import warnings
 
 import _joint_synthetic as js
 import pytest
+from _tolerances import GROWTH_ONLY
 from pypdf import PdfReader
 from zoning.demo_data import DEMO_DIR
 from zoning.fitting import fit_sample, fit_traverse
@@ -46,14 +47,14 @@ def _quiet_fit(func, *args, **kw):
 def plag():
     traverse = read_traverses(FERROLYN / "FRL-12_pl1.xlsx", mineral="plagioclase")[0]
     return _quiet_fit(fit_traverse, traverse, melt={"Na2O": 3.1}, kd=2.0, kd_sd=0.3,
-                      n_walkers=16, n_steps=150, seed=5)
+                      n_walkers=16, n_steps=150, seed=5, **GROWTH_ONLY)
 
 
 @pytest.fixture(scope="module")
 def olivine():
     traverse = read_traverses(FERROLYN / "FRL-07_ol1.csv", mineral="olivine")[0]
     return _quiet_fit(fit_traverse, traverse, melt={"FeO": 9.8}, n_walkers=16, n_steps=120,
-                      seed=3)
+                      seed=3, **GROWTH_ONLY)
 
 
 @pytest.fixture(scope="module")
@@ -118,6 +119,9 @@ def test_report_states_data_quality_warnings_and_cautions(olivine, olivine_pdf):
         assert reason in text
     for caution in CAUTIONS:
         assert caution in text
+    # How the orientation was decided travels with the numbers.
+    t = olivine.traverse
+    assert f"Orientation {t.orientation}, core at {t.core_position_um:g} µm" in text
     # The thermometer's calibration warning of this fit reaches the report.
     calib = [w for w in olivine.warnings if "calibration range" in w]
     assert calib and "approximate calibration range of the Helz & Thornber (1987)" in text

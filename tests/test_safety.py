@@ -35,7 +35,8 @@ from zoning.cli import main
 from zoning.exceptions import OutputLockedError, OutputRefusedError
 from zoning.workflow import read_project, run_batch
 
-FOLDER_FAST = ["--mineral", "olivine", "--melt", "FeO=9.8", "--walkers", "8", "--steps", "100",
+FOLDER_FAST = ["--mineral", "olivine", "--melt", "FeO=9.8", "--section-h-over-r", "0",
+               "--diffusion-length-um", "0", "--walkers", "8", "--steps", "100",
                "--no-figures", "--no-report", "--quiet"]
 
 #: Seconds after which no process of a stopped batch may be alive (the promise is 10 s).

@@ -124,6 +124,17 @@ def _as_str(key: str, value: Any) -> str:
     return value
 
 
+def _as_process(key: str, value: Any) -> str | float:
+    if isinstance(value, str) and value.strip().lower() == "free":
+        return "free"
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise TypeError('"free" or a number, e.g. ' + key + ' = 0')
+    out = float(value)
+    if not math.isfinite(out) or out < 0:
+        raise TypeError('"free" or a number >= 0, e.g. ' + key + ' = 0')
+    return out
+
+
 def _as_mineral(key: str, value: Any) -> str:
     if not isinstance(value, str) or value.lower() not in MINERALS:
         raise TypeError(f"one of {', '.join(repr(m) for m in MINERALS)}")
@@ -250,6 +261,9 @@ FIT_OPTIONS: dict[str, tuple[str, Callable[[str, Any], Any]]] = {
     "walkers": ("n_walkers", _as_int),
     "steps": ("n_steps", _as_int),
     "thermometer": ("thermometer", _as_str),
+    "section_h_over_r": ("section_h_over_r", _as_process),
+    "diffusion_length_um": ("diffusion_length_um", _as_process),
+    "delta_qfm": ("delta_qfm", _as_float),
 }
 
 #: Project-file option -> (:func:`zoning.io.read_traverses` keyword, converter).
@@ -1277,6 +1291,9 @@ def _fit_and_write_joint(job: SampleJob, build: Path):
     if job.traverse:
         traverses = [t for t in traverses if t.name == job.traverse] or traverses
     kw = dict(job.fit_options)
+    # Joint fits model growth only (no section offset, no diffusion after growth).
+    for key in ("section_h_over_r", "diffusion_length_um", "delta_qfm"):
+        kw.pop(key, None)
     if "n_walkers" in kw:
         kw["n_chains"] = kw.pop("n_walkers")
     if "n_steps" in kw:

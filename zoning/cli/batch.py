@@ -88,7 +88,17 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     g.add_argument("--free", metavar="NAMES",
                    help="extra free parameters, comma-separated")
     g.add_argument("--temperature-c", type=float,
-                   help="temperature [°C] of the plagioclase Sr/Mg partitioning laws")
+                   help="temperature [°C] of the plagioclase Sr/Mg partitioning laws and of "
+                        "diffusion after growth (converts the diffusion length into days)")
+    g.add_argument("--section-h-over-r", metavar="free|H",
+                   help="section offset h/R: 'free' (fitted; default) or a number, 0 for a cut "
+                        "through the core (project key section_h_over_r)")
+    g.add_argument("--diffusion-length-um", metavar="free|L",
+                   help="diffusion length after growth [µm]: 'free' (fitted; olivine default) "
+                        "or a number, 0 for none (project key diffusion_length_um)")
+    g.add_argument("--delta-qfm", type=float,
+                   help="log10 fO2 relative to QFM for the olivine Fe-Mg diffusion time "
+                        "(default 0)")
     g.add_argument("--walkers", type=int, help="sampler walkers")
     g.add_argument("--steps", type=int, help="sampler steps")
     g.add_argument("--seed", type=int, help="random seed")
@@ -112,7 +122,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 _FIT_ARGS = ("kd", "kd_sd", "fe3", "geometry", "range", "radius_um", "sigma",
              "robust", "include_flagged", "free", "temperature_c", "walkers", "steps",
-             "seed", "thermometer", "joint", "exclude", "joint_f_rim", "joint_retention")
+             "seed", "thermometer", "joint", "exclude", "joint_f_rim", "joint_retention",
+             "section_h_over_r", "diffusion_length_um", "delta_qfm")
 
 
 def options_from_args(args: argparse.Namespace) -> dict:
@@ -127,9 +138,12 @@ def options_from_args(args: argparse.Namespace) -> dict:
     dict
         Only the options actually given, with project-file names.
     """
-    from zoning.cli.fit import parse_melt
+    from zoning.cli.fit import parse_melt, parse_process
 
     opts = {k: getattr(args, k) for k in _FIT_ARGS if getattr(args, k, None) is not None}
+    for key in ("section_h_over_r", "diffusion_length_um"):
+        if key in opts:
+            opts[key] = parse_process("--" + key.replace("_", "-"), opts[key])
     opts.update(reading_options(args))
     if args.melt:
         opts["melt"] = parse_melt(args.melt)

@@ -17,7 +17,7 @@ from zoning.cli._figures import add_figure_options, figure_settings, list_graphi
 from zoning.cli._reading import add_reading_options, reading_options
 from zoning.exceptions import ZoningError
 
-__all__ = ["add_parser", "run", "parse_melt", "parse_range", "with_command"]
+__all__ = ["add_parser", "run", "parse_melt", "parse_range", "parse_process", "with_command"]
 
 
 def parse_melt(items: list[str] | None) -> dict[str, float]:
@@ -85,6 +85,38 @@ def parse_range(text: str | None) -> tuple[float, float] | None:
     return lo, hi
 
 
+def parse_process(option: str, text: str | None) -> str | float | None:
+    """Parse a process option: ``free`` or a number (``None`` when not given).
+
+    Parameters
+    ----------
+    option : str
+        The option, e.g. ``"--section-h-over-r"`` (for the message).
+    text : str or None
+        E.g. ``"free"`` or ``"0"``.
+
+    Returns
+    -------
+    "free", float or None
+
+    Raises
+    ------
+    ZoningError
+        When the text is neither.
+    """
+    if text is None:
+        return None
+    if text.strip().lower() == "free":
+        return "free"
+    try:
+        return float(text)
+    except ValueError:
+        raise ZoningError(
+            f"{option} expects 'free' or a number; got {text!r}. Give e.g. {option} free or "
+            f"{option} 0."
+        ) from None
+
+
 def with_command(result, args: argparse.Namespace):
     """Return ``result`` with the command line and its folder in its settings.
 
@@ -149,7 +181,19 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                         "(default helz_thornber_1987)")
     p.add_argument("--temperature-c", type=float,
                    help="temperature [°C] of the plagioclase Sr/Mg partitioning laws "
-                        "(SrO/MgO profiles are fitted only when it is given)")
+                        "(SrO/MgO profiles are fitted only when it is given) and of diffusion "
+                        "after growth (the diffusion length is then also given in days)")
+    p.add_argument("--section-h-over-r", metavar="free|H",
+                   help="distance of the section plane from the crystal centre over the "
+                        "radius: 'free' (fitted with the random-cut prior; default) or a "
+                        "number, 0 for a cut through the core")
+    p.add_argument("--diffusion-length-um", metavar="free|L",
+                   help="diffusion length sqrt(D t) after growth [µm]: 'free' (fitted; "
+                        "olivine default) or a number, 0 for none (plagioclase default: An "
+                        "is frozen)")
+    p.add_argument("--delta-qfm", type=float,
+                   help="log10 fO2 relative to QFM for the olivine Fe-Mg diffusivity of the "
+                        "diffusion time (default 0)")
     p.add_argument("--geometry", choices=("sphere", "cylinder", "slab"), default="sphere",
                    help="growth geometry (default sphere)")
     p.add_argument("--range", dest="distance_range", metavar="A:B",
@@ -244,7 +288,18 @@ def run(args: argparse.Namespace) -> int:
         free=_free(args.free), sigma=args.sigma, include_flagged=args.include_flagged,
         robust=args.robust, temperature_c=args.temperature_c, seed=args.seed,
     )
+    process = dict(
+        section_h_over_r=parse_process("--section-h-over-r", args.section_h_over_r),
+        diffusion_length_um=parse_process("--diffusion-length-um", args.diffusion_length_um),
+        delta_qfm=args.delta_qfm,
+    )
     if args.joint:
+        if any(v is not None for v in process.values()):
+            raise ZoningError(
+                "--section-h-over-r, --diffusion-length-um and --delta-qfm apply to single "
+                "fits; joint fits (--joint) model growth only. Drop them or fit without "
+                "--joint."
+            )
         return _run_joint(args, traverses, common, out_dir, sources, graphics)
     if args.exclude:
         raise ZoningError("--exclude applies to joint fits only; add --joint.")
@@ -264,6 +319,7 @@ def run(args: argparse.Namespace) -> int:
                 n_walkers=64 if args.walkers is None else args.walkers,
                 n_steps=args.steps,
                 thermometer=args.thermometer,
+                **process,
             )
         except FitError as exc:
             failed += 1
