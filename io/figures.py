@@ -281,10 +281,12 @@ def _new_figure(width: float, height: float) -> Figure:
 def _wrap(text: str, chars: int) -> str:
     """Wrap text on word boundaries (never cut); long words are kept whole."""
     text = str(text)
-    if chars <= 0 or len(text) <= chars:
+    if chars <= 0 or max(len(line) for line in text.split("\n")) <= chars:
         return text
-    return "\n".join(textwrap.wrap(text, max(chars, 12), break_long_words=False,
-                                    break_on_hyphens=False))
+    # Line breaks already in the text are kept; each line is wrapped alone.
+    return "\n".join("\n".join(textwrap.wrap(line, max(chars, 12), break_long_words=False,
+                                             break_on_hyphens=False)) or line
+                     for line in text.split("\n"))
 
 
 def _chars(width_in: float, pt: float) -> int:

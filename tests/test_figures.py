@@ -456,3 +456,8 @@ def test_batch_rerun_with_other_figure_formats_is_not_unchanged(tmp_path):
     assert {"profile.svg", "melt_path.svg", "posterior.svg"} <= names
     assert not names & {"profile.png", "profile.pdf"}  # the folder holds this run's set
     assert (out / "overview.svg").exists()
+
+
+def test_label_breaks_are_kept_when_labels_are_wrapped(olivine):
+    fig = figures.profile_figure(olivine, style="column")
+    assert fig.axes[-1].get_ylabel() == "residual\n[mol% Fo]"
