@@ -202,6 +202,16 @@ N_CURVE_DRAWS = 300
 #: when the crystals fall into two groups.
 MAJORITY = 2.0 / 3.0
 
+#: Stated in every joint result: the processes after growth that single fits
+#: can fit are held at zero here.
+PROCESS_NOTE = (
+    "joint fits model growth only: every crystal is taken as cut through its core "
+    "(section h/R = 0) and unrelaxed by diffusion after growth (L = 0). An off-centre cut "
+    "or diffusion biases r towards equilibrium and can make a crystal look like an "
+    "antecryst; fit doubtful crystals alone (zoning fit FILE without --joint) to test "
+    "both, and leave out (--exclude) those that need them."
+)
+
 #: Verdicts of a crystal.
 VERDICTS = ("consistent", "likely antecryst", "second melt", "excluded", "undecided")
 
@@ -348,6 +358,10 @@ class SampleFitResult:
         Every setting; versions of the libraries.
     seed : int
         Seed used.
+    methods : tuple of zoning.references.MethodUse
+        Every published method the result rests on (the forward model's laws,
+        the Kd prior, the consistency test, the sampler), for the report's
+        methods paragraph and reference list and ``fit.json``.
     """
 
     name: str
@@ -373,8 +387,10 @@ class SampleFitResult:
     settings: Mapping[str, Any] = field(default_factory=dict)
     versions: Mapping[str, str] = field(default_factory=dict)
     seed: int = 0
+    methods: tuple = ()
 
     def __post_init__(self):
+        object.__setattr__(self, "methods", tuple(self.methods))
         object.__setattr__(self, "samples", _readonly(self.samples))
         object.__setattr__(self, "correlation", _readonly(self.correlation))
         object.__setattr__(self, "crystals", tuple(self.crystals))
@@ -2062,6 +2078,7 @@ def fit_sample(
         )
     if robust:
         warn_list.append("robust (soft-L1) loss used: stray spots are down-weighted.")
+    warn_list.append(PROCESS_NOTE)
     for w in warn_list:
         if "does not share" in w or "two melts" in w or "do not share" in w:
             warnings.warn(f"sample {sample_name!r}: {w}", DataQualityWarning, stacklevel=2)
@@ -2112,7 +2129,14 @@ def fit_sample(
         "consistency_test": "leave-one-out likelihood ratio (Wilks 1938), sequential, "
                             f"Bonferroni alpha {ALPHA:g}",
         "sampler": "Metropolis-within-Gibbs, parallel crystal blocks + shear move",
+        "section_h_over_r": 0.0, "diffusion_length_um": 0.0,
     }
+    from zoning.fitting.methods import joint_methods
+
+    methods = model.methods() + joint_methods(
+        mineral, kd_mean=kd0, kd_sd=kd_sd_v, kd_default=kd is None,
+        fe3_fraction=float(fe3_fraction), fe3_source=melt_input.fe3_source,
+        sigma_scaled=any(owns[i].sigma_scale > 1.0 for i in main_members))
     return SampleFitResult(
         name=sample_name, mineral=mineral, crystals=tuple(crystal_fits), estimates=estimates,
         group_estimates=tuple(g.estimates for _m, g in groups), verdict=verdict,
@@ -2123,7 +2147,7 @@ def fit_sample(
         n_used=int(sum(crystals[i].y.size for i in main_members)),
         excluded=tuple(names[i] for i, x in enumerate(is_excluded) if x),
         diagnostics=diagnostics, warnings=tuple(warn_list), settings=settings_out,
-        versions=_versions(), seed=int(seed),
+        versions=_versions(), seed=int(seed), methods=methods,
     )
 
 

@@ -13,7 +13,7 @@ import math
 
 from zoning.references import MethodUse
 
-__all__ = ["fit_methods", "FE3_SOURCES"]
+__all__ = ["fit_methods", "joint_methods", "FE3_SOURCES"]
 
 #: How the melt Fe3+/FeT of a fit was obtained, in words.
 FE3_SOURCES = {
@@ -99,4 +99,58 @@ def fit_methods(
         uses.append(MethodUse("uncertainty scaling", "birge_1932",
                               f"every sigma multiplied by the Birge ratio {sigma_scale:.2f} "
                               "before sampling"))
+    return tuple(uses)
+
+
+def joint_methods(
+    mineral: str,
+    *,
+    kd_mean: float,
+    kd_sd: float,
+    kd_default: bool,
+    fe3_fraction: float = math.nan,
+    fe3_source: str = "given",
+    sigma_scaled: bool = False,
+) -> tuple[MethodUse, ...]:
+    """List the published methods of a joint fit of the crystals of a sample.
+
+    The same melt Fe3+/FeT and Kd prior records as :func:`fit_methods`
+    (the Kd prior enters the sample's posterior once), then the joint
+    inversion's own steps (:mod:`zoning.fitting.joint`): bounded least
+    squares, the leave-one-out likelihood-ratio test of every crystal with
+    sequential outlier testing, and the Metropolis-within-Gibbs sampler with
+    its adaptation and convergence check.
+
+    Parameters
+    ----------
+    mineral, kd_mean, kd_sd, kd_default, fe3_fraction, fe3_source
+        As for :func:`fit_methods`.
+    sigma_scaled : bool, optional
+        Whether any crystal's sigmas were scaled by its Birge ratio.
+
+    Returns
+    -------
+    tuple of MethodUse
+    """
+    base = fit_methods(mineral, kd_mean=kd_mean, kd_sd=kd_sd, kd_default=kd_default,
+                       fe3_fraction=fe3_fraction, fe3_source=fe3_source, sampled=False)
+    uses = [u for u in base if u.role in ("melt Fe3+/FeT", "exchange coefficient prior")]
+    uses += [
+        MethodUse("best fit", "", "multi-start bounded least squares of all crystals "
+                  "together (scipy least_squares), started from each crystal's own fit"),
+        MethodUse("consistency of the crystals with one melt", "wilks_1938",
+                  "leave-one-out likelihood-ratio test of each crystal against the others"),
+        MethodUse("consistency of the crystals with one melt", "rosner_1983",
+                  "sequential outlier testing with a Bonferroni-corrected level"),
+        MethodUse("posterior sampling", "metropolis_1953",
+                  "Metropolis-within-Gibbs with one block per crystal and a shared block"),
+        MethodUse("posterior sampling", "roberts_rosenthal_2009",
+                  "step sizes adapted during burn-in only"),
+        MethodUse("convergence of the chains", "vehtari_2021",
+                  "rank-normalised split R-hat and effective sample size"),
+    ]
+    if sigma_scaled:
+        uses.append(MethodUse("uncertainty scaling", "birge_1932",
+                              "the sigmas of a crystal the model does not fit within its "
+                              "stated uncertainties multiplied by its Birge ratio"))
     return tuple(uses)

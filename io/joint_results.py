@@ -48,7 +48,8 @@ JOINT_CAUTION = (
     "recorded core is not excluded. The antecryst test compares each crystal with the "
     "others; crystals that disagree are left out of the shared answer, and a sample "
     "whose crystals fall into two groups without a two-thirds majority is given no "
-    "single answer."
+    "single answer. Unlike single fits, joint fits do not fit an off-centre section or "
+    "diffusion after growth: each crystal is taken as cut through its core and unrelaxed."
 )
 
 _RATIO = {"olivine": "melt_mg_number", "plagioclase": "melt_ca_number"}
@@ -188,6 +189,7 @@ def sample_to_dict(result: Any) -> dict[str, Any]:
         "settings": dict(result.settings),
         "versions": dict(result.versions),
         "seed": int(result.seed),
+        "methods": [m.as_dict() for m in getattr(result, "methods", ())],
     }
 
 

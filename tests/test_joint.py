@@ -182,6 +182,12 @@ def test_excluded_crystals_are_left_out_and_listed():
     assert res.excluded == tuple(truth["antecrysts"])
     assert res.crystal(truth["antecrysts"][0]).verdict == "excluded"
     assert res.n_antecrysts == 0 and res.verdict == "one melt"
+    # growth only: the processes single fits can fit are held at zero, and said so
+    assert res.settings["section_h_over_r"] == 0.0
+    assert res.settings["diffusion_length_um"] == 0.0
+    assert J.PROCESS_NOTE in res.warnings
+    keys = [m.key for m in res.methods]
+    assert "wilks_1938" in keys and "hart_davis_1978" in keys
 
 
 def test_two_melts_are_not_forced_into_one_answer():

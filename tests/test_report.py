@@ -183,6 +183,14 @@ def test_sample_report_carries_crystal_table_verdicts_and_shared_bands(joint, tm
     assert "Methods" in text and "fitted jointly" in text
     assert "Wilks 1938" in text and REFERENCES["wilks_1938"].full() in text
     assert "Mg#: melt Mg number, Mg/(Mg + Fe2+) in moles" in text
+    # the joint result records its own methods: the exchange law of its Kd prior,
+    # the sequential outlier test and the sampler's adaptation and convergence check
+    keys = {m.key for m in joint.methods}
+    for key in ("roeder_emslie_1970", "wilks_1938", "rosner_1983", "roberts_rosenthal_2009",
+                "vehtari_2021"):
+        assert key in keys
+        assert REFERENCES[key].full() in text, key
+    assert "joint fits model growth only" in text
 
 
 def test_every_text_of_every_page_lies_inside_the_page(olivine, plag, joint):

@@ -342,6 +342,16 @@ _ENTRIES = (
          "The large-sample distribution of the likelihood ratio for testing composite "
          "hypotheses", "Annals of Mathematical Statistics", "9", "60-62",
          "10.1214/aoms/1177732360"),
+    _ref("roberts_rosenthal_2009", ["Roberts, G. O.", "Rosenthal, J. S."], 2009,
+         "Examples of adaptive MCMC", "Journal of Computational and Graphical Statistics",
+         "18", "349-367", "10.1198/jcgs.2009.06134"),
+    _ref("rosner_1983", ["Rosner, B."], 1983,
+         "Percentage points for a generalized ESD many-outlier procedure", "Technometrics",
+         "25", "165-172", "10.1080/00401706.1983.10487848"),
+    _ref("vehtari_2021", ["Vehtari, A.", "Gelman, A.", "Simpson, D.", "Carpenter, B.",
+                          "Bürkner, P.-C."], 2021,
+         "Rank-normalization, folding, and localization: an improved R-hat for assessing "
+         "convergence of MCMC", "Bayesian Analysis", "16", "667-718", "10.1214/20-BA1221"),
     _ref("gelman_rubin_1992", ["Gelman, A.", "Rubin, D. B."], 1992,
          "Inference from iterative simulation using multiple sequences", "Statistical Science",
          "7", "457-472", "10.1214/ss/1177011136"),
@@ -486,7 +496,7 @@ def _uses_by_kind():
 
     Imported here, not at module level: the registry stays importable on its own.
     """
-    from zoning.fitting.methods import fit_methods
+    from zoning.fitting.methods import fit_methods, joint_methods
     from zoning.models import CrystallizationModel
     from zoning.thermometry import THERMOMETERS
 
@@ -511,9 +521,9 @@ def _uses_by_kind():
                  for model, m in ((ol_model, "olivine"), (pl_model, "plagioclase"))}
     birge = added(fit_methods("olivine", kd_mean=0.30, kd_sd=0.03, kd_default=True,
                               sigma_scale=2.0))
-    joint = ol_model.methods() + (
-        MethodUse("consistency of the crystals with one melt", "wilks_1938",
-                  "leave-one-out likelihood-ratio test"),)
+    joint = ol_model.methods() + joint_methods("olivine", kd_mean=0.30, kd_sd=0.03,
+                                               kd_default=True, fe3_fraction=0.10,
+                                               fe3_source="default")
     return (
         ("Olivine traverse (`zoning fit`, `zoning batch`)", ol),
         ("Plagioclase traverse (`--temperature-c` for the SrO and MgO profiles)", pl),
