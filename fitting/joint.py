@@ -162,7 +162,13 @@ from zoning.fitting.summary import N_CURVE_POINTS, _versions
 from zoning.fitting.summary import estimate_from_draws as _estimate
 
 from zoning import geometry as _geometry
-from zoning.exceptions import ConvergenceWarning, DataQualityWarning, FitError, ZoningError
+from zoning.exceptions import (
+    CalibrationRangeWarning,
+    ConvergenceWarning,
+    DataQualityWarning,
+    FitError,
+    ZoningError,
+)
 from zoning.melt import read_melt
 from zoning.partitioning import equilibrium_crystal
 from zoning.traverse import MINERALS, Traverse
@@ -1616,6 +1622,38 @@ def _melt_path(joint: _Joint, v, draws) -> pd.DataFrame:
                          "crystal_hi95": cq[1]})
 
 
+def _calibration_warnings(joint: _Joint, v: np.ndarray) -> list[str]:
+    """Calibration-range warnings of the laws along the shared best-fit path.
+
+    The same checks as a single fit's (:mod:`zoning.fitting.summary`): the
+    forward model's laws (partitioning, redox) as it evaluates the path from
+    F = 0 to the rim, and the glass thermometer on the reported melt MgO.
+    Returned once each, in words, for the warnings of the sample.
+    """
+    from zoning.thermometry import THERMOMETERS
+
+    s = joint.s
+    rows = joint.rows(v[None, :])
+    grid = np.linspace(0.0, float(np.max(rows["f_rim"])), 120)
+    params = {s.ratio: rows[s.ratio][:1], "kd": rows["kd"][:1]}
+    params["retention"] = (_expit(v[None, joint.index("retention_mu")]) if joint.hier
+                           else rows["retention"][:1])
+    for name, _key, _ox in s.trace_params:
+        params[name] = rows[name][:1]
+    out_list: list[str] = []
+    with warnings.catch_warnings(record=True) as caught, np.errstate(all="ignore"):
+        warnings.simplefilter("always")
+        out = s.model.path(grid, strict=False, **params)
+        if s.model.thermometer and "melt_mgo_wt" in out:
+            THERMOMETERS[s.model.thermometer].check_range(out["melt_mgo_wt"])
+    for w in caught:
+        if issubclass(w.category, CalibrationRangeWarning):
+            text = str(w.message)
+            if text not in out_list:
+                out_list.append(text)
+    return out_list
+
+
 def _param_names(joint: _Joint, idx) -> list[str]:
     """Names of parameter entries: ``<name>`` shared, ``<name>[<crystal>]`` per crystal."""
     out = []
@@ -1813,6 +1851,9 @@ def fit_sample(
         Likely antecrysts, two melts, reversals.
     ConvergenceWarning
         Chains too short.
+    CalibrationRangeWarning
+        A law or the glass thermometer used outside its calibration range
+        along the shared best-fit path (once per law, as for single fits).
     """
     from zoning.fitting.diagnostics import find_reversals
 
@@ -2069,6 +2110,8 @@ def fit_sample(
         "definition); the parent melt is the melt that grew its core."
     )
     warn_list += main_grp.warnings
+    calibration = _calibration_warnings(main_grp.joint, main_grp.v)
+    warn_list += calibration
     if len(groups) > 1:
         warn_list += [f"second melt: {w}" for w in groups[1][1].warnings if "short" in w]
     if skipped:
@@ -2084,6 +2127,8 @@ def fit_sample(
             warnings.warn(f"sample {sample_name!r}: {w}", DataQualityWarning, stacklevel=2)
         if "too short" in w:
             warnings.warn(f"sample {sample_name!r}: {w}", ConvergenceWarning, stacklevel=2)
+        if w in calibration:
+            warnings.warn(f"sample {sample_name!r}: {w}", CalibrationRangeWarning, stacklevel=2)
 
     estimates = dict(main_grp.estimates)
     if no_answer:

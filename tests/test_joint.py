@@ -222,3 +222,21 @@ def test_bad_requests_say_what_to_do():
         fit_sample([traverses[0], plag], melt=js.MELT)
     with pytest.raises(ZoningError, match="retention sharing"):
         fit_sample(traverses, melt=js.MELT, retention="free")
+
+
+def test_laws_outside_their_calibration_warn_once_along_the_shared_path():
+    # The thermometer of Helz & Thornber (1987) is calibrated on about 2.5-10 wt%
+    # glass MgO and D_Ni of Hart & Davis (1978) on about 6-20 wt% melt MgO (both
+    # ranges from memory, as in zoning.thermometry and zoning.partitioning): a
+    # picritic parent (Mg# 0.88) leaves both, a basaltic one stays in them.
+    traverses, _ = js.sample(n_hosts=2, antecryst=False, n_spots=15, seed=1)
+    joint = J._Joint(_settings(), _crystals(traverses))
+    v = _vector(joint, np.random.default_rng(0), 1)[0]
+    v[joint.index("melt_mg_number")] = 0.88
+    out = J._calibration_warnings(joint, v)
+    assert len(out) == 2 and len(set(out)) == 2
+    assert any("Hart & Davis (1978)" in w for w in out)
+    assert any("thermometer" in w and "2.5-10 wt% MgO" in w for w in out)
+    v[joint.index("melt_mg_number")] = 0.66
+    v[joint.index("f_rim")] = 0.05
+    assert J._calibration_warnings(joint, v) == []
