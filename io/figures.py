@@ -278,13 +278,23 @@ def _new_figure(width: float, height: float) -> Figure:
     return fig
 
 
+#: Fewest characters per line :func:`_wrap` wraps to: a tiny panel gets a
+#: label wider than itself rather than a column of one-word lines.
+_MIN_WRAP_CHARS = 12
+
+
 def _wrap(text: str, chars: int) -> str:
-    """Wrap text on word boundaries (never cut); long words are kept whole."""
+    """Wrap text on word boundaries (never cut); long words are kept whole.
+
+    Lines are never wrapped to fewer than :data:`_MIN_WRAP_CHARS` characters,
+    whatever `chars` is (also zero or negative, from a space too small).
+    """
     text = str(text)
-    if chars <= 0 or max(len(line) for line in text.split("\n")) <= chars:
+    chars = max(int(chars), _MIN_WRAP_CHARS)
+    if max(len(line) for line in text.split("\n")) <= chars:
         return text
     # Line breaks already in the text are kept; each line is wrapped alone.
-    return "\n".join("\n".join(textwrap.wrap(line, max(chars, 12), break_long_words=False,
+    return "\n".join("\n".join(textwrap.wrap(line, chars, break_long_words=False,
                                              break_on_hyphens=False)) or line
                      for line in text.split("\n"))
 
@@ -473,6 +483,9 @@ _LABELS = {
     "melt_mgo_wt": "parent melt MgO [wt%]",
     "melt_cao_wt": "parent melt CaO [wt%]",
     "temperature_c": "parent temperature [°C]",
+    "section_h_over_r": "section h/R",
+    "diffusion_length_um": "diffusion length L [µm]",
+    "diffusion_time_days": "diffusion time [days]",
 }
 
 
@@ -488,6 +501,9 @@ _SHORT = {
     "melt0_ni_ppm": "Ni [ppm]",
     "melt0_sr_ppm": "Sr [ppm]",
     "melt0_mgo_wt": "MgO [wt%]",
+    "section_h_over_r": "h/R",
+    "diffusion_length_um": "L [µm]",
+    "diffusion_time_days": "t [days]",
 }
 
 
@@ -675,6 +691,26 @@ def profile_figure(result, *, ax=None, fig: Figure | None = None,
         return _finish(fig)
 
 
+#: Legend label of the best-fit curve: as fitted, or after the fitted diffusion.
+BEST_LABEL = "best fit"
+RELAXED_LABEL = "best fit (relaxed)"
+_BEST_LABELS = (BEST_LABEL, RELAXED_LABEL)
+
+
+def _relaxed(result) -> bool:
+    """Return True when the best fit was relaxed by diffusion after growth.
+
+    (The grown profile differs from the best fit somewhere.)
+    """
+    curve = result.curve
+    return "best_grown" in curve and "best" in curve and bool(np.any(
+        np.abs(curve["best_grown"].to_numpy(float) - curve["best"].to_numpy(float)) > 0))
+
+
+def _best_label(result) -> str:
+    return RELAXED_LABEL if _relaxed(result) else BEST_LABEL
+
+
 #: A curve within this fraction of the y range of the best fit everywhere is
 #: drawn under it (about one line width at print size).
 _HIDDEN_FRACTION = 0.01
@@ -682,7 +718,7 @@ _HIDDEN_FRACTION = 0.01
 
 def _mark_hidden(ax) -> None:
     """Say in the legend which curves lie under the best fit along the whole traverse."""
-    best = [ln for ln in ax.lines if ln.get_label() == "best fit"]
+    best = [ln for ln in ax.lines if ln.get_label() in _BEST_LABELS]
     if not best:
         return
     bx = np.asarray(best[0].get_xdata(), float)
@@ -718,14 +754,13 @@ def _profile_main(ax, result) -> None:
     if "equilibrium" in curve:
         ax.plot(d, curve["equilibrium"], color=PALETTE["green"], ls=":", lw=1.5,
                 label="pure equilibrium (r = 1)", zorder=2)
-    grown = "best_grown" in curve and bool(np.any(
-        np.abs(curve["best_grown"].to_numpy(float) - curve["best"].to_numpy(float)) > 0))
+    grown = _relaxed(result)
     if grown:  # diffusion after growth fitted: the profile as grown, before relaxing
         ax.plot(d, curve["best_grown"], color=PALETTE["blue"], ls="-.", lw=1.1,
                 label="best fit as grown (before diffusion)", zorder=3)
     if "best" in curve:
         ax.plot(d, curve["best"], color=PALETTE["blue"], lw=1.8,
-                label="best fit (relaxed)" if grown else "best fit", zorder=3)
+                label=_best_label(result), zorder=3)
     _draw_spots(ax, spots, "distance_um", "observed", "sigma", PALETTE["black"],
                 sides=_sides(result, spots))
     _zoom_to_used(ax, spots, "observed", "sigma",
@@ -744,7 +779,10 @@ def _profile_trace(ax, result, oxide: str) -> None:
         ax.fill_between(d, curve[f"{oxide}_lo95"], curve[f"{oxide}_hi95"],
                         color=PALETTE["sky"], alpha=0.45, lw=0, label="95% band")
     if f"{oxide}_best" in curve:
-        ax.plot(d, curve[f"{oxide}_best"], color=PALETTE["blue"], lw=1.8, label="best fit")
+        # The same label as the main panel's curve (relaxed by the same
+        # diffusion), so that the shared legend has one best-fit entry.
+        ax.plot(d, curve[f"{oxide}_best"], color=PALETTE["blue"], lw=1.8,
+                label=_best_label(result))
     sig = f"{oxide}_sigma" if f"{oxide}_sigma" in spots else None
     _draw_spots(ax, spots, "distance_um", f"{oxide}_observed", sig, PALETTE["black"],
                 flag_labels=False, sides=_sides(result, spots))
@@ -1077,6 +1115,10 @@ def corner_figure(
         return _finish(fig, tick_scale=0.85)
 
 
+#: From this many parameters on, the corner plot turns its x tick labels upright.
+_CORNER_ROTATE_FROM = 4
+
+
 def _corner(result, fig, names, max_points, seed) -> Figure:
     st = _style()
     all_names = list(result.parameter_names)
@@ -1137,8 +1179,11 @@ def _corner(result, fig, names, max_points, seed) -> Figure:
             ax.xaxis.set_major_locator(MaxNLocator(nticks))
             if i != j:
                 ax.yaxis.set_major_locator(MaxNLocator(nticks))
-            if i == p - 1 and st.narrow:
-                ax.tick_params(axis="x", labelrotation=45)
+            if i == p - 1 and (st.narrow or p >= _CORNER_ROTATE_FROM):
+                # Upright, each label ending at its tick: a label then takes
+                # only its line height along the axis, so neighbours on a
+                # small panel never overlap (slanted ones still can).
+                ax.tick_params(axis="x", labelrotation=90, labelrotation_mode="xtick")
     _title(fig, f"{result.sample}: posterior ({len(x)} draws)")
     return fig
 

@@ -461,3 +461,85 @@ def test_batch_rerun_with_other_figure_formats_is_not_unchanged(tmp_path):
 def test_label_breaks_are_kept_when_labels_are_wrapped(olivine):
     fig = figures.profile_figure(olivine, style="column")
     assert fig.axes[-1].get_ylabel() == "residual\n[mol% Fo]"
+
+
+# --- fits with sectioning and diffusion after growth ------------------------------
+
+
+@pytest.fixture(scope="module")
+def relaxed():
+    """Olivine cut off-centre (h/R = 0.5) and relaxed by diffusion (L = 25 µm), with NiO."""
+    from test_fit_processes import MELT, OL_TRUTH, _traverse
+
+    traverse = _traverse(**OL_TRUTH, traces=("Ni",), section_h_over_r=0.5,
+                         diffusion_length_um=25.0)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ZoningWarning)  # short chains warn, on purpose
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return fit_traverse(traverse, melt=MELT["olivine"], n_walkers=16, n_steps=150, seed=2,
+                            traces=("NiO",), temperature_c=1150.0)
+
+
+def _outside_page(fig) -> list[str]:
+    """Drawn texts, legends and panels whose window extent leaves the figure (drawn first)."""
+    from _layout import SLACK_PX, _axes, _drawn_texts
+    from matplotlib.legend import Legend
+
+    renderer = fig.canvas.get_renderer()
+    page = fig.bbox
+    arts = _drawn_texts(fig) + list(fig.findobj(Legend))
+    arts += [ax for ax in _axes(fig) if ax.get_visible() and ax.axison]
+    out = []
+    for art in arts:
+        box = art.get_window_extent(renderer)
+        if (box.x0 < page.x0 - SLACK_PX or box.y0 < page.y0 - SLACK_PX
+                or box.x1 > page.x1 + SLACK_PX or box.y1 > page.y1 + SLACK_PX):
+            out.append(f"{type(art).__name__} {getattr(art, 'get_text', str)()!r}: {box}")
+    return out
+
+
+def test_diffusion_fit_figures_lie_inside_their_page(relaxed):
+    assert {"section_h_over_r", "diffusion_length_um"} <= set(relaxed.parameter_names)
+    for style in figures.FIGURE_STYLES:
+        profile = figures.profile_figure(relaxed, style=style)
+        assert layout_problems(profile) == []
+        assert _outside_page(profile) == []
+        texts = legend_texts(profile)
+        assert not any("…" in t or "..." in t for t in texts)
+        # One best-fit entry for all panels (the NiO panel's curve is relaxed too).
+        best = [t for t in texts if t.startswith("best fit") and "as grown" not in t]
+        assert best == ["best fit (relaxed)"]
+        assert "best fit as grown (before diffusion)" in texts
+        # The relaxed curve is the best fit against which hidden curves are marked.
+        main = profile.axes[0]
+        curve = [ln for ln in main.lines if ln.get_label() == "best fit (relaxed)"][0]
+        lo, hi = main.get_ylim()
+        pure = [ln for ln in main.lines if ln.get_label().startswith("pure ")]
+        assert pure
+        for ln in pure:
+            gap = np.max(np.abs(np.asarray(ln.get_ydata()) - curve.get_ydata()))
+            assert ln.get_label().endswith(": under the best fit") == (gap <= 0.01 * (hi - lo))
+
+        corner = figures.corner_figure(relaxed, style=style)
+        assert layout_problems(corner) == []
+        assert _outside_page(corner) == []
+        labels = {" ".join(ax.get_xlabel().split()) for ax in corner.axes}
+        labels |= {" ".join(ax.get_ylabel().split()) for ax in corner.axes}
+        assert {"h/R", "L [µm]"} <= labels
+        bottom = [ax for ax in corner.axes if ax.get_xlabel()]
+        assert all(len(ax.get_xticks()) <= 4 for ax in corner.axes if ax.axison)
+        assert all(lab.get_rotation() == 90 for ax in bottom for lab in ax.get_xticklabels())
+
+
+def test_process_parameters_have_readable_labels():
+    assert figures.quantity_label("section_h_over_r") == "section h/R"
+    assert figures.quantity_label("diffusion_length_um") == "diffusion length L [µm]"
+    assert figures.quantity_label("diffusion_time_days") == "diffusion time [days]"
+
+
+@pytest.mark.parametrize("chars", [-5, 0, 1, 3, 5])
+def test_wrap_never_makes_one_letter_lines(chars):
+    text = "a b c d e f g h i j k l m n o p"
+    lines = figures._wrap(text, chars).split("\n")
+    assert " ".join(lines) == text  # nothing cut
+    assert len(lines) > 1 and all(len(line) >= 6 for line in lines[:-1])
