@@ -2083,11 +2083,12 @@ def fit_sample(
         t, d, p = screen.stats.get(i, (np.nan, 0, np.nan))
         where = "a second melt" if i in second.members else "a likely antecryst"
         own_ratio = own_est[i].get(ratio)
-        band = (f"; its own parent melt {ratio} {own_ratio.lo95:.3f}-{own_ratio.hi95:.3f}"
+        band = (f"; its own parent {ratio} {own_ratio.lo95:.3f}-{own_ratio.hi95:.3f}"
                 if own_ratio is not None and np.isfinite(own_ratio.lo95) else "")
+        p_text = "p < 0.001" if p < 1e-3 else f"p = {p:.2g}"
         warn_list.append(
             f"crystal {crystals[i].name!r} does not share the melt of the others "
-            f"(likelihood-ratio T = {t:.1f} on {d} dof, p = {p:.2g}): {where}, left out of "
+            f"(likelihood-ratio T = {t:.1f} on {d} dof, {p_text}): {where}, left out of "
             f"the shared answer{band}."
         )
     if len(second.members) >= 2:

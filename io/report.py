@@ -773,6 +773,9 @@ def settings_rows(result) -> list[list[str]]:
               "robust": "robust loss",
               "f_rim": "F at the rim", "retention": "retention", "exclude": "crystals left out",
               "consistency_test": "consistency test", "sampler": "sampler",
+              "section_h_over_r": "section offset h/R",
+              "diffusion_length_um": "diffusion length L [µm]",
+              "delta_qfm": "ΔQFM of the diffusivity [log units]",
               "kd_prior_mean": None, "melt": None, "fe3_fraction": None, "thermometer": None,
               "temperature_c": None, "distance_range_um": None, "radius_um": None,
               "traces": None, "n_walkers": None, "n_chains": None}
