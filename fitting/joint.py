@@ -158,7 +158,7 @@ from zoning.fitting.sampling import (
     credible_band,
     laplace_covariance,
 )
-from zoning.fitting.summary import N_CURVE_POINTS, _versions
+from zoning.fitting.summary import N_CURVE_POINTS, _versions, calibration_messages
 from zoning.fitting.summary import estimate_from_draws as _estimate
 
 from zoning import geometry as _geometry
@@ -1625,13 +1625,9 @@ def _melt_path(joint: _Joint, v, draws) -> pd.DataFrame:
 def _calibration_warnings(joint: _Joint, v: np.ndarray) -> list[str]:
     """Calibration-range warnings of the laws along the shared best-fit path.
 
-    The same checks as a single fit's (:mod:`zoning.fitting.summary`): the
-    forward model's laws (partitioning, redox) as it evaluates the path from
-    F = 0 to the rim, and the glass thermometer on the reported melt MgO.
-    Returned once each, in words, for the warnings of the sample.
+    The checks of a single fit (:func:`zoning.fitting.summary.calibration_messages`)
+    on the path from F = 0 to the rim at the joint best fit ``v``.
     """
-    from zoning.thermometry import THERMOMETERS
-
     s = joint.s
     rows = joint.rows(v[None, :])
     grid = np.linspace(0.0, float(np.max(rows["f_rim"])), 120)
@@ -1640,18 +1636,7 @@ def _calibration_warnings(joint: _Joint, v: np.ndarray) -> list[str]:
                            else rows["retention"][:1])
     for name, _key, _ox in s.trace_params:
         params[name] = rows[name][:1]
-    out_list: list[str] = []
-    with warnings.catch_warnings(record=True) as caught, np.errstate(all="ignore"):
-        warnings.simplefilter("always")
-        out = s.model.path(grid, strict=False, **params)
-        if s.model.thermometer and "melt_mgo_wt" in out:
-            THERMOMETERS[s.model.thermometer].check_range(out["melt_mgo_wt"])
-    for w in caught:
-        if issubclass(w.category, CalibrationRangeWarning):
-            text = str(w.message)
-            if text not in out_list:
-                out_list.append(text)
-    return out_list
+    return calibration_messages(s.model, lambda: s.model.path(grid, strict=False, **params))
 
 
 def _param_names(joint: _Joint, idx) -> list[str]:

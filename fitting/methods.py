@@ -22,6 +22,24 @@ FE3_SOURCES = {
 }
 
 
+def _melt_and_kd_uses(mineral, kd_mean, kd_sd, kd_default, fe3_fraction, fe3_source):
+    """List the melt Fe3+/FeT (olivine) and Kd prior records of single and joint fits."""
+    uses = []
+    if mineral == "olivine":
+        source = FE3_SOURCES.get(fe3_source, fe3_source)
+        uses.append(MethodUse("melt Fe3+/FeT", "",
+                              f"Fe3+/FeT = {fe3_fraction:.2f} ({source}); Fe3+ takes no part "
+                              "in the exchange, so the melt Mg# counts Fe2+ only"))
+    prior_key = "roeder_emslie_1970" if (mineral == "olivine" and kd_default) else ""
+    if kd_sd > 0:
+        prior = f"Gaussian prior {kd_mean:.3g} +/- {kd_sd:.2g}"
+    else:
+        prior = f"fixed at {kd_mean:.3g}"
+    prior += " (built-in default)" if kd_default else " (given by the user)"
+    uses.append(MethodUse("exchange coefficient prior", prior_key, prior))
+    return uses
+
+
 def fit_methods(
     mineral: str,
     *,
@@ -60,19 +78,8 @@ def fit_methods(
     -------
     tuple of MethodUse
     """
-    uses = []
-    if mineral == "olivine":
-        source = FE3_SOURCES.get(fe3_source, fe3_source)
-        uses.append(MethodUse("melt Fe3+/FeT", "",
-                              f"Fe3+/FeT = {fe3_fraction:.2f} ({source}); Fe3+ takes no part "
-                              "in the exchange, so the melt Mg# counts Fe2+ only"))
-    prior_key = "roeder_emslie_1970" if (mineral == "olivine" and kd_default) else ""
-    if kd_sd > 0:
-        prior = f"Gaussian prior {kd_mean:.3g} +/- {kd_sd:.2g}"
-    else:
-        prior = f"fixed at {kd_mean:.3g}"
-    prior += " (built-in default)" if kd_default else " (given by the user)"
-    uses.append(MethodUse("exchange coefficient prior", prior_key, prior))
+    uses = list(_melt_and_kd_uses(mineral, kd_mean, kd_sd, kd_default, fe3_fraction,
+                                  fe3_source))
     uses.append(MethodUse("best fit", "newville_2014",
                           "multi-start bounded least squares (lmfit, least_squares method)"))
     if sampled:
@@ -132,9 +139,7 @@ def joint_methods(
     -------
     tuple of MethodUse
     """
-    base = fit_methods(mineral, kd_mean=kd_mean, kd_sd=kd_sd, kd_default=kd_default,
-                       fe3_fraction=fe3_fraction, fe3_source=fe3_source, sampled=False)
-    uses = [u for u in base if u.role in ("melt Fe3+/FeT", "exchange coefficient prior")]
+    uses = _melt_and_kd_uses(mineral, kd_mean, kd_sd, kd_default, fe3_fraction, fe3_source)
     uses += [
         MethodUse("best fit", "", "multi-start bounded least squares of all crystals "
                   "together (scipy least_squares), started from each crystal's own fit"),

@@ -70,6 +70,34 @@ EXHAUSTION_SHARE = 0.85
 EXHAUSTION_REMAINING = 0.1
 
 
+
+def calibration_messages(model, evaluate) -> list[str]:
+    """Calibration-range warnings of one forward evaluation, once each, in order.
+
+    Parameters
+    ----------
+    model : zoning.models.CrystallizationModel
+        The model evaluated; its glass thermometer (if any) is checked on the
+        melt MgO of the evaluation (the reported melt temperatures).
+    evaluate : callable
+        No arguments; evaluates ``model`` (``profile`` or ``path``, with
+        ``strict=False``) and returns its outputs. The laws warn as they leave
+        their calibration ranges.
+
+    Returns
+    -------
+    list of str
+        The texts of the CalibrationRangeWarning raised, duplicates dropped;
+        other warnings of the evaluation are discarded.
+    """
+    with warnings.catch_warnings(record=True) as caught, np.errstate(all="ignore"):
+        warnings.simplefilter("always")
+        out = evaluate()
+        if model.thermometer and "melt_mgo_wt" in out:
+            THERMOMETERS[model.thermometer].check_range(out["melt_mgo_wt"])
+    return list(dict.fromkeys(str(w.message) for w in caught
+                              if issubclass(w.category, CalibrationRangeWarning)))
+
 def _versions() -> dict[str, str]:
     out = {"python": platform.python_version()}
     for dist in ("zoning", "numpy", "scipy", "lmfit", "emcee", "pandas"):
@@ -665,18 +693,11 @@ def summarise_fit(
         )
     if prob.robust:
         warn_list.append("robust (soft-L1) loss used: stray spots are down-weighted.")
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        best_out = prob.model.profile(d, prob.radius_um, strict=False,
-                                      **prob.params(theta_best[None, :]))
-        if prob.model.thermometer:  # the reported melt temperatures, parent to rim
-            THERMOMETERS[prob.model.thermometer].check_range(best_out["melt_mgo_wt"])
-    for w in caught:
-        if issubclass(w.category, CalibrationRangeWarning):
-            text = str(w.message)
-            if text not in warn_list:
-                warn_list.append(text)
-                emit.append((CalibrationRangeWarning, text))
+    for text in calibration_messages(prob.model, lambda: prob.model.profile(
+            d, prob.radius_um, strict=False, **prob.params(theta_best[None, :]))):
+        if text not in warn_list:
+            warn_list.append(text)
+            emit.append((CalibrationRangeWarning, text))
     exhausted = _exhaustion_message(prob, theta_best)
     if exhausted:
         warn_list.append(exhausted)
