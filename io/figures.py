@@ -1180,10 +1180,13 @@ def _corner(result, fig, names, max_points, seed) -> Figure:
             if i != j:
                 ax.yaxis.set_major_locator(MaxNLocator(nticks))
             if i == p - 1 and (st.narrow or p >= _CORNER_ROTATE_FROM):
-                # Upright, each label ending at its tick: a label then takes
-                # only its line height along the axis, so neighbours on a
-                # small panel never overlap (slanted ones still can).
-                ax.tick_params(axis="x", labelrotation=90, labelrotation_mode="xtick")
+                # Upright, centred under its tick with its end at the axis: a
+                # label then takes only its line height along the axis, so
+                # neighbours on a small panel never overlap (slanted ones
+                # still can). (tick_params' labelrotation_mode needs
+                # matplotlib 3.11; for 90 degrees the default placement is
+                # the same.)
+                ax.tick_params(axis="x", labelrotation=90)
     _title(fig, f"{result.sample}: posterior ({len(x)} draws)")
     return fig
 
