@@ -1948,6 +1948,16 @@ def fit_sample(
 
     # --- every crystal alone -----------------------------------------------
     warn_list: list[str] = list(melt_input.notes)
+    written = _samples_written(traverses)
+    if len(written) > 1:
+        warn_list.append(
+            f"the files name {len(written)} samples in their sample column ("
+            + "; ".join(f"{k}: {len(v)} crystal{'s' if len(v) > 1 else ''}"
+                        for k, v in written.items())
+            + "); they were fitted as one sample sharing one parent melt, as asked. Fit each "
+            "sample on its own (zoning fit --joint splits a file by its sample column unless "
+            "--name is given) unless they really are one rock."
+        )
     owns: dict[int, _Own] = {}
     own_est: dict[int, dict] = {}
     own_draws: dict[int, Any] = {}
@@ -2109,7 +2119,8 @@ def fit_sample(
         warn_list.append("robust (soft-L1) loss used: stray spots are down-weighted.")
     warn_list.append(PROCESS_NOTE)
     for w in warn_list:
-        if "does not share" in w or "two melts" in w or "do not share" in w:
+        if ("does not share" in w or "two melts" in w or "do not share" in w
+                or "samples in their sample column" in w):
             warnings.warn(f"sample {sample_name!r}: {w}", DataQualityWarning, stacklevel=2)
         if "too short" in w:
             warnings.warn(f"sample {sample_name!r}: {w}", ConvergenceWarning, stacklevel=2)
@@ -2180,6 +2191,15 @@ def fit_sample(
         diagnostics=diagnostics, warnings=tuple(warn_list), settings=settings_out,
         versions=_versions(), seed=int(seed), methods=methods,
     )
+
+
+def _samples_written(traverses: Sequence[Traverse]) -> dict[str, list[str]]:
+    """Traverse names by the sample name written in their file ("" skipped)."""
+    out: dict[str, list[str]] = {}
+    for t in traverses:
+        if getattr(t, "sample", ""):
+            out.setdefault(t.sample, []).append(t.name)
+    return out
 
 
 def _common_name(names: Sequence[str]) -> str:

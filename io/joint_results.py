@@ -26,7 +26,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from zoning.io.results import CAUTIONS, _fmt, summary_table
+from zoning.io.results import _fmt, summary_table
 from zoning.io.writers import unique_names, write_json, write_table
 
 __all__ = [
@@ -38,7 +38,15 @@ __all__ = [
     "sample_output_names",
     "format_sample_report",
     "JOINT_CAUTION",
+    "JOINT_GENERAL",
 ]
+
+#: The general assumption statement of joint fits (the single-fit one says
+#: that sections and diffusion are fitted, which joint fits do not do).
+JOINT_GENERAL = (
+    "Assumes each zone grew in surface equilibrium with the melt; every number depends on "
+    "the chosen Kd and reference melt."
+)
 
 #: What the joint fit assumes beyond single fits, printed with every report.
 JOINT_CAUTION = (
@@ -185,7 +193,7 @@ def sample_to_dict(result: Any) -> dict[str, Any]:
         "melt_path": result.path,
         "diagnostics": dict(result.diagnostics),
         "warnings": list(result.warnings),
-        "cautions": [CAUTIONS, JOINT_CAUTION],
+        "cautions": [JOINT_GENERAL, JOINT_CAUTION],
         "settings": dict(result.settings),
         "versions": dict(result.versions),
         "seed": int(result.seed),
@@ -420,6 +428,6 @@ def format_sample_report(result: Any) -> str:
         for w in result.warnings:
             lines.extend(textwrap.wrap(w, width=96, initial_indent="    - ",
                                        subsequent_indent="      "))
-    for text in (CAUTIONS, JOINT_CAUTION):
+    for text in (JOINT_GENERAL, JOINT_CAUTION):
         lines.extend(textwrap.wrap("  note: " + text, width=100, subsequent_indent="    "))
     return "\n".join(lines) + "\n"

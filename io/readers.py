@@ -124,6 +124,9 @@ class RawTable:
         Plain statements made while reading (encoding, delimiter, decimal
         separator, header line, units, per-column below-detection and
         missing counts, ignored columns, how the file was split).
+    sample : str, optional
+        The sample name written in the file's sample column for these rows
+        ("" when the file has no sample column).
     """
 
     name: str
@@ -131,6 +134,7 @@ class RawTable:
     data: pd.DataFrame
     column_map: dict[str, str]
     notes: tuple[str, ...]
+    sample: str = ""
 
     def __post_init__(self):
         object.__setattr__(self, "column_map", dict(self.column_map))
@@ -1255,8 +1259,10 @@ def _build_tables(records, spans, p: Path, source: str, user_map, notes, *,
                           f"{' / '.join(repr(x) for x in parts)} ({int(mask.sum())} rows)")
         tnotes.extend(_count_notes(counts, mask))
         tnotes.extend(readings)
+        # levels: block, then _columns.NAME_KEYS (sample, crystal, traverse)
         tables.append(RawTable(names[key], source, frame[mask].reset_index(drop=True),
-                               column_map_out, tuple(tnotes)))
+                               column_map_out, tuple(tnotes),
+                               sample=str(group_parts[key][1]).strip()))
     return tables
 
 

@@ -487,4 +487,5 @@ def _build(raw, *, mineral, orientation, core_position_um, checks, iron, sheet) 
         settings=run_settings,
         orientation_confidence=decision.confidence,
         orientation_basis=decision.basis,
+        sample=raw.sample,
     )

@@ -10,7 +10,7 @@ import pytest
 from zoning.io.writers import safe_name
 
 from zoning.cli import main
-from zoning.exceptions import CalibrationRangeWarning, ConvergenceWarning
+from zoning.exceptions import CalibrationRangeWarning, ConvergenceWarning, DataQualityWarning
 from zoning.models import CrystallizationModel
 
 #: Molar masses [g/mol] from IUPAC atomic weights (Mg 24.305, Fe 55.845,
@@ -113,3 +113,62 @@ def test_bad_options_give_one_clear_line_and_exit_code_2(export, tmp_path, capsy
     assert code == 2
     err = capsys.readouterr().err
     assert message in err and "Traceback" not in err
+
+
+@pytest.fixture(scope="module")
+def two_sample_table(tmp_path_factory):
+    # Invented long table: two Ferrolyn samples of three olivines each, in
+    # one file with a Sample and a Crystal column.
+    import _joint_synthetic as js
+
+    rows = []
+    for sample, seed, mg in (("FRL-31", 1, 0.76), ("FRL-32", 2, 0.72)):
+        traverses, _ = js.sample(n_hosts=3, antecryst=False, n_spots=30, seed=seed,
+                                 mg_number=mg, name=sample)
+        for t in traverses:
+            u = t.spots
+            sio2, feo, mgo = _olivine_oxides(u["fo"].to_numpy(float))
+            for i in range(len(u)):
+                rows.append({"Sample": sample, "Crystal": t.name.split()[-1],
+                             "Distance (um)": round(float(u["distance_um"].iloc[i]), 2),
+                             "SiO2": round(sio2[i], 3), "FeO": round(feo[i], 3),
+                             "MgO": round(mgo[i], 3),
+                             "NiO": round(float(u["NiO"].iloc[i]), 4)})
+    path = tmp_path_factory.mktemp("exports") / "ferrolyn_two_samples.csv"
+    pd.DataFrame(rows).to_csv(path, index=False)
+    return path
+
+
+def test_joint_fit_of_a_file_with_two_samples_fits_each_on_its_own(two_sample_table,
+                                                                    tmp_path, capsys):
+    out = tmp_path / "joint"
+    code = _run(["fit", str(two_sample_table), "--melt", "FeO=9.5", "--joint", "--steps",
+                 "200", "--walkers", "8", "--no-figures", "--no-report", "--out", str(out)])
+    printed = capsys.readouterr().out
+    assert code == 0
+    assert "name 2 samples in their sample column" in printed and "give --name" in printed
+    summary = pd.read_csv(out / "summary.csv", comment="#")
+    assert list(summary["sample"]) == ["FRL-31", "FRL-32"]
+    assert list(summary["n_crystals"]) == [3, 3]
+    # Named by the user: one sample of six crystals, as asked.
+    out2 = tmp_path / "joint_named"
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DataQualityWarning)  # the two melts, said plainly
+        code = _run(["fit", str(two_sample_table), "--melt", "FeO=9.5", "--joint", "--steps",
+                     "200", "--walkers", "8", "--no-figures", "--no-report", "--out",
+                     str(out2), "--name", "FRL-3x"])
+    assert code == 0
+    summary = pd.read_csv(out2 / "summary.csv", comment="#")
+    assert list(summary["sample"]) == ["FRL-3x"] and int(summary["n_crystals"].iloc[0]) == 6
+    # In Python, traverses of two written samples fitted as one are warned about.
+    from zoning.fitting import fit_sample
+    from zoning.io import read_traverses
+
+    traverses = read_traverses(two_sample_table)
+    assert {t.sample for t in traverses} == {"FRL-31", "FRL-32"}
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        res = fit_sample(traverses, melt={"FeO": 9.5}, n_sweeps=100, n_chains=8)
+    mixed = [w for w in caught if "2 samples in their sample column" in str(w.message)]
+    assert mixed and all(issubclass(w.category, DataQualityWarning) for w in mixed)
+    assert any("2 samples in their sample column" in w for w in res.warnings)

@@ -92,6 +92,10 @@ class Traverse:
         directly in Python carries the caller's own distances from the core.
     orientation_basis : str
         The evidence for the orientation, in plain words.
+    sample : str
+        The sample name written in the file's sample column ("" when the
+        file has none). Joint fits use it to tell the samples of one file
+        apart.
     """
 
     name: str
@@ -104,6 +108,7 @@ class Traverse:
     settings: Mapping[str, Any] = field(default_factory=dict)
     orientation_confidence: str = "confirmed"
     orientation_basis: str = ""
+    sample: str = ""
 
     def __post_init__(self):
         if self.orientation_confidence not in ORIENTATION_CONFIDENCES:

@@ -357,17 +357,61 @@ def _run_joint(args, traverses, common, out_dir, sources, graphics) -> int:
     # folder's names are known after the fit and claimed then, before writing).
     output = OutputFolder(out_dir, kind="fit")
     output.check(["summary.csv", "summary.json", "crystals.csv", "crystals.json"])
-    result = fit_sample(
-        traverses, **common, name=args.name, f_rim=args.joint_f_rim,
-        retention=args.joint_retention, exclude=_free(args.exclude),
-        n_chains=32 if args.walkers is None else args.walkers, n_sweeps=args.steps,
-    )
-    result = with_command(result, args)
-    print(format_sample_report(result))
+    groups = _sample_groups(traverses, args.name)
+    exclude = _free(args.exclude)
+    known = {t.name for t in traverses}
+    missing = [e for e in exclude if e not in known]
+    if missing and len(groups) > 1:
+        raise ZoningError(
+            f"--exclude names {missing} are not traverses of {', '.join(map(str, sources))}; "
+            f"the traverses are {sorted(known)}."
+        )
+    if len(groups) > 1:
+        print(f"the files name {len(groups)} samples in their sample column ("
+              + "; ".join(f"{k}: {len(v)} traverses" for k, v in groups.items())
+              + "): each is fitted jointly on its own. To fit them as one sample, give --name.")
+    results = []
+    for sample, members in groups.items():
+        names = {t.name for t in members}
+        mine = [e for e in exclude if e in names] if len(groups) > 1 else exclude
+        if len(groups) > 1 and len(members) - len(mine) < 2:
+            print(f"zoning fit: sample {sample!r}: not fitted: a joint fit needs at least two "
+                  f"crystals and it has {len(members) - len(mine)} "
+                  f"({', '.join(sorted(names - set(mine))) or 'none'}); fit it without --joint.",
+                  file=sys.stderr)
+            continue
+        result = fit_sample(
+            members, **common, name=args.name if len(groups) == 1 else sample,
+            f_rim=args.joint_f_rim, retention=args.joint_retention, exclude=mine,
+            n_chains=32 if args.walkers is None else args.walkers, n_sweeps=args.steps,
+        )
+        result = with_command(result, args)
+        print(format_sample_report(result))
+        results.append(result)
+    if not results:
+        raise ZoningError(
+            "no sample has two crystals to fit jointly (see above); fit the traverses "
+            "without --joint."
+        )
     provenance = {"sources": [str(p.resolve()) for p in sources],
-                  "settings": dict(result.settings)}
-    written = write_sample_outputs([result], out_dir, protect=sources, provenance=provenance,
+                  "settings": dict(results[0].settings)}
+    written = write_sample_outputs(results, out_dir, protect=sources, provenance=provenance,
                                    output=output, **graphics)
     print(f"wrote {len(written)} files to {out_dir}")
     print("\n".join(list_graphics(written, out_dir)))
-    return 0
+    return 0 if len(results) == len(groups) else 1
+
+
+def _sample_groups(traverses, name) -> dict:
+    """Traverses by the sample written in their file, when every one names one.
+
+    One group (keyed by ``name`` or "") when ``name`` is given, when any
+    traverse names no sample, or when all name the same one.
+    """
+    written = [getattr(t, "sample", "") for t in traverses]
+    if name is not None or not all(written) or len(set(written)) < 2:
+        return {name or "": list(traverses)}
+    groups: dict[str, list] = {}
+    for t, s in zip(traverses, written, strict=True):
+        groups.setdefault(s, []).append(t)
+    return groups
