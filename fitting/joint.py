@@ -1363,7 +1363,11 @@ def _screen(settings, crystals, owns, members) -> _Screen:
         st, _ = _lr_stats(settings, crystals, owns, members)
         record.update(st)
         threshold = ALPHA / len(members)
-        worst = min(members, key=lambda i: st[i][2])
+        # The most discordant crystal goes first (Rosner 1983): ranked by the
+        # log tail probability, since p underflows to 0 for several crystals
+        # when an antecryst drags the shared fit, and ties at p = 0 would
+        # otherwise be broken by the order of the files.
+        worst = min(members, key=lambda i: (stats.chi2.logsf(st[i][0], st[i][1]), -st[i][0]))
         if st[worst][2] >= threshold:
             break
         if len(members) == 2:

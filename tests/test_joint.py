@@ -244,3 +244,25 @@ def test_laws_outside_their_calibration_warn_once_along_the_shared_path():
     v[joint.index("melt_mg_number")] = 0.66
     v[joint.index("f_rim")] = 0.05
     assert J._calibration_warnings(joint, v) == []
+
+
+def test_screening_sets_apart_the_most_discordant_crystal_first(monkeypatch):
+    # An antecryst drags the shared fit so far that every crystal's p value
+    # underflows to 0; the sequential test (Rosner 1983) must still remove the
+    # crystal with the largest statistic first, not the first file in the list.
+    from scipy import stats
+
+    planted = {0: 1700.0, 1: 2700.0, 2: 10400.0, 3: 55.0}
+
+    def fake_stats(settings, crystals, owns, members):
+        out = {}
+        for i in members:
+            t = planted[i] if 2 in members else 2.0 + 0.1 * i
+            out[i] = (t, 5, float(stats.chi2.sf(t, 5)))
+        return out, None
+
+    monkeypatch.setattr(J, "_lr_stats", fake_stats)
+    assert all(stats.chi2.sf(t, 5) == 0.0 for t in (1700.0, 2700.0, 10400.0))
+    screen = J._screen(None, [None] * 4, {}, [0, 1, 2, 3])
+    assert screen.flagged == [2]
+    assert screen.members == [0, 1, 3] and not screen.disagree_pair
