@@ -1248,14 +1248,20 @@ def _anchor(joint: _Joint, v: np.ndarray, exclude: int | None = None) -> int:
     return a
 
 
-def _best_joint(settings, crystals, owns, starts=None):
-    """Anchored best fit of a set of crystals: (joint, v, objective, anchor)."""
+def _best_joint(settings, crystals, owns, starts=None, extra_starts=()):
+    """Anchored best fit of a set of crystals: (joint, v, objective, anchor).
+
+    The default starts place every crystal on paths from the most primitive
+    and the median parent melt of the crystals' own fits; ``extra_starts``
+    (e.g. the fit of a larger set) are tried as well.
+    """
     joint = _Joint(settings, crystals)
     if starts is None:
         y_own = np.array([dict(zip(o.prob.free, o.theta, strict=True))[settings.ratio]
                           for o in owns])
         levels = sorted({float(np.max(y_own)), float(np.median(y_own))}, reverse=True)
         starts = [_start(joint, owns, y) for y in levels]
+    starts = [*extra_starts, *starts]
     best = (None, np.inf, 0)
     for v0 in starts:
         v0 = np.array(v0, dtype=float)
@@ -1343,12 +1349,14 @@ def _lr_stats(settings, crystals, owns, members):
             loo = owns[rest[0]].h1 if np.isfinite(owns[rest[0]].h1) else _h1_value(
                 settings, crystals[rest[0]], owns[rest[0]], lambda h: [])[0]
         else:
-            jk = _Joint(settings, [crystals[i] for i in rest])
+            # From the fit with crystal k and from the rest's own fits: a set
+            # holding an antecryst can sit in the antecryst's basin (its melt,
+            # the hosts placed late on the path), which the fit without it
+            # would not leave from there.
             keep = np.concatenate([np.arange(joint.S)] + [
                 joint.S + c * joint.Q + np.arange(joint.Q) for c in range(joint.C) if c != pos])
-            v0 = v[keep].copy()
-            _anchor(jk, v0)
-            _, loo = _fit_joint(jk, [v0])
+            _, _, loo, _ = _best_joint(settings, [crystals[i] for i in rest],
+                                       [owns[i] for i in rest], extra_starts=[v[keep].copy()])
         t = max(obj - loo - h1, 0.0)
         d = max(d_h1 - n_local_free, 1)
         out[k] = (float(t), int(d), float(stats.chi2.sf(t, d)))
