@@ -45,7 +45,12 @@ from zoning.fitting.problem import (
     prepare_problem,
 )
 from zoning.fitting.results import FitResult
-from zoning.fitting.sampling import DEFAULT_N_STEPS, sample_posterior, sampler_settings
+from zoning.fitting.sampling import (
+    DEFAULT_N_STEPS,
+    MAX_AUTO_STEPS,
+    sample_posterior,
+    sampler_settings,
+)
 from zoning.fitting.summary import summarise_fit
 
 from zoning.orientation import require_orientation
@@ -139,7 +144,11 @@ def fit_traverse(
         Seed of every random step (same seed, same numbers).
     n_walkers, n_steps : int, optional
         emcee walkers and steps, burn-in (the first quarter) included;
-        default steps :data:`DEFAULT_N_STEPS` of the mineral.
+        default steps :data:`DEFAULT_N_STEPS` of the mineral. When
+        ``n_steps`` is not given and the effective sample size after them
+        is below 1000, the chain is continued by the steps that size needs,
+        up to :data:`~zoning.fitting.sampling.MAX_AUTO_STEPS`, and the
+        result says so.
     progress : bool, optional
         Show the sampler's progress bar.
     thermometer : str, optional
@@ -191,6 +200,7 @@ def fit_traverse(
     """
     require_orientation(traverse)  # orientation gate first (also in prepare_problem)
     mineral = check_mineral(traverse)
+    auto_steps = n_steps is None
     n_walkers, n_steps = sampler_settings(mineral, n_walkers, n_steps)
     problem = prepare_problem(
         traverse,
@@ -218,6 +228,7 @@ def fit_traverse(
     choice = choose_model(problem, fits)
     posterior = sample_posterior(
         choice.problem, choice.sampled.theta, n_walkers=n_walkers, n_steps=n_steps,
+        max_steps=MAX_AUTO_STEPS[mineral] if auto_steps else None,
         seed=seed, progress=progress, modes=choice.modes, mode_weights=choice.mode_weights,
     )
     return summarise_fit(problem, fits, choice, posterior, seed=seed, n_grid=n_grid,

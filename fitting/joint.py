@@ -92,7 +92,11 @@ approximation at the best fit, refreshed from the first half of the
 burn-in; step sizes adapt during burn-in only (Robbins-Monro towards
 acceptance rates 0.44 for one-parameter blocks, 0.25 otherwise; Roberts &
 Rosenthal 2009) and are fixed afterwards, so production is a valid MCMC.
-Many chains run in parallel from Laplace draws; convergence is judged by the
+Many chains run in parallel from Laplace draws; at the end of burn-in a
+chain whose mean log-posterior lies far below the others' (below the first
+quartile by twice the interquartile range; Vrugt et al. 2009) is restarted
+from the state of another chain, so that one chain left in a tail does not
+bias the bands; convergence is judged by the
 integrated autocorrelation time and the split R-hat (Vehtari et al. 2021).
 An ensemble sampler (emcee) needs at least twice as many walkers as
 parameters and mixes slowly in 25-85 dimensions; this scheme uses the block
@@ -110,6 +114,11 @@ for the parametrization of hierarchical models. Statistical Science 22,
 59-73.
 Roberts, G. O. & Rosenthal, J. S. (2009) Examples of adaptive MCMC. Journal
 of Computational and Graphical Statistics 18, 349-367.
+Vrugt, J. A., ter Braak, C. J. F., Diks, C. G. H., Robinson, B. A., Hyman,
+J. M. & Higdon, D. (2009) Accelerating Markov chain Monte Carlo simulation by
+differential evolution with self-adaptive randomized subspace sampling.
+International Journal of Nonlinear Sciences and Numerical Simulation 10,
+273-290.
 Rosner, B. (1983) Percentage points for a generalized ESD many-outlier
 procedure. Technometrics 25, 165-172.
 Vehtari, A., Gelman, A., Simpson, D., Carpenter, B. & Bürkner, P.-C. (2021)
@@ -194,6 +203,9 @@ N_CHAINS = 32
 DEFAULT_N_SWEEPS = {"olivine": 1200, "plagioclase": 2000}
 #: Share of the sweeps used as burn-in (adaptation, covariance refresh).
 BURN_FRACTION = 0.4
+#: Differential-evolution move (ter Braak 2006): share of the moves that use
+#: a jump factor of 1 (to hop between modes) instead of 2.38/sqrt(2 d).
+DE_HOP = 0.1
 #: Largest split R-hat accepted without a warning (Vehtari et al. 2021).
 MAX_RHAT = 1.01
 #: Bounds of the hierarchical population mean of logit r, and its spread.
@@ -876,6 +888,8 @@ class _Chain:
     accept_local: float
     accept_shared: float
     accept_independence: float
+    accept_de: float
+    n_restarted: int
     n_chains: int
     n_sweeps: int
     burn_in: int
@@ -942,6 +956,23 @@ def _independence(kept):
     return dist, mean, sd
 
 
+def _stuck_chains(logp: np.ndarray) -> np.ndarray:
+    """Chains whose mean log-target lies far below the others' (boolean, per chain).
+
+    ``logp`` is (sweeps, chains) from the second half of the burn-in. A chain
+    is stuck when its mean lies below the first quartile of the chain means
+    by more than twice their interquartile range (the outlier-chain test of
+    Vrugt et al. 2009): a chain left in a tail or a minor mode that the
+    others never visit, which would inflate R-hat and bias the bands.
+    """
+    means = np.where(np.isfinite(logp), logp, -np.inf).mean(axis=0)
+    finite = np.isfinite(means)
+    if finite.sum() < 4:
+        return ~finite
+    q1, q3 = np.percentile(means[finite], [25, 75])
+    return ~finite | (means < q1 - 2.0 * (q3 - q1))
+
+
 def _sample(joint: _Joint, v_best: np.ndarray, cov: np.ndarray, *, n_chains: int,
             n_sweeps: int, seed: int) -> _Chain:
     """Metropolis-within-Gibbs with parallel crystal blocks and a shear move."""
@@ -976,8 +1007,15 @@ def _sample(joint: _Joint, v_best: np.ndarray, cov: np.ndarray, *, n_chains: int
     W = start
     lc, ls = joint.log_parts(full(W))
     kept = []
+    logp_burn = []  # log-target of every chain over the burn-in
+    n_restarted = 0
     indep = indep_mean = indep_sd = None
-    acc_l = acc_s = acc_ind = 0.0
+    acc_l = acc_s = acc_ind = acc_de = 0.0
+    order = rng.permutation(n_chains)
+    halves = [(order[: n_chains // 2], order[n_chains // 2 :]),
+              (order[n_chains // 2 :], order[: n_chains // 2])]
+    de_gamma = 2.38 / np.sqrt(2.0 * free.size)
+    de_jitter = 1e-4 * np.sqrt(np.maximum(np.diag(cov), 0.0))
     n_prod = 0
     for t in range(n_sweeps):
         adapt = t < burn
@@ -1014,6 +1052,27 @@ def _sample(joint: _Joint, v_best: np.ndarray, cov: np.ndarray, *, n_chains: int
         W = np.where(accept[:, None], prop, W)
         lc = np.where(accept[:, None], lc_new, lc)
         ls = np.where(accept, ls_new, ls)
+        # --- differential-evolution move over every free parameter -------
+        # Each half of the chains jumps along the difference of two chains of
+        # the other half (held fixed meanwhile, so the move is symmetric):
+        # the ensemble's spread follows the curved ridge of parent melt, Kd,
+        # F_rim and the cores, which the fixed-shape moves cross slowly.
+        for upd, ref in halves:
+            n_u = upd.size
+            g = np.where(rng.random(n_u) < DE_HOP, 1.0, de_gamma)
+            a = rng.integers(ref.size, size=n_u)
+            b = (a + 1 + rng.integers(ref.size - 1, size=n_u)) % ref.size
+            prop = (W[upd] + g[:, None] * (W[ref[a]] - W[ref[b]])
+                    + de_jitter * rng.standard_normal((n_u, free.size)))
+            lc_new, ls_new = joint.log_parts(full(prop))
+            new = lc_new.sum(axis=1) + ls_new
+            old = lc[upd].sum(axis=1) + ls[upd]
+            acc_d = (np.log(rng.random(n_u)) < new - old) & np.isfinite(new)
+            W[upd] = np.where(acc_d[:, None], prop, W[upd])
+            lc[upd] = np.where(acc_d[:, None], lc_new, lc[upd])
+            ls[upd] = np.where(acc_d, ls_new, ls[upd])
+            if not adapt:
+                acc_de += float(acc_d.mean()) / len(halves)
         # --- independence move over every free parameter (production) ----
         if indep is not None:
             z = indep.rvs(size=n_chains, random_state=rng).reshape(n_chains, -1)
@@ -1031,6 +1090,7 @@ def _sample(joint: _Joint, v_best: np.ndarray, cov: np.ndarray, *, n_chains: int
         if adapt:
             log_scale_shared += gamma * (float(accept.mean()) - 0.25)
             kept.append(W.copy())
+            logp_burn.append(lc.sum(axis=1) + ls)
             if t == burn // 2 and burn >= 40:
                 tail = np.concatenate(kept[len(kept) // 2 :], axis=0)
                 emp = np.cov(tail, rowvar=False)
@@ -1042,7 +1102,16 @@ def _sample(joint: _Joint, v_best: np.ndarray, cov: np.ndarray, *, n_chains: int
                     except np.linalg.LinAlgError:
                         pass
             if t == burn - 1:
-                indep, indep_mean, indep_sd = _independence(kept[len(kept) // 2 :])
+                stuck = _stuck_chains(np.array(logp_burn[len(logp_burn) // 2 :]))
+                if stuck.any() and not stuck.all():
+                    # restart each stuck chain from the state of a chain that is not
+                    src = rng.choice(np.flatnonzero(~stuck), size=int(stuck.sum()))
+                    W[stuck] = W[src]
+                    lc[stuck], ls[stuck] = lc[src], ls[src]
+                    n_restarted = int(stuck.sum())
+                good = np.flatnonzero(~stuck)
+                indep, indep_mean, indep_sd = _independence(
+                    [k[good] for k in kept[len(kept) // 2 :]])
                 kept = []
         else:
             acc_s += float(accept.mean())
@@ -1057,7 +1126,8 @@ def _sample(joint: _Joint, v_best: np.ndarray, cov: np.ndarray, *, n_chains: int
     return _Chain(
         draws=chain, tau=tau, ess=ess, rhat=_split_rhat(chain),
         accept_local=acc_l / max(n_prod, 1), accept_shared=acc_s / max(n_prod, 1),
-        accept_independence=acc_ind / max(n_prod, 1),
+        accept_independence=acc_ind / max(n_prod, 1), accept_de=acc_de / max(n_prod, 1),
+        n_restarted=n_restarted,
         n_chains=n_chains, n_sweeps=n_sweeps, burn_in=burn,
     )
 
@@ -2161,6 +2231,7 @@ def fit_sample(
         "n_chains": float(ch.n_chains), "n_sweeps": float(ch.n_sweeps),
         "burn_in": float(ch.burn_in), "accept_local": ch.accept_local,
         "accept_shared": ch.accept_shared, "accept_independence": ch.accept_independence,
+        "accept_de": ch.accept_de, "chains_restarted": ch.n_restarted,
         "seconds_own_fits": t_own - t_start, "seconds_screening": t_screen - t_own,
         "seconds_sampling": t_sample - t_screen,
         "seconds_total": time.perf_counter() - t_start,

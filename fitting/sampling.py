@@ -36,6 +36,7 @@ __all__ = [
     "sample_posterior",
     "credible_band",
     "DEFAULT_N_STEPS",
+    "MAX_AUTO_STEPS",
     "BURN_FRACTION",
 ]
 
@@ -43,6 +44,11 @@ __all__ = [
 #: KD(Ca-Na) and F) are skewed and mix more slowly: with 600 steps their 95%
 #: bands came out too narrow in the coverage benchmark (benchmarks/fit.py).
 DEFAULT_N_STEPS = {"olivine": 600, "plagioclase": 2000}
+#: Longest run, per mineral, to which a fit continues its chain by itself
+#: when the user gave no step count and the effective sample size after the
+#: default steps is below MIN_ESS (a free section and diffusion together
+#: lengthen the autocorrelation to 15-35 olivine steps).
+MAX_AUTO_STEPS = {"olivine": 3000, "plagioclase": 6000}
 #: Share of the sampler steps discarded as burn-in.
 BURN_FRACTION = 0.25
 
@@ -203,6 +209,7 @@ def run_ensemble(
     progress: bool = False,
     modes: np.ndarray | None = None,
     mode_weights: np.ndarray | None = None,
+    max_steps: int | None = None,
 ) -> ChainSummary:
     """Sample a posterior with emcee, starting next to the best fit.
 
@@ -235,6 +242,11 @@ def run_ensemble(
         starts in every mode instead of having to find the others.
     mode_weights : ndarray, shape (q + 1,), optional
         Relative weights of ``best`` and ``modes`` (default equal).
+    max_steps : int, optional
+        When given and the effective sample size after ``n_steps`` is below
+        :data:`MIN_ESS`, the production chain is continued (same moves, from
+        where it stopped) by the steps that size needs, up to ``max_steps``
+        in all; ``n_steps`` of the result is the length actually run.
 
     Returns
     -------
@@ -306,6 +318,15 @@ def run_ensemble(
         n_walkers, n_par, log_prob, vectorize=True, moves=moves
     ))
     sampler.run_mcmc(state, n_steps - burn_in, progress=progress, skip_initial_state_check=True)
+    if max_steps is not None and max_steps > n_steps:
+        # continue (not restart) a chain whose effective sample is too small
+        tau0 = _tau(sampler.get_chain())
+        post_needed = 1.25 * MIN_ESS * float(np.max(tau0)) / n_walkers
+        extra = int(np.ceil((post_needed - (n_steps - burn_in)) / 100.0) * 100)
+        extra = min(extra, max_steps - n_steps)
+        if extra > 0:
+            sampler.run_mcmc(None, extra, progress=progress)
+            n_steps += extra
     chain = sampler.get_chain()  # (steps, walkers, p)
     # A walker that never moved in production (stranded in a small, narrow
     # mode that no move reaches or leaves) carries no information on the
@@ -317,14 +338,8 @@ def run_ensemble(
     else:
         log_prob_kept = sampler.get_log_prob()
     n_walkers = chain.shape[1]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        # a walker that never moved has a zero autocorrelation at lag 0
-        tau = emcee.autocorr.integrated_time(chain, c=5, tol=0, quiet=True)
     n_kept = chain.shape[0]
-    # A parameter whose walkers never moved has no finite tau: count it as
-    # not converged (tau = chain length, so the ESS is tiny and a warning follows).
-    tau = np.asarray(tau, dtype=float)
-    tau = np.maximum(np.where(np.isfinite(tau), tau, float(n_kept)), 1.0)
+    tau = _tau(chain)
     ess = n_kept * n_walkers / tau
     thin = max(1, int(0.5 * float(np.min(tau))))
     # Every walker starts where the posterior is positive and a move to a
@@ -345,6 +360,20 @@ def run_ensemble(
         burn_in=int(burn_in),
         thin=thin,
     )
+
+
+def _tau(chain: np.ndarray) -> np.ndarray:
+    """Integrated autocorrelation time per parameter of a (steps, walkers, p) chain [steps].
+
+    A parameter whose walkers never moved has no finite tau: it counts as
+    not converged (tau = chain length, so the ESS is tiny and a warning
+    follows).
+    """
+    with np.errstate(invalid="ignore", divide="ignore"):
+        # a walker that never moved has a zero autocorrelation at lag 0
+        tau = emcee.autocorr.integrated_time(chain, c=5, tol=0, quiet=True)
+    tau = np.asarray(tau, dtype=float)
+    return np.maximum(np.where(np.isfinite(tau), tau, float(chain.shape[0])), 1.0)
 
 
 #: At the end of the burn-in of a sampler started in several modes, walkers
@@ -471,6 +500,12 @@ class Posterior:
         Parameters whose chain is too short (ESS or length in tau).
     message : str
         Plain-language remedy when ``short`` is not empty, else "".
+    steps_needed : int
+        Steps (burn-in included) the chain would need to pass the checks, as
+        in ``message``; 0 when it passes.
+    extended_from : int
+        The default step count when the sampler was rerun longer because the
+        default was too short (:data:`MAX_AUTO_STEPS`), else 0.
     """
 
     chain: ChainSummary
@@ -478,6 +513,8 @@ class Posterior:
     samples: np.ndarray
     short: tuple[str, ...] = ()
     message: str = ""
+    steps_needed: int = 0
+    extended_from: int = 0
 
 
 def sampler_settings(mineral: str, n_walkers: int, n_steps: int | None) -> tuple[int, int]:
@@ -538,6 +575,7 @@ def sample_posterior(
     progress: bool = False,
     modes: np.ndarray | None = None,
     mode_weights: np.ndarray | None = None,
+    max_steps: int | None = None,
 ) -> Posterior:
     """Sample the posterior of ``problem`` starting at its best fit (stage 4).
 
@@ -558,6 +596,10 @@ def sample_posterior(
         Other optima to start walkers in (problem's free parameters).
     mode_weights : ndarray, shape (q + 1,), optional
         Relative weights of ``theta_best`` and ``modes``.
+    max_steps : int, optional
+        Continue a chain whose effective sample size is too small, up to
+        this many steps in all (see :func:`run_ensemble`); the result's
+        ``extended_from`` then holds ``n_steps``.
 
     Returns
     -------
@@ -589,6 +631,7 @@ def sample_posterior(
             progress=progress,
             modes=None if modes is None or not np.size(modes) else problem.to_sampler(modes),
             mode_weights=mode_weights,
+            max_steps=max_steps,
         )
     except (ValueError, np.linalg.LinAlgError) as exc:
         raise FitError(
@@ -598,12 +641,15 @@ def sample_posterior(
         ) from exc
     samples = problem.from_sampler(chain.thinned)
     flat = problem.from_sampler(chain.flat)
+    extended_from = n_steps if chain.n_steps > n_steps else 0
+    n_steps = chain.n_steps
     short = tuple(
         n
         for n, e, t in zip(problem.free, chain.ess, chain.tau, strict=True)
         if e < MIN_ESS or (n_steps - burn_in) < MIN_TAU_MULTIPLE * t
     )
     message = ""
+    need = 0
     if short:
         post_needed = max(
             MIN_TAU_MULTIPLE * float(np.max(chain.tau)),
@@ -615,4 +661,5 @@ def sample_posterior(
             f"{float(np.min(chain.ess)):.0f}, autocorrelation time "
             f"{float(np.max(chain.tau)):.0f} steps); run longer: --steps {need}."
         )
-    return Posterior(chain=chain, flat=flat, samples=samples, short=short, message=message)
+    return Posterior(chain=chain, flat=flat, samples=samples, short=short, message=message,
+                     steps_needed=need, extended_from=extended_from)

@@ -608,6 +608,12 @@ def summarise_fit(
     label = _MAJOR_LABEL[problem.mineral]
     emit = []  # (category, text), issued in order at the end
     warn_list = list(choice.messages)
+    if posterior.extended_from:
+        warn_list.append(
+            f"the default {posterior.extended_from} sampler steps gave too few effective "
+            f"draws for this posterior; the chain was continued to {chain.n_steps} steps "
+            "(set --steps to choose the length yourself)."
+        )
     if posterior.message:
         warn_list.append(posterior.message)
         emit.append((ConvergenceWarning, posterior.message))

@@ -277,6 +277,27 @@ def test_short_chain_warns_with_a_remedy():
     assert any("run longer" in w for w in r.warnings)
 
 
+def test_a_default_chain_with_too_few_effective_draws_is_continued(monkeypatch):
+    from zoning.fitting import sampling
+
+    truth = dict(melt_mg_number=0.7, f_rim=0.1, retention=0.3, kd=0.3)
+    tr = synthetic("olivine", truth, melt=MELT_OL, n=20, seed=8)
+    monkeypatch.setitem(sampling.DEFAULT_N_STEPS, "olivine", 100)
+    monkeypatch.setitem(sampling.MAX_AUTO_STEPS, "olivine", 300)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        warnings.simplefilter("ignore", CalibrationRangeWarning)
+        r = fit_traverse(tr, melt=MELT_OL, seed=0, n_walkers=12, **GROWTH_ONLY)
+        given = fit_traverse(tr, melt=MELT_OL, seed=0, n_walkers=12, n_steps=100,
+                             **GROWTH_ONLY)
+    assert 100 < r.settings["n_steps"] <= 300
+    assert any("default 100 sampler steps gave too few effective draws" in w
+               for w in r.warnings)
+    # A step count the user gave is kept as given.
+    assert given.settings["n_steps"] == 100
+    assert not any("were too short" in w for w in given.warnings)
+
+
 def test_robust_loss_resists_a_stray_spot_and_says_so():
     truth = dict(melt_mg_number=0.72, f_rim=0.12, retention=0.3, kd=0.30)
     tr = synthetic("olivine", truth, melt=MELT_OL, seed=9)

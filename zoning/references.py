@@ -345,6 +345,12 @@ _ENTRIES = (
     _ref("roberts_rosenthal_2009", ["Roberts, G. O.", "Rosenthal, J. S."], 2009,
          "Examples of adaptive MCMC", "Journal of Computational and Graphical Statistics",
          "18", "349-367", "10.1198/jcgs.2009.06134"),
+    _ref("vrugt_2009", ["Vrugt, J. A.", "ter Braak, C. J. F.", "Diks, C. G. H.",
+                        "Robinson, B. A.", "Hyman, J. M.", "Higdon, D."], 2009,
+         "Accelerating Markov chain Monte Carlo simulation by differential evolution with "
+         "self-adaptive randomized subspace sampling",
+         "International Journal of Nonlinear Sciences and Numerical Simulation", "10",
+         "273-290", "10.1515/IJNSNS.2009.10.3.273"),
     _ref("rosner_1983", ["Rosner, B."], 1983,
          "Percentage points for a generalized ESD many-outlier procedure", "Technometrics",
          "25", "165-172", "10.1080/00401706.1983.10487848"),
