@@ -202,6 +202,8 @@ def _map(cases, workers):
 
 
 def _crashes(table) -> int:
+    if "crash" not in table:  # a part that was skipped (--n-... 0)
+        return 0
     crashed = table[table["crash"] != ""]
     for _, r in crashed.iterrows():
         print(f"    crash: traverse {r['k']} ({r['family'] or r['mineral']}): {r['crash']}")

@@ -206,6 +206,10 @@ BURN_FRACTION = 0.4
 #: Differential-evolution move (ter Braak 2006): share of the moves that use
 #: a jump factor of 1 (to hop between modes) instead of 2.38/sqrt(2 d).
 DE_HOP = 0.1
+#: Floor of the logarithmic sampler coordinates, relative to the upper
+#: bound (F_core / F_rim, F_rim, trace contents): values below it are not
+#: sampled (an F_core within 1e-6 of the anchor's is the anchor's).
+LOG_FLOOR = 1e-6
 #: Largest split R-hat accepted without a warning (Vehtari et al. 2021).
 MAX_RHAT = 1.01
 #: Bounds of the hierarchical population mean of logit r, and its spread.
@@ -688,6 +692,13 @@ class _Joint:
     # melt ratio and Kd separately; as in single fits the sampler works with
     # X0 = the crystal in equilibrium with the parent melt instead of the
     # melt ratio y0, keeping the flat prior on y0 through the Jacobian.
+    # F_rim, each crystal's F_core / F_rim and the initial melt trace
+    # contents are sampled as logarithms: what a crystal's spots fix is its
+    # F_core = (F_core / F_rim) F_rim and its trace contents relative to the
+    # melt's, so the ridge along which F_rim and every core trade off, curved
+    # (hyperbolic) in the natural parameters, is straight in the logarithms
+    # and the linear moves follow it. The flat priors are kept through the
+    # Jacobian (d v / d log v = v).
     def _k(self, w):
         if "kd" in self.shared:
             kd = w[:, self.shared.index("kd")]
@@ -695,10 +706,29 @@ class _Joint:
             kd = np.full(w.shape[0], self.s.kd0)
         return np.asarray(self.s.model.law.kernel_k(kd), dtype=float)
 
+    def _log_columns(self) -> np.ndarray:
+        logged = {"f_rim"} | {p for p, _k, _o in self.s.trace_params}
+        cols = [self.index(n) for n in self.shared if n in logged]
+        for c in range(self.C):
+            cols += [self.index(n, c) for n in ("f_core_fraction", "f_rim") if n in self.local]
+        return np.array(cols, dtype=int)
+
+    def sampler_bounds(self):
+        lo, hi = self.lower.copy(), self.upper.copy()
+        lo[0], hi[0] = 0.0, 1.0
+        L = self._log_columns()
+        lo[L] = np.log(np.maximum(self.lower[L], LOG_FLOOR * self.upper[L]))
+        hi[L] = np.log(self.upper[L])
+        return lo, hi
+
     def to_sampler(self, v):
         v = np.atleast_2d(np.asarray(v, dtype=float))
         w = v.copy()
         w[:, 0] = equilibrium_crystal(v[:, 0], self._k(v))
+        L = self._log_columns()
+        slo, _ = self.sampler_bounds()
+        with np.errstate(divide="ignore"):
+            w[:, L] = np.maximum(np.log(np.maximum(v[:, L], 0.0)), slo[L])
         return w
 
     def from_sampler(self, w):
@@ -707,18 +737,26 @@ class _Joint:
         k = self._k(w)
         x = w[:, 0]
         v[:, 0] = k * x / (1.0 - x + k * x)
+        L = self._log_columns()
+        slo, _ = self.sampler_bounds()
+        # at the floor: the natural lower bound itself (the anchor's F_core of 0)
+        v[:, L] = np.where(w[:, L] <= slo[L], self.lower[L], np.exp(w[:, L]))
         return v
 
-    def sampler_bounds(self):
-        lo, hi = self.lower.copy(), self.upper.copy()
-        lo[0], hi[0] = 0.0, 1.0
-        return lo, hi
-
     def log_jacobian(self, w):
+        """Log |d natural / d sampler|: per crystal (m, C) and shared (m,)."""
         k = self._k(w)
         x = w[:, 0]
         with np.errstate(all="ignore"):
-            return np.log(k) - 2.0 * np.log(1.0 - x + k * x)
+            shared = np.log(k) - 2.0 * np.log(1.0 - x + k * x)
+        L = self._log_columns()
+        free = ~self.fixed[L]
+        is_shared = L < self.S
+        shared = shared + w[:, L[is_shared & free]].sum(axis=1)
+        local = np.zeros((w.shape[0], self.C))
+        sel = ~is_shared & free
+        np.add.at(local.T, (L[sel] - self.S) // self.Q, w[:, L[sel]].T)
+        return local, shared
 
     def log_parts(self, w):
         """Per-crystal (m, C) and shared (m,) log-target in sampler coordinates."""
@@ -730,13 +768,14 @@ class _Joint:
                              & (v[:, : self.S] >= lo[: self.S]) & (v[:, : self.S] <= hi[: self.S]),
                              axis=1)
         local_w = w[:, self.S :].reshape(-1, self.C, self.Q)
-        llo = lo[self.S :].reshape(self.C, self.Q)
-        lhi = hi[self.S :].reshape(self.C, self.Q)
+        llo = slo[self.S :].reshape(self.C, self.Q)
+        lhi = shi[self.S :].reshape(self.C, self.Q)
         bad_local = ~np.all((local_w >= llo) & (local_w <= lhi), axis=2)
         vc = np.clip(v, lo, hi)
         per, pr = self.chi2_blocks(vc)
-        lc = np.where(bad_local, -np.inf, -0.5 * per)
-        ls = -0.5 * pr + self.log_jacobian(w)
+        jac_local, jac_shared = self.log_jacobian(w)
+        lc = np.where(bad_local, -np.inf, -0.5 * per + jac_local)
+        ls = -0.5 * pr + jac_shared
         ls = np.where(bad_shared | ~np.isfinite(ls), -np.inf, ls)
         return lc, ls
 

@@ -151,6 +151,9 @@ def joint_methods(
                   "Metropolis-within-Gibbs with one block per crystal and a shared block"),
         MethodUse("posterior sampling", "roberts_rosenthal_2009",
                   "step sizes adapted during burn-in only"),
+        MethodUse("posterior sampling", "ter_braak_2006",
+                  "a differential-evolution move over every parameter, each half of the "
+                  "chains jumping along differences of the other half"),
         MethodUse("posterior sampling", "vrugt_2009",
                   "a chain left far below the others at the end of burn-in (outlier test "
                   "on the chains' mean log-posterior) restarted from another chain"),
