@@ -582,3 +582,16 @@ def test_profile_section_and_core_offsets():
     plain = CrystallizationModel("olivine", BASALT)
     shifted = plain.profile([10.0, 60.0], 100.0, f_rim=0.1, core_offset_um=10.0)
     assert_allclose(shifted["f"], [0.0, 0.1 * 0.5**3], rtol=1e-12)
+
+
+def test_a_melt_mgo_just_below_zero_gives_no_temperature_not_an_error():
+    # Sampler proposals next to exhaustion can integrate the melt MgO to a
+    # hair below 0 (seen: -2e-4 wt%); the path then has no temperature there
+    # (NaN, rejected by the fit) instead of the thermometer's domain error.
+    model = CrystallizationModel("olivine", {"FeO": 9.5})
+    f = np.array([[0.40, 0.45]])
+    y = np.array([[0.5, 0.1]])
+    k = np.full((1, 2), 0.3)
+    a = np.array([[0.2, -1e-6]])  # melt Mg cations per unit melt, the second past the end
+    out, _ = model._outputs(f, y, k, a, np.array([[0.4, 0.1]]))
+    assert np.isfinite(out["temperature_c"][0, 0]) and np.isnan(out["temperature_c"][0, 1])

@@ -1078,7 +1078,12 @@ class CrystallizationModel(_ModelBase):
             f"melt_{law.other_oxide.lower()}_wt": to_b * (s_per_melt - a_per_melt),
         }
         if self.thermometer:
-            out["temperature_c"] = THERMOMETERS[self.thermometer](melt_a, warn=False)
+            # A melt MgO below 0 lies past the end of the path this melt can
+            # take (reached in sampler proposals next to exhaustion): no
+            # temperature there (NaN), rather than an error from the thermometer.
+            with np.errstate(invalid="ignore"):
+                reachable = np.where(melt_a < 0, np.nan, melt_a)
+            out["temperature_c"] = THERMOMETERS[self.thermometer](reachable, warn=False)
         else:
             out["temperature_c"] = np.full_like(f, self.temperature_c)
         return out, x
