@@ -87,8 +87,8 @@ CAUTIONS = (
     "(the core looks less primitive, zones look wider). Single fits fit the offset h/R with "
     "the prior of a random cut unless it is fixed; joint fits take every cut through the "
     "core. Measured on invented crystals (benchmarks/fit.py): an unmodelled cut at h/R = 0.5 "
-    "raised r by about 0.1 on average (up to 0.35); with h/R fitted, r was within 0.04 of "
-    "the truth.",
+    "raised r by about 0.1 on average (up to 0.35); with h/R fitted, r lay 0.02-0.08 above "
+    "the truth, inside its band.",
     "Choice of Kd and reference melt: the parent melt Mg#/Ca# follows directly from the "
     "exchange coefficient, and the speed at which the melt evolves from the reference melt's "
     "oxide contents. A different Kd or reference melt gives a different answer; the bands "
