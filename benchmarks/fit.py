@@ -191,6 +191,9 @@ def run_case(case: dict) -> dict:
             continue
         row[f"in_{q}"] = bool(e.lo95 <= value <= e.hi95)
         row[f"constrained_{q}"] = bool(e.constrained)
+        # the numbers behind the flag, for reading the misses in --table
+        row[f"true_{q}"], row[f"lo95_{q}"], row[f"hi95_{q}"] = value, e.lo95, e.hi95
+    row["n_steps"] = int(result.settings["n_steps"])
     return row
 
 

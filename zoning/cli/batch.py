@@ -100,7 +100,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="log10 fO2 relative to QFM for the olivine Fe-Mg diffusion time "
                         "(default 0)")
     g.add_argument("--walkers", type=int, help="sampler walkers")
-    g.add_argument("--steps", type=int, help="sampler steps")
+    g.add_argument("--steps", type=int,
+                   help="sampler steps (default: as zoning fit, continued when too short)")
     g.add_argument("--seed", type=int, help="random seed")
     g.add_argument("--thermometer", choices=("helz_thornber_1987", "montierth_1995", "shea_2022"),
                    help="olivine: glass MgO thermometer of the reported melt temperature")

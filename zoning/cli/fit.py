@@ -213,7 +213,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="sampler walkers (default 64; with --joint: chains, default 32)")
     p.add_argument("--steps", type=int,
                    help="sampler steps including burn-in (default 600 olivine, "
-                        "2000 plagioclase)")
+                        "2000 plagioclase, continued up to 3000/6000 when they leave fewer "
+                        "than 1000 effective draws; a number given here is kept as given)")
     p.add_argument("--joint", action="store_true",
                    help="fit all crystals together as one sample: shared parent melt, Kd and "
                         "r, per-crystal F_core, antecryst test")
