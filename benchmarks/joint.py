@@ -112,7 +112,7 @@ def validate(seed=5):
     joint_samples = {n: res.samples[:, res.parameter_names.index(n)] for n in SHARED
                      if n in res.parameter_names}
     # the long chain runs on the private joint problem of the fit
-    from zoning.fitting.fit import _build_model
+    from zoning.fitting.problem import _build_model
 
     model = _build_model("olivine", js.MELT, None, 0.10, ["Ni"], "sphere", None)
     st = J._Settings(model=model, mineral="olivine", ratio="melt_mg_number", kd0=0.30,
