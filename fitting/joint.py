@@ -558,6 +558,9 @@ class _Joint:
         self.n_data = int((self.W > 0).sum() + sum((w > 0).sum() for w in self.trace_w.values()))
         self.fixed = np.zeros(self.D, dtype=bool)
         self.hier = settings.retention_mode == "hierarchical"
+        # sampler coordinates (see the section below): fixed by the layout
+        self._log_cols = self._log_columns()
+        self._slo, self._shi = self._sampler_bounds()
 
     # ------------------------------------------------------------ layout
     def index(self, name: str, crystal: int | None = None) -> int:
@@ -713,22 +716,24 @@ class _Joint:
             cols += [self.index(n, c) for n in ("f_core_fraction", "f_rim") if n in self.local]
         return np.array(cols, dtype=int)
 
-    def sampler_bounds(self):
+    def _sampler_bounds(self):
         lo, hi = self.lower.copy(), self.upper.copy()
         lo[0], hi[0] = 0.0, 1.0
-        L = self._log_columns()
+        L = self._log_cols
         lo[L] = np.log(np.maximum(self.lower[L], LOG_FLOOR * self.upper[L]))
         hi[L] = np.log(self.upper[L])
         return lo, hi
+
+    def sampler_bounds(self):
+        return self._slo.copy(), self._shi.copy()
 
     def to_sampler(self, v):
         v = np.atleast_2d(np.asarray(v, dtype=float))
         w = v.copy()
         w[:, 0] = equilibrium_crystal(v[:, 0], self._k(v))
-        L = self._log_columns()
-        slo, _ = self.sampler_bounds()
+        L = self._log_cols
         with np.errstate(divide="ignore"):
-            w[:, L] = np.maximum(np.log(np.maximum(v[:, L], 0.0)), slo[L])
+            w[:, L] = np.maximum(np.log(np.maximum(v[:, L], 0.0)), self._slo[L])
         return w
 
     def from_sampler(self, w):
@@ -737,10 +742,9 @@ class _Joint:
         k = self._k(w)
         x = w[:, 0]
         v[:, 0] = k * x / (1.0 - x + k * x)
-        L = self._log_columns()
-        slo, _ = self.sampler_bounds()
+        L = self._log_cols
         # at the floor: the natural lower bound itself (the anchor's F_core of 0)
-        v[:, L] = np.where(w[:, L] <= slo[L], self.lower[L], np.exp(w[:, L]))
+        v[:, L] = np.where(w[:, L] <= self._slo[L], self.lower[L], np.exp(w[:, L]))
         return v
 
     def log_jacobian(self, w):
@@ -749,7 +753,7 @@ class _Joint:
         x = w[:, 0]
         with np.errstate(all="ignore"):
             shared = np.log(k) - 2.0 * np.log(1.0 - x + k * x)
-        L = self._log_columns()
+        L = self._log_cols
         free = ~self.fixed[L]
         is_shared = L < self.S
         shared = shared + w[:, L[is_shared & free]].sum(axis=1)
@@ -763,7 +767,7 @@ class _Joint:
         w = np.atleast_2d(w)
         lo, hi = self.lower, self.upper
         v = self.from_sampler(w)
-        slo, shi = self.sampler_bounds()
+        slo, shi = self._slo, self._shi
         bad_shared = ~np.all((w[:, : self.S] >= slo[: self.S]) & (w[:, : self.S] <= shi[: self.S])
                              & (v[:, : self.S] >= lo[: self.S]) & (v[:, : self.S] <= hi[: self.S]),
                              axis=1)
@@ -2319,7 +2323,7 @@ def _samples_written(traverses: Sequence[Traverse]) -> dict[str, list[str]]:
     """Traverse names by the sample name written in their file ("" skipped)."""
     out: dict[str, list[str]] = {}
     for t in traverses:
-        if getattr(t, "sample", ""):
+        if t.sample:
             out.setdefault(t.sample, []).append(t.name)
     return out
 

@@ -500,12 +500,9 @@ class Posterior:
         Parameters whose chain is too short (ESS or length in tau).
     message : str
         Plain-language remedy when ``short`` is not empty, else "".
-    steps_needed : int
-        Steps (burn-in included) the chain would need to pass the checks, as
-        in ``message``; 0 when it passes.
     extended_from : int
-        The default step count when the sampler was rerun longer because the
-        default was too short (:data:`MAX_AUTO_STEPS`), else 0.
+        The default step count when the chain was continued past it because
+        it gave too few effective draws (:data:`MAX_AUTO_STEPS`), else 0.
     """
 
     chain: ChainSummary
@@ -513,7 +510,6 @@ class Posterior:
     samples: np.ndarray
     short: tuple[str, ...] = ()
     message: str = ""
-    steps_needed: int = 0
     extended_from: int = 0
 
 
@@ -649,7 +645,6 @@ def sample_posterior(
         if e < MIN_ESS or (n_steps - burn_in) < MIN_TAU_MULTIPLE * t
     )
     message = ""
-    need = 0
     if short:
         post_needed = max(
             MIN_TAU_MULTIPLE * float(np.max(chain.tau)),
@@ -662,4 +657,4 @@ def sample_posterior(
             f"{float(np.max(chain.tau)):.0f} steps); run longer: --steps {need}."
         )
     return Posterior(chain=chain, flat=flat, samples=samples, short=short, message=message,
-                     steps_needed=need, extended_from=extended_from)
+                     extended_from=extended_from)

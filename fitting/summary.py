@@ -70,7 +70,6 @@ EXHAUSTION_SHARE = 0.85
 EXHAUSTION_REMAINING = 0.1
 
 
-
 def calibration_messages(model, evaluate) -> list[str]:
     """Calibration-range warnings of one forward evaluation, once each, in order.
 
@@ -97,6 +96,7 @@ def calibration_messages(model, evaluate) -> list[str]:
             THERMOMETERS[model.thermometer].check_range(out["melt_mgo_wt"])
     return list(dict.fromkeys(str(w.message) for w in caught
                               if issubclass(w.category, CalibrationRangeWarning)))
+
 
 def _versions() -> dict[str, str]:
     out = {"python": platform.python_version()}

@@ -409,7 +409,7 @@ def _sample_groups(traverses, name) -> dict:
     One group (keyed by ``name`` or "") when ``name`` is given, when any
     traverse names no sample, or when all name the same one.
     """
-    written = [getattr(t, "sample", "") for t in traverses]
+    written = [t.sample for t in traverses]
     if name is not None or not all(written) or len(set(written)) < 2:
         return {name or "": list(traverses)}
     groups: dict[str, list] = {}
