@@ -141,7 +141,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from scipy import optimize, stats
-from zoning.fitting.bestfit import _grid_starts, _optimise
+from zoning.fitting.bestfit import PROCESS_START_LEVELS, _grid_starts, _optimise
 from zoning.fitting.problem import (
     _MELT_OXIDE,
     _RATIO,
@@ -155,6 +155,7 @@ from zoning.fitting.problem import (
     _build_model,
     _major_sigma,
     _parse_range,
+    _process_setting,
     _select_traces,
     _soft_l1,
     _split_sigma,
@@ -179,6 +180,7 @@ from zoning.exceptions import (
     ZoningError,
 )
 from zoning.melt import read_melt
+from zoning.models import SECTION_H_OVER_R_MAX
 from zoning.partitioning import equilibrium_crystal
 from zoning.traverse import MINERALS, Traverse
 
@@ -233,6 +235,48 @@ PROCESS_NOTE = (
     "antecryst; fit doubtful crystals alone (zoning fit FILE without --joint) to test "
     "both, and leave out (--exclude) those that need them."
 )
+#: Stated instead when the section offset h/R is fitted per crystal.
+PROCESS_NOTE_SECTION_FREE = (
+    "joint fits here fit each crystal's section offset h/R (uniform prior on "
+    "[0, {hmax:g}]) but not diffusion after growth: every crystal is taken as unrelaxed "
+    "(L = 0). Diffusion biases r towards equilibrium and can make a crystal look like an "
+    "antecryst; fit doubtful crystals alone (zoning fit FILE without --joint) to test it, "
+    "and leave out (--exclude) those that need it."
+)
+#: Stated instead when the section offset h/R is fixed at a value > 0.
+PROCESS_NOTE_SECTION_FIXED = (
+    "joint fits here take every crystal as cut at the same section offset h/R = {h:g} "
+    "(not fitted) and unrelaxed by diffusion after growth (L = 0). A different cut or "
+    "diffusion biases r towards equilibrium and can make a crystal look like an "
+    "antecryst; fit doubtful crystals alone (zoning fit FILE without --joint) or with "
+    "--section-h-over-r free."
+)
+#: Starting level of a free section offset h/R in the least-squares fits, besides
+#: the crystals' own values: the gradient with respect to h/R vanishes at h = 0
+#: (a cut changes the profile at O(h^2)), so a start at 0 stays there (the
+#: first level of bestfit.PROCESS_START_LEVELS).
+SECTION_START = PROCESS_START_LEVELS["section_h_over_r"][0]
+
+
+def process_note(section_h_over_r) -> str:
+    """Statement of the processes after growth a joint fit models.
+
+    Parameters
+    ----------
+    section_h_over_r : "free" or float
+        The section setting of the fit (0 when growth only).
+
+    Returns
+    -------
+    str
+        :data:`PROCESS_NOTE` for h/R = 0, otherwise the statement of the
+        fitted or fixed section.
+    """
+    if section_h_over_r == "free":
+        return PROCESS_NOTE_SECTION_FREE.format(hmax=SECTION_H_OVER_R_MAX)
+    if float(section_h_over_r) > 0.0:
+        return PROCESS_NOTE_SECTION_FIXED.format(h=float(section_h_over_r))
+    return PROCESS_NOTE
 
 #: Verdicts of a crystal.
 VERDICTS = ("consistent", "likely antecryst", "second melt", "excluded", "undecided")
@@ -481,6 +525,8 @@ class _Settings:
     extra_local: tuple
     trace_params: tuple  # (param, key, oxide)
     robust: bool
+    #: Section offset h/R of every crystal when not fitted (0: cut through the core).
+    section_fixed: float = 0.0
 
     def shared_names(self) -> list[str]:
         names = [self.ratio]
@@ -596,6 +642,8 @@ class _Joint:
         out["f_core"] = local("f_core_fraction") * out["f_rim"]
         for name in self.s.extra_local:
             out[name] = local(name)
+        if "section_h_over_r" not in out and self.s.section_fixed > 0.0:
+            out["section_h_over_r"] = np.full(m * self.C, self.s.section_fixed)
         return out
 
     # -------------------------------------------------------- evaluation
@@ -609,16 +657,19 @@ class _Joint:
         rr = np.broadcast_to(self.R[None], (m, self.C, 1)).reshape(-1, 1)
         exponent = p.get("growth_exponent", self._default("growth_exponent"))
         offset = p.get("core_offset_um", 0.0)
+        section = p.get("section_h_over_r", 0.0)
         f = _geometry.fraction_from_distance(
             xr, rr, p["f_core"][:, None], p["f_rim"][:, None],
             np.reshape(exponent, (-1, 1)) if np.ndim(exponent) else exponent,
             np.reshape(offset, (-1, 1)) if np.ndim(offset) else offset,
             self.s.model.section_offset_um,
+            np.reshape(section, (-1, 1)) if np.ndim(section) else section,
         )
         f = np.clip(f, 0.0, 0.999)
         keys = ["crystal"] + [k for _p, k, _o in self.s.trace_params]
         model_params = {k: val for k, val in p.items()
-                        if k not in ("f_core", "f_rim", "growth_exponent", "core_offset_um")}
+                        if k not in ("f_core", "f_rim", "growth_exponent", "core_offset_um",
+                                     "section_h_over_r")}
         out = {k: np.empty((m * self.C, n)) for k in keys + ["f"]}
         out["f"][:] = f
         if self.hier:
@@ -1197,12 +1248,15 @@ def _own_fit(settings: _Settings, crystal: _Crystal, model) -> _Own:
     free = [settings.ratio, "f_rim", "retention"]
     if settings.kd_sd > 0:
         free.append("kd")
-    free += [n for n in settings.extra_local if n in OPTIONAL_FREE]
+    free += [n for n in settings.extra_local
+             if n in OPTIONAL_FREE or n == "section_h_over_r"]
     free += [t[0] for t in settings.trace_params if t[0] in crystal.traces]
     free = tuple(n for n in order if n in free)
     fixed = {n: float(specs[n].default) for n in order if n not in free}
     if "kd" not in free:
         fixed["kd"] = settings.kd0
+    if "section_h_over_r" not in free:
+        fixed["section_h_over_r"] = float(settings.section_fixed)
     trace_names = {t[0]: t[1] for t in TRACES[settings.mineral]}
     traces = tuple(TraceData(ox, trace_names.get(ox, ox), key, param, obs, sig, ok)
                    for param, (ox, key, obs, sig, ok) in crystal.traces.items())
@@ -1216,7 +1270,13 @@ def _own_fit(settings: _Settings, crystal: _Crystal, model) -> _Own:
         robust=settings.robust,
     )
     starts, _ = _grid_starts(prob)
-    theta, obj, _, _, _ = _optimise(prob, starts[:3])
+    starts = starts[:3]
+    if "section_h_over_r" in free:
+        # the grid holds h/R at 0, where its gradient vanishes: start off-centre too
+        cut = starts.copy()
+        cut[:, free.index("section_h_over_r")] = SECTION_START
+        starts = np.concatenate([starts, cut], axis=0)
+    theta, obj, _, _, _ = _optimise(prob, starts)
     if not np.isfinite(obj):
         raise FitError(
             f"crystal {crystal.name!r}: no start gave a finite model; check the reference "
@@ -1348,6 +1408,27 @@ def _start(joint: _Joint, owns: Sequence[_Own], y0: float) -> np.ndarray:
     return np.clip(v, joint.lower, joint.upper)
 
 
+def _section_starts(joint: _Joint, starts) -> list[np.ndarray]:
+    """Return copies of the starts with every crystal's h/R at :data:`SECTION_START`.
+
+    Empty when h/R is not fitted. The least-squares gradient with respect to
+    h/R vanishes at h = 0, so a crystal started there stays there; the copies
+    let the fit leave a centred cut when the data call for an off-centre one.
+    """
+    if "section_h_over_r" not in joint.local:
+        return []
+    cols = [joint.index("section_h_over_r", c) for c in range(joint.C)]
+    out = []
+    for v0 in starts:
+        v0 = np.array(v0, dtype=float)
+        if np.all(np.isclose(v0[cols], SECTION_START)):
+            continue
+        v1 = v0.copy()
+        v1[cols] = SECTION_START
+        out.append(v1)
+    return out
+
+
 def _anchor(joint: _Joint, v: np.ndarray, exclude: int | None = None) -> int:
     """Fix F_core = 0 for the crystal with the smallest F_core; return its index."""
     cols = [joint.index("f_core_fraction", c) for c in range(joint.C)]
@@ -1374,6 +1455,7 @@ def _best_joint(settings, crystals, owns, starts=None, extra_starts=()):
                           for o in owns])
         levels = sorted({float(np.max(y_own)), float(np.median(y_own))}, reverse=True)
         starts = [_start(joint, owns, y) for y in levels]
+        starts += _section_starts(joint, starts)
     starts = [*extra_starts, *starts]
     best = (None, np.inf, 0)
     for v0 in starts:
@@ -1435,6 +1517,7 @@ def _h1_value(settings, crystal, own, starts) -> tuple[float, int]:
     starts = list(starts(h1))
     if not np.isfinite(own.h1):
         starts.insert(0, _own_to_h1(own, h1))
+    starts += _section_starts(h1, starts)
     _, obj = _fit_joint(h1, starts, max_nfev=H1_MAX_EVALS)
     own.h1 = min(own.h1, obj, own.objective)
     return own.h1, h1.D
@@ -1907,6 +1990,7 @@ def fit_sample(
     seed: int = 0,
     n_chains: int = N_CHAINS,
     n_sweeps: int | None = None,
+    section_h_over_r: str | float | None = None,
 ) -> SampleFitResult:
     """Fit the crystals of one sample jointly: one parent melt, Kd and r.
 
@@ -1942,6 +2026,13 @@ def fit_sample(
         Sampler chains and sweeps per chain (burn-in, the first
         :data:`BURN_FRACTION`, included); default sweeps
         :data:`DEFAULT_N_SWEEPS` of the mineral.
+    section_h_over_r : None, "free" or float, optional
+        Section offset h/R of each crystal [1] (distance of the section plane
+        from the crystal centre over the true radius). None (default): every
+        crystal is cut through its centre (growth only, h/R = 0); "free": fitted
+        per crystal, uniform prior on [0, :data:`zoning.models.SECTION_H_OVER_R_MAX`]
+        (as single fits); a number in [0, 1): that offset for every crystal.
+        Geometry "slab" accepts only None or 0 (an offset changes nothing there).
 
     Returns
     -------
@@ -1993,6 +2084,12 @@ def fit_sample(
         raise ZoningError(
             f"cannot free {unknown} per crystal; expected any of {list(OPTIONAL_FREE)}."
         )
+    section = 0.0
+    if section_h_over_r is not None:
+        # the single-fit rules and wording (slab, range, "free" or a number)
+        section = _process_setting("section_h_over_r", section_h_over_r, mineral, geometry,
+                                   (), [])
+    extra_local = extra + (("section_h_over_r",) if section == "free" else ())
     names = _unique_names(traverses)
     exclude = tuple(exclude)
     missing = [e for e in exclude if e not in names and e not in [t.name for t in traverses]]
@@ -2058,11 +2155,11 @@ def fit_sample(
     kd0, kd_sd_v = _kd_prior(mineral, kd, kd_sd, model)
     settings = _Settings(
         model=model, mineral=mineral, ratio=ratio, kd0=kd0, kd_sd=kd_sd_v,
-        f_rim_mode=f_rim, retention_mode=retention, extra_local=extra,
+        f_rim_mode=f_rim, retention_mode=retention, extra_local=extra_local,
         trace_params=tuple((p, key, ox) for p, key, ox, _n in chosen_all.values()),
-        robust=bool(robust),
+        robust=bool(robust), section_fixed=0.0 if section == "free" else float(section),
     )
-    n_own = 4 + len(extra) + len(settings.trace_params)
+    n_own = 4 + len(extra_local) + len(settings.trace_params)
     for i in active:
         cr = crystals[i]
         if cr.y.size < n_own + 2:
@@ -2242,7 +2339,7 @@ def fit_sample(
         )
     if robust:
         warn_list.append("robust (soft-L1) loss used: stray spots are down-weighted.")
-    warn_list.append(PROCESS_NOTE)
+    warn_list.append(process_note(section))
     for w in warn_list:
         if ("does not share" in w or "two melts" in w or "do not share" in w
                 or "samples in their sample column" in w):
@@ -2297,7 +2394,7 @@ def fit_sample(
         "consistency_test": "leave-one-out likelihood ratio (Wilks 1938), sequential, "
                             f"Bonferroni alpha {ALPHA:g}",
         "sampler": "Metropolis-within-Gibbs, parallel crystal blocks + shear move",
-        "section_h_over_r": 0.0, "diffusion_length_um": 0.0,
+        "section_h_over_r": section, "diffusion_length_um": 0.0,
     }
     from zoning.fitting.methods import joint_methods
 

@@ -20,7 +20,7 @@ from __future__ import annotations
 import math
 import os
 import textwrap
-from collections.abc import Iterable
+from collections.abc import Iterable, Mapping
 from pathlib import Path
 from typing import Any
 
@@ -39,6 +39,7 @@ __all__ = [
     "format_sample_report",
     "JOINT_CAUTION",
     "JOINT_GENERAL",
+    "joint_caution",
 ]
 
 #: The general assumption statement of joint fits (the single-fit one says
@@ -56,9 +57,37 @@ JOINT_CAUTION = (
     "recorded core is not excluded. The antecryst test compares each crystal with the "
     "others; crystals that disagree are left out of the shared answer, and a sample "
     "whose crystals fall into two groups without a two-thirds majority is given no "
-    "single answer. Unlike single fits, joint fits do not fit an off-centre section or "
-    "diffusion after growth: each crystal is taken as cut through its core and unrelaxed."
+    "single answer. Unlike single fits, joint fits do not fit diffusion after growth "
+    "(each crystal is taken as unrelaxed), and they fit an off-centre section only when "
+    "asked (section_h_over_r = \"free\", one h/R per crystal); otherwise each crystal is "
+    "taken as cut through its core."
 )
+
+
+def joint_caution(settings: Mapping[str, Any] | None = None) -> str:
+    """Return the joint-fit caution for a fit's settings.
+
+    Parameters
+    ----------
+    settings : mapping, optional
+        :attr:`SampleFitResult.settings`; its ``section_h_over_r`` ("free" or a
+        number) says whether sections were fitted.
+
+    Returns
+    -------
+    str
+        :data:`JOINT_CAUTION` with the section statement of this fit.
+    """
+    section = (settings or {}).get("section_h_over_r", 0.0)
+    head = JOINT_CAUTION.split(" Unlike single fits")[0]
+    if section == "free":
+        return head + (" The section offset h/R was fitted per crystal (uniform prior); "
+                       "diffusion after growth was not: each crystal is taken as unrelaxed, "
+                       "and a diffused crystal can still look like an antecryst.")
+    if float(section) > 0.0:
+        return head + (f" Every crystal is taken as cut at h/R = {float(section):g} (not "
+                       "fitted) and unrelaxed by diffusion after growth.")
+    return JOINT_CAUTION
 
 _RATIO = {"olivine": "melt_mg_number", "plagioclase": "melt_ca_number"}
 
@@ -125,6 +154,10 @@ def crystals_table(result: Any) -> pd.DataFrame:
         }
         for k in local:
             _band(row, k, c.estimates.get(k))
+            if k == "section_h_over_r":
+                # a section offset is often unconstrained by one crystal: say so per crystal
+                e = c.estimates.get(k)
+                row[f"{k}_constrained"] = bool(e.constrained) if e is not None else False
         for k in (ratio, "f_rim", "retention", "kd"):
             _band(row, f"own_{k}", c.own_estimates.get(k))
         row["consistency_statistic"] = float(c.consistency_statistic)
@@ -193,7 +226,7 @@ def sample_to_dict(result: Any) -> dict[str, Any]:
         "melt_path": result.path,
         "diagnostics": dict(result.diagnostics),
         "warnings": list(result.warnings),
-        "cautions": [JOINT_GENERAL, JOINT_CAUTION],
+        "cautions": [JOINT_GENERAL, joint_caution(result.settings)],
         "settings": dict(result.settings),
         "versions": dict(result.versions),
         "seed": int(result.seed),
@@ -428,6 +461,6 @@ def format_sample_report(result: Any) -> str:
         for w in result.warnings:
             lines.extend(textwrap.wrap(w, width=96, initial_indent="    - ",
                                        subsequent_indent="      "))
-    for text in (JOINT_GENERAL, JOINT_CAUTION):
+    for text in (JOINT_GENERAL, joint_caution(result.settings)):
         lines.extend(textwrap.wrap("  note: " + text, width=100, subsequent_indent="    "))
     return "\n".join(lines) + "\n"

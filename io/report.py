@@ -86,7 +86,8 @@ CAUTIONS = (
     "Sectioning: a cut that misses the crystal centre shortens and flattens the profile "
     "(the core looks less primitive, zones look wider). Single fits fit the offset h/R with "
     "the prior of a random cut unless it is fixed; joint fits take every cut through the "
-    "core. Measured on invented crystals (benchmarks/fit.py): an unmodelled cut at h/R = 0.5 "
+    "core unless asked to fit h/R per crystal (section_h_over_r = \"free\"). Measured "
+    "on invented crystals (benchmarks/fit.py): an unmodelled cut at h/R = 0.5 "
     "raised r by about 0.1 on average (up to 0.35); with h/R fitted, r lay 0.02-0.08 above "
     "the truth, inside its band.",
     "Choice of Kd and reference melt: the parent melt Mg#/Ca# follows directly from the "
@@ -1148,9 +1149,9 @@ def _sample_data_quality(ctx):
 
 @section("Assumptions and cautions", sample=80)
 def _sample_cautions(ctx):
-    from zoning.io.joint_results import JOINT_CAUTION
+    from zoning.io.joint_results import joint_caution
 
-    return [Bullets((JOINT_CAUTION, *CAUTIONS), numbered=True)]
+    return [Bullets((joint_caution(ctx.result.settings), *CAUTIONS), numbered=True)]
 
 
 @section("References", sample=90)

@@ -49,8 +49,13 @@ def crystal(name, truth, *, n_spots, radius_um, rng, sigma=FO_SIGMA) -> Traverse
 
 def sample(*, n_hosts=6, antecryst=True, two_melts=False, n_spots=50, seed=0,
            mg_number=0.76, f_rim=0.16, retention=0.3, kd=0.30, ni_ppm=400.0,
-           antecryst_dmg=0.06, f_core_max=0.10, name="FRL-21"):
+           antecryst_dmg=0.06, f_core_max=0.10, name="FRL-21", section_h_over_r=None):
     """Return (traverses, truth) of one invented sample.
+
+    ``section_h_over_r`` = (lo, hi) cuts every host crystal off-centre at an
+    h/R drawn uniformly in [lo, hi] (from its own random stream, so the other
+    draws are those of a centred sample); ``truth["section_h_over_r"]`` holds
+    them by crystal name (0 for crystals cut through the centre).
 
     ``truth`` holds the shared values (``melt_mg_number``, ``f_rim``,
     ``retention``, ``kd``, ``melt0_ni_ppm``), ``f_core`` by crystal name,
@@ -61,14 +66,20 @@ def sample(*, n_hosts=6, antecryst=True, two_melts=False, n_spots=50, seed=0,
                   melt0_ni_ppm=ni_ppm)
     f_cores = np.concatenate([[0.0], np.sort(rng.uniform(0.0, f_core_max, n_hosts - 1))])
     rng.shuffle(f_cores)
-    traverses, f_core = [], {}
+    h = np.zeros(n_hosts)
+    if section_h_over_r is not None:
+        h = np.random.default_rng(seed + 1000).uniform(*section_h_over_r, n_hosts)
+    traverses, f_core, cuts = [], {}, {}
     for i, fc in enumerate(f_cores):
         nm = f"{name} ol{i + 1}"
         t = dict(shared, f_core=float(fc))
+        if h[i] > 0:
+            t["section_h_over_r"] = float(h[i])
+        cuts[nm] = float(h[i])
         traverses.append(crystal(nm, t, n_spots=n_spots, radius_um=rng.uniform(200, 450),
                                  rng=rng))
         f_core[nm] = float(fc)
-    truth = dict(shared, f_core=f_core, antecrysts=[], groups=[])
+    truth = dict(shared, f_core=f_core, antecrysts=[], groups=[], section_h_over_r=cuts)
     if antecryst:
         nm = f"{name} ol{n_hosts + 1}"
         t = dict(shared, melt_mg_number=mg_number + antecryst_dmg, f_rim=0.10, f_core=0.0)

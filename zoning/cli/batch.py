@@ -92,7 +92,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                         "diffusion after growth (converts the diffusion length into days)")
     g.add_argument("--section-h-over-r", metavar="free|H",
                    help="section offset h/R: 'free' (fitted; default) or a number, 0 for a cut "
-                        "through the core (project key section_h_over_r)")
+                        "through the core; joint samples: per crystal, default 0 (project key "
+                        "section_h_over_r)")
     g.add_argument("--diffusion-length-um", metavar="free|L",
                    help="diffusion length after growth [µm]: 'free' (fitted; olivine default) "
                         "or a number, 0 for none (project key diffusion_length_um)")

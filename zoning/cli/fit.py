@@ -186,7 +186,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--section-h-over-r", metavar="free|H",
                    help="distance of the section plane from the crystal centre over the "
                         "radius: 'free' (fitted with the random-cut prior; default) or a "
-                        "number, 0 for a cut through the core")
+                        "number, 0 for a cut through the core; with --joint: per crystal, "
+                        "default 0 (every crystal cut through its core)")
     p.add_argument("--diffusion-length-um", metavar="free|L",
                    help="diffusion length sqrt(D t) after growth [µm]: 'free' (fitted; "
                         "olivine default) or a number, 0 for none (plagioclase default: An "
@@ -295,12 +296,16 @@ def run(args: argparse.Namespace) -> int:
         delta_qfm=args.delta_qfm,
     )
     if args.joint:
-        if any(v is not None for v in process.values()):
+        given = [opt for opt, key in (("--diffusion-length-um", "diffusion_length_um"),
+                                      ("--delta-qfm", "delta_qfm"))
+                 if process[key] is not None]
+        if given:
             raise ZoningError(
-                "--section-h-over-r, --diffusion-length-um and --delta-qfm apply to single "
-                "fits; joint fits (--joint) model growth only. Drop them or fit without "
-                "--joint."
+                f"{' and '.join(given)} apply to single fits; joint fits (--joint) do not "
+                "fit diffusion after growth (they can fit each crystal's section, "
+                "--section-h-over-r free). Drop them or fit without --joint."
             )
+        common = dict(common, section_h_over_r=process["section_h_over_r"])
         return _run_joint(args, traverses, common, out_dir, sources, graphics)
     if args.exclude:
         raise ZoningError("--exclude applies to joint fits only; add --joint.")
