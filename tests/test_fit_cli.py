@@ -172,3 +172,38 @@ def test_joint_fit_of_a_file_with_two_samples_fits_each_on_its_own(two_sample_ta
     mixed = [w for w in caught if "2 samples in their sample column" in str(w.message)]
     assert mixed and all(issubclass(w.category, DataQualityWarning) for w in mixed)
     assert any("2 samples in their sample column" in w for w in res.warnings)
+
+
+def test_joint_fit_with_free_sections_writes_them_per_crystal(two_sample_table, tmp_path,
+                                                              capsys):
+    out = tmp_path / "joint_sections"
+    code = _run(["fit", str(two_sample_table), "--melt", "FeO=9.5", "--joint", "--steps",
+                 "150", "--walkers", "8", "--no-figures", "--no-report", "--out", str(out),
+                 "--section-h-over-r", "free"])
+    capsys.readouterr()
+    assert code == 0
+    crystals = pd.read_csv(out / "crystals.csv", comment="#")
+    for col in ("section_h_over_r", "section_h_over_r_lo95", "section_h_over_r_hi95",
+                "section_h_over_r_constrained"):
+        assert col in crystals.columns
+    assert crystals["section_h_over_r"].between(0.0, 0.95).all()
+    fit = json.loads((out / "FRL-31" / "fit.json").read_text(encoding="utf-8"))
+    assert fit["settings"]["section_h_over_r"] == "free"
+    assert any("section offset h/R" in w for w in fit["warnings"])
+
+
+@pytest.mark.parametrize(
+    "extra, message",
+    [
+        (["--geometry", "slab", "--section-h-over-r", "free"], "geometry 'slab'"),
+        (["--diffusion-length-um", "free"], "--diffusion-length-um apply to single fits"),
+        (["--delta-qfm", "0"], "--delta-qfm apply to single fits"),
+    ],
+)
+def test_joint_fit_rejects_what_it_cannot_fit(two_sample_table, tmp_path, capsys, extra,
+                                              message):
+    code = _run(["fit", str(two_sample_table), "--melt", "FeO=9.5", "--joint", "--out",
+                 str(tmp_path / "x"), *extra])
+    assert code == 2
+    err = capsys.readouterr().err
+    assert message in err and "Traceback" not in err

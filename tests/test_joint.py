@@ -360,3 +360,85 @@ def test_sampler_draws_a_gaussian_target_with_its_closed_form_spread():
     draws = chain.draws.reshape(-1, target.D)
     assert_allclose(draws.std(axis=0), np.sqrt(np.diag(cov)), rtol=RTOL_SAMPLER_SD)
     assert chain.rhat.max() < 1.05
+
+
+# ------------------------------------------------- section offset per crystal
+def test_section_none_or_zero_gives_the_growth_only_numbers():
+    # h/R = 0 is growth only: None (default) and 0 give the same draws bit for
+    # bit, and the process note of growth-only fits
+    traverses, _ = js.sample(n_hosts=2, antecryst=False, n_spots=20, seed=14)
+    a = _fit(traverses, n_sweeps=150, n_chains=6, seed=3)
+    b = _fit(traverses, n_sweeps=150, n_chains=6, seed=3, section_h_over_r=0.0)
+    assert_allclose(a.samples, b.samples, rtol=0)
+    assert a.parameter_names == b.parameter_names
+    assert not any("section_h_over_r" in n for n in a.parameter_names)
+    assert J.PROCESS_NOTE in b.warnings and b.settings["section_h_over_r"] == 0.0
+
+
+def test_stacked_evaluation_with_a_section_per_crystal_equals_each_crystal_alone():
+    # Limit check against the single-crystal forward model: a spot at distance
+    # x of a section at h from the centre lies at radius sqrt(x^2 + h^2) of the
+    # crystal (zoning.geometry.zone_fraction); the stacked evaluation with one
+    # h/R per row must equal CrystallizationModel.profile(..., section_h_over_r=h)
+    # of each crystal alone.
+    traverses, _ = js.sample(n_hosts=3, antecryst=False, n_spots=20, seed=4)
+    base = _settings(per_crystal_rim=True)
+    settings = J._Settings(**{**base.__dict__, "extra_local": ("section_h_over_r",)})
+    joint = J._Joint(settings, _crystals(traverses))
+    rng = np.random.default_rng(2)
+    v = _vector(joint, rng)
+    for c in range(joint.C):
+        v[:, joint.index("section_h_over_r", c)] = rng.uniform(0.0, 0.9, v.shape[0])
+    out = joint.predict(v)
+    rows = joint.rows(v)
+    model = joint.s.model
+    for c, cr in enumerate(joint.crystals):
+        sel = slice(c, None, joint.C)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", CalibrationRangeWarning)  # random sets
+            ref = model.profile(cr.distance_um, cr.radius_um, strict=False, melt_mg_number=rows[
+                "melt_mg_number"][sel], kd=rows["kd"][sel], retention=rows["retention"][sel],
+                f_rim=rows["f_rim"][sel], f_core=rows["f_core"][sel],
+                melt0_ni_ppm=rows["melt0_ni_ppm"][sel],
+                section_h_over_r=rows["section_h_over_r"][sel])
+        n = cr.distance_um.size
+        assert_allclose(out["f"][:, c, :n], ref["f"], rtol=RTOL_IDENTITY)
+        assert_allclose(out["crystal"][:, c, :n], ref["crystal"], rtol=RTOL_STACKED)
+        assert_allclose(out["crystal_nio_wt"][:, c, :n], ref["crystal_nio_wt"],
+                        rtol=RTOL_STACKED_TRACE)
+    # a fixed h/R for every crystal is the same as that value in every row
+    fixed = J._Joint(J._Settings(**{**base.__dict__, "section_fixed": 0.5}),
+                     _crystals(traverses))
+    w = np.delete(v, [joint.index("section_h_over_r", c) for c in range(joint.C)], axis=1)
+    v_half = v.copy()
+    v_half[:, [joint.index("section_h_over_r", c) for c in range(joint.C)]] = 0.5
+    assert_allclose(fixed.predict(w)["crystal"], joint.predict(v_half)["crystal"],
+                    rtol=RTOL_IDENTITY)
+
+
+def test_off_centre_crystals_fitted_with_free_sections_recover_the_shared_melt():
+    # Invented sample: three hosts cut at h/R 0.3-0.8, all from one melt.
+    traverses, truth = js.sample(n_hosts=3, antecryst=False, n_spots=30, seed=21,
+                                 section_h_over_r=(0.3, 0.8))
+    res = _fit(traverses, seed=1, section_h_over_r="free")
+    assert [c.verdict for c in res.crystals] == ["consistent"] * 3
+    for name in ("melt_mg_number", "f_rim", "retention", "kd"):
+        e = res.estimates[name]
+        assert e.lo95 <= truth[name] <= e.hi95, (name, e)
+    for c in res.crystals:
+        e = c.estimates["section_h_over_r"]
+        assert 0.0 <= e.lo95 <= e.hi95 <= 0.95
+    assert res.settings["section_h_over_r"] == "free"
+    assert any("section_h_over_r[" in n for n in res.parameter_names)
+    assert J.process_note("free") in res.warnings
+    assert "not diffusion after growth" in J.process_note("free")
+
+
+def test_section_settings_are_checked_as_for_single_fits():
+    traverses, _ = js.sample(n_hosts=2, antecryst=False, n_spots=20, seed=14)
+    with pytest.raises(ZoningError, match="geometry 'slab'"):
+        fit_sample(traverses, melt=js.MELT, geometry="slab", section_h_over_r="free")
+    with pytest.raises(ZoningError, match=r"must be in \[0, 1\)"):
+        fit_sample(traverses, melt=js.MELT, section_h_over_r=1.5)
+    with pytest.raises(ZoningError, match="'free' or a number"):
+        fit_sample(traverses, melt=js.MELT, section_h_over_r="half")
