@@ -310,3 +310,34 @@ joint = true
 """)
     with pytest.raises(ProjectError, match="must be a list of file names"):
         read_project(bad)
+
+
+def test_joint_samples_receive_the_section_key_but_not_diffusion(tmp_path, monkeypatch):
+    import zoning.fitting as fitting
+    from zoning import workflow
+
+    path = _write(tmp_path, """
+[defaults]
+melt = { FeO = 9.8 }
+section_h_over_r = "free"
+diffusion_length_um = "free"
+
+[samples."FRL-21"]
+files = ["a.csv", "b.csv"]
+joint = true
+""", files=("a.csv", "b.csv"))
+    (job,) = read_project(path).jobs
+    seen = {}
+
+    class _Stop(Exception):
+        pass
+
+    def fake(traverses, **kw):
+        seen.update(kw)
+        raise _Stop
+
+    monkeypatch.setattr(fitting, "fit_sample", fake)
+    with pytest.raises(_Stop):
+        workflow._fit_and_write_joint(job, tmp_path / "build")
+    assert seen["section_h_over_r"] == "free"
+    assert "diffusion_length_um" not in seen and "delta_qfm" not in seen
