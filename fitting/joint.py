@@ -29,6 +29,16 @@ terms when r varies by crystal. Priors:
   Gelman 2006). The population median expit(mu) is reported as
   ``retention`` and tau as ``retention_spread``.
 
+Sections. By default every crystal is taken as cut through its centre
+(h/R = 0). With ``section_h_over_r="free"`` each crystal has its own section
+offset h/R, uniform prior on [0, :data:`zoning.models.SECTION_H_OVER_R_MAX`]
+as in single fits: a spot at distance x from the section's centre lies at
+radius sqrt(x^2 + h^2) of a crystal of true radius sqrt(R_obs^2 + h^2)
+(:func:`zoning.geometry.zone_fraction`). Because a cut changes the profile at
+O(h^2), the least-squares gradient with respect to h/R vanishes at 0; every
+least-squares fit therefore also starts with h/R at :data:`SECTION_START`.
+Diffusion after growth is never fitted here.
+
 What "parent melt" means here. Moving the parent melt to a more primitive
 composition and every crystal's F_core later along the path changes the
 predicted profiles very little (the same melt is reached later), so the
@@ -313,7 +323,8 @@ class CrystalFit:
     estimates : mapping of str to Estimate
         The crystal's own quantities in the joint fit of its group:
         ``f_core`` always, ``f_rim`` and ``retention`` when they vary by
-        crystal, plus ``growth_exponent``/``core_offset_um`` when fitted.
+        crystal, plus ``growth_exponent``/``core_offset_um`` and
+        ``section_h_over_r`` when fitted.
         Empty for crystals in no group.
     own_estimates : mapping of str to Estimate
         From the crystal's own single-crystal best fit (F_core = 0): the
@@ -2398,7 +2409,7 @@ def fit_sample(
     }
     from zoning.fitting.methods import joint_methods
 
-    methods = model.methods() + joint_methods(
+    methods = model.methods(processes=("section",) if section != 0.0 else ()) + joint_methods(
         mineral, kd_mean=kd0, kd_sd=kd_sd_v, kd_default=kd is None,
         fe3_fraction=float(fe3_fraction), fe3_source=melt_input.fe3_source,
         sigma_scaled=any(owns[i].sigma_scale > 1.0 for i in main_members))

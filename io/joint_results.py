@@ -133,7 +133,8 @@ def crystals_table(result: Any) -> pd.DataFrame:
         ``sample``, ``crystal``, ``verdict``, ``group``, ``anchor`` (bool),
         ``n_spots``, ``n_used``; ``f_core`` (and ``f_rim``, ``retention`` when
         per crystal, plus any per-crystal free parameter) with ``_lo95`` and
-        ``_hi95`` from the joint fit of its group; ``own_<ratio>``,
+        ``_hi95`` from the joint fit of its group (``section_h_over_r`` also
+        with ``_constrained``); ``own_<ratio>``,
         ``own_f_rim``, ``own_retention``, ``own_kd`` with bands from its own
         single-crystal fit; ``consistency_statistic``, ``consistency_dof``,
         ``consistency_p``, ``reduced_chi_square``, ``own_reduced_chi_square``,

@@ -431,6 +431,7 @@ def test_off_centre_crystals_fitted_with_free_sections_recover_the_shared_melt()
     assert res.settings["section_h_over_r"] == "free"
     assert any("section_h_over_r[" in n for n in res.parameter_names)
     assert J.process_note("free") in res.warnings
+    assert any(m.role == "off-centre section" for m in res.methods)
     assert "not diffusion after growth" in J.process_note("free")
 
 

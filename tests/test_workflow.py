@@ -314,6 +314,7 @@ joint = true
 
 def test_joint_samples_receive_the_section_key_but_not_diffusion(tmp_path, monkeypatch):
     import zoning.fitting as fitting
+
     from zoning import workflow
 
     path = _write(tmp_path, """
