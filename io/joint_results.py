@@ -43,7 +43,8 @@ __all__ = [
 ]
 
 #: The general assumption statement of joint fits (the single-fit one says
-#: that sections and diffusion are fitted, which joint fits do not do).
+#: that sections and diffusion are fitted; joint fits never fit diffusion and
+#: fit sections only when asked, which :func:`joint_caution` states).
 JOINT_GENERAL = (
     "Assumes each zone grew in surface equilibrium with the melt; every number depends on "
     "the chosen Kd and reference melt."

@@ -432,6 +432,11 @@ def test_off_centre_crystals_fitted_with_free_sections_recover_the_shared_melt()
     assert any("section_h_over_r[" in n for n in res.parameter_names)
     assert J.process_note("free") in res.warnings
     assert any(m.role == "off-centre section" for m in res.methods)
+    from zoning.io.joint_results import JOINT_CAUTION, format_sample_report, joint_caution
+
+    assert "fitted per crystal" in joint_caution(res.settings)
+    assert joint_caution({"section_h_over_r": 0.0}) == JOINT_CAUTION
+    assert "fitted per crystal" in " ".join(format_sample_report(res).split())
     assert "not diffusion after growth" in J.process_note("free")
 
 
