@@ -408,7 +408,7 @@ class FitProblem:
         return lo, hi
 
     def log_jacobian(self, u: np.ndarray) -> np.ndarray:
-        """log |d theta / d u| of :meth:`from_sampler` at ``u`` (m,)."""
+        """Logarithm of abs(det(d theta / d u)) of :meth:`from_sampler` at ``u`` (m,)."""
         u = np.atleast_2d(u)
         k = self._kernel_k(u)
         with np.errstate(all="ignore"):
