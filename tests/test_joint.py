@@ -91,6 +91,16 @@ def test_path_with_one_row_of_fractions_per_set_matches_profile():
     assert_allclose(out["crystal_nio_wt"], ref["crystal_nio_wt"], rtol=RTOL_IDENTITY)
 
 
+def _profile_alone(model, cr, rows, c, n_crystals, extra=()):
+    """Single-crystal profile of crystal ``c`` at the joint rows' parameters."""
+    sel = slice(c, None, n_crystals)
+    names = ("melt_mg_number", "kd", "retention", "f_rim", "f_core", "melt0_ni_ppm", *extra)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", CalibrationRangeWarning)  # random sets
+        return model.profile(cr.distance_um, cr.radius_um, strict=False,
+                             **{n: rows[n][sel] for n in names})
+
+
 @pytest.mark.parametrize("hier", [False, True])
 def test_stacked_evaluation_equals_each_crystal_alone(hier):
     traverses, _ = js.sample(n_hosts=3, antecryst=False, n_spots=20, seed=4)
@@ -100,13 +110,7 @@ def test_stacked_evaluation_equals_each_crystal_alone(hier):
     rows = joint.rows(v)
     model = joint.s.model
     for c, cr in enumerate(joint.crystals):
-        sel = slice(c, None, joint.C)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", CalibrationRangeWarning)  # random sets
-            ref = model.profile(cr.distance_um, cr.radius_um, strict=False, melt_mg_number=rows[
-                "melt_mg_number"][sel], kd=rows["kd"][sel], retention=rows["retention"][sel],
-                f_rim=rows["f_rim"][sel], f_core=rows["f_core"][sel],
-                melt0_ni_ppm=rows["melt0_ni_ppm"][sel])
+        ref = _profile_alone(model, cr, rows, c, joint.C)
         n = cr.distance_um.size
         assert_allclose(out["crystal"][:, c, :n], ref["crystal"], rtol=RTOL_STACKED)
         assert_allclose(out["crystal_nio_wt"][:, c, :n], ref["crystal_nio_wt"],
@@ -393,14 +397,7 @@ def test_stacked_evaluation_with_a_section_per_crystal_equals_each_crystal_alone
     rows = joint.rows(v)
     model = joint.s.model
     for c, cr in enumerate(joint.crystals):
-        sel = slice(c, None, joint.C)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", CalibrationRangeWarning)  # random sets
-            ref = model.profile(cr.distance_um, cr.radius_um, strict=False, melt_mg_number=rows[
-                "melt_mg_number"][sel], kd=rows["kd"][sel], retention=rows["retention"][sel],
-                f_rim=rows["f_rim"][sel], f_core=rows["f_core"][sel],
-                melt0_ni_ppm=rows["melt0_ni_ppm"][sel],
-                section_h_over_r=rows["section_h_over_r"][sel])
+        ref = _profile_alone(model, cr, rows, c, joint.C, ("section_h_over_r",))
         n = cr.distance_um.size
         assert_allclose(out["f"][:, c, :n], ref["f"], rtol=RTOL_IDENTITY)
         assert_allclose(out["crystal"][:, c, :n], ref["crystal"], rtol=RTOL_STACKED)
