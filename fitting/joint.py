@@ -192,7 +192,7 @@ from zoning.exceptions import (
 from zoning.melt import read_melt
 from zoning.models import SECTION_H_OVER_R_MAX
 from zoning.partitioning import equilibrium_crystal
-from zoning.traverse import MINERALS, Traverse
+from zoning.traverse import MINERALS, Traverse, by_written_sample
 
 __all__ = ["fit_sample", "SampleFitResult", "CrystalFit", "VERDICTS"]
 
@@ -2181,7 +2181,7 @@ def fit_sample(
 
     # --- every crystal alone -----------------------------------------------
     warn_list: list[str] = list(melt_input.notes)
-    written = _samples_written(traverses)
+    written = by_written_sample(traverses)
     if len(written) > 1:
         warn_list.append(
             f"the files name {len(written)} samples in their sample column ("
@@ -2425,15 +2425,6 @@ def fit_sample(
         diagnostics=diagnostics, warnings=tuple(warn_list), settings=settings_out,
         versions=_versions(), seed=int(seed), methods=methods,
     )
-
-
-def _samples_written(traverses: Sequence[Traverse]) -> dict[str, list[str]]:
-    """Traverse names by the sample name written in their file ("" skipped)."""
-    out: dict[str, list[str]] = {}
-    for t in traverses:
-        if t.sample:
-            out.setdefault(t.sample, []).append(t.name)
-    return out
 
 
 def _common_name(names: Sequence[str]) -> str:

@@ -45,3 +45,17 @@ def test_test_modules_import_shared_helpers_absolutely():
     offenders = [p.name for p in sorted(Path(__file__).parent.glob("*.py"))
                  if relative.search(p.read_text(encoding="utf-8"))]
     assert offenders == [], f"use 'from _tolerances import ...' in {offenders}"
+
+
+def test_traverses_group_by_the_sample_written_in_their_file():
+    import pandas as pd
+
+    from zoning.traverse import Traverse, by_written_sample
+
+    spots = pd.DataFrame({"distance_um": [0.0, 10.0], "fo": [85.0, 84.0]})
+    ts = [Traverse(n, f"{n}.csv", "olivine", spots, sample=s)
+          for n, s in [("a1", "A"), ("b1", "B"), ("x", ""), ("a2", "A")]]
+    groups = by_written_sample(ts)
+    assert list(groups) == ["A", "B"]  # input order, unnamed left out
+    assert [t.name for t in groups["A"]] == ["a1", "a2"]
+    assert [t.name for t in groups["B"]] == ["b1"]

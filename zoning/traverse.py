@@ -41,7 +41,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-__all__ = ["Traverse", "MINERALS", "ORIENTATIONS", "ORIENTATION_CONFIDENCES", "MAJOR_COLUMN"]
+__all__ = ["Traverse", "MINERALS", "ORIENTATIONS", "ORIENTATION_CONFIDENCES", "MAJOR_COLUMN",
+           "by_written_sample"]
 
 #: Minerals the tool understands.
 MINERALS = ("olivine", "plagioclase")
@@ -156,3 +157,23 @@ class Traverse:
         if not include_flagged:
             keep &= (s["status"] == "ok").to_numpy()
         return s[keep].sort_values("distance_um", kind="stable")
+
+
+def by_written_sample(traverses) -> dict[str, list[Traverse]]:
+    """Traverses grouped by the sample name written in their file.
+
+    Parameters
+    ----------
+    traverses : iterable of Traverse
+
+    Returns
+    -------
+    dict of str to list of Traverse
+        Written sample name -> its traverses, in input order; traverses
+        whose file names no sample (``sample == ""``) are left out.
+    """
+    out: dict[str, list[Traverse]] = {}
+    for t in traverses:
+        if t.sample:
+            out.setdefault(t.sample, []).append(t)
+    return out

@@ -414,10 +414,9 @@ def _sample_groups(traverses, name) -> dict:
     One group (keyed by ``name`` or "") when ``name`` is given, when any
     traverse names no sample, or when all name the same one.
     """
-    written = [t.sample for t in traverses]
-    if name is not None or not all(written) or len(set(written)) < 2:
+    from zoning.traverse import by_written_sample
+
+    groups = by_written_sample(traverses)
+    if name is not None or len(groups) < 2 or any(not t.sample for t in traverses):
         return {name or "": list(traverses)}
-    groups: dict[str, list] = {}
-    for t, s in zip(traverses, written, strict=True):
-        groups.setdefault(s, []).append(t)
     return groups
