@@ -158,6 +158,7 @@ from zoning.fitting.problem import (
     DEFAULT_SIGMA,
     KD_PRIOR,
     KD_RELATIVE_SD,
+    LOG_FLOOR,
     OPTIONAL_FREE,
     TRACES,
     FitProblem,
@@ -218,10 +219,6 @@ BURN_FRACTION = 0.4
 #: Differential-evolution move (ter Braak 2006): share of the moves that use
 #: a jump factor of 1 (to hop between modes) instead of 2.38/sqrt(2 d).
 DE_HOP = 0.1
-#: Floor of the logarithmic sampler coordinates, relative to the upper
-#: bound (F_core / F_rim, F_rim, trace contents): values below it are not
-#: sampled (an F_core within 1e-6 of the anchor's is the anchor's).
-LOG_FLOOR = 1e-6
 #: Largest split R-hat accepted without a warning (Vehtari et al. 2021).
 MAX_RHAT = 1.01
 #: Bounds of the hierarchical population mean of logit r, and its spread.

@@ -22,6 +22,7 @@ down-weights stray spots).
 from __future__ import annotations
 
 import dataclasses
+import functools
 import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
@@ -110,8 +111,10 @@ _MELT_OXIDE = {"olivine": "melt_mgo_wt", "plagioclase": "melt_cao_wt"}
 
 
 #: Floor of the logarithmic sampler coordinates (F at the rim, initial trace
-#: contents) relative to their upper bound: smaller values are not sampled.
-#: Under the flat priors the mass below it is below 1e-6 of the range.
+#: contents; in joint fits also F_core / F_rim) relative to their upper
+#: bound: smaller values are not sampled. Under the flat priors the mass below
+#: it is below 1e-6 of the range (an F_core within 1e-6 of the anchor's is the
+#: anchor's).
 LOG_FLOOR = 1e-6
 
 
@@ -352,16 +355,12 @@ class FitProblem:
     # follow it; in the natural values it is curved and the chains crawl
     # (autocorrelation times of ~1000 steps measured on such crystals). The
     # flat priors are kept through the Jacobian d v / d log v = v.
-    @property
+    @functools.cached_property
     def log_columns(self) -> np.ndarray:
         """Columns of ``theta`` sampled as logarithms (F at the rim, initial trace contents)."""
-        cached = self.__dict__.get("_log_columns")
-        if cached is None:
-            trace_params = {t.param for t in self.traces}
-            cached = np.array([i for i, n in enumerate(self.free)
-                               if n == "f_rim" or n in trace_params], dtype=int)
-            object.__setattr__(self, "_log_columns", cached)
-        return cached
+        trace_params = {t.param for t in self.traces}
+        return np.array([i for i, n in enumerate(self.free)
+                         if n == "f_rim" or n in trace_params], dtype=int)
 
     def _kernel_k(self, theta: np.ndarray) -> np.ndarray:
         kd = theta[:, self.free.index("kd")] if "kd" in self.free else np.full(

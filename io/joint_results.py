@@ -50,15 +50,19 @@ JOINT_GENERAL = (
     "the chosen Kd and reference melt."
 )
 
-#: What the joint fit assumes beyond single fits, printed with every report.
-JOINT_CAUTION = (
+#: The part of :data:`JOINT_CAUTION` that holds whatever the section setting.
+_JOINT_CAUTION_HEAD = (
     "The joint fit assumes that the consistent crystals grew from one melt along one "
     "closed-system path and share Kd and r; F and the parent melt count from the "
     "nucleation of the earliest crystal (the anchor), so a melt more primitive than any "
     "recorded core is not excluded. The antecryst test compares each crystal with the "
     "others; crystals that disagree are left out of the shared answer, and a sample "
     "whose crystals fall into two groups without a two-thirds majority is given no "
-    "single answer. Unlike single fits, joint fits do not fit diffusion after growth "
+    "single answer."
+)
+#: What the joint fit assumes beyond single fits, printed with every report.
+JOINT_CAUTION = _JOINT_CAUTION_HEAD + (
+    " Unlike single fits, joint fits do not fit diffusion after growth "
     "(each crystal is taken as unrelaxed), and they fit an off-centre section only when "
     "asked (section_h_over_r = \"free\", one h/R per crystal); otherwise each crystal is "
     "taken as cut through its core."
@@ -80,7 +84,7 @@ def joint_caution(settings: Mapping[str, Any] | None = None) -> str:
         :data:`JOINT_CAUTION` with the section statement of this fit.
     """
     section = (settings or {}).get("section_h_over_r", 0.0)
-    head = JOINT_CAUTION.split(" Unlike single fits")[0]
+    head = _JOINT_CAUTION_HEAD
     if section == "free":
         return head + (" The section offset h/R was fitted per crystal (uniform prior); "
                        "diffusion after growth was not: each crystal is taken as unrelaxed, "
