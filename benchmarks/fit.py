@@ -50,6 +50,7 @@ from concurrent.futures import ProcessPoolExecutor  # noqa: E402
 
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
+from scipy import stats  # noqa: E402
 from zoning.fitting import fit_traverse  # noqa: E402
 
 from zoning.models import CrystallizationModel  # noqa: E402
@@ -213,6 +214,46 @@ def _crashes(table) -> int:
     return len(crashed)
 
 
+def _family_coverage(table, noise_table, coverage) -> None:
+    """Print part 2 (coverage per family) and record it in ``coverage``."""
+    crashes = _crashes(table) + _crashes(noise_table)
+    ok = table[table["crash"] == ""]
+    quantities = QUANTITIES + PROCESS_QUANTITIES
+    for family in FAMILIES:
+        sub = ok[ok["family"] == family]
+        parts = []
+        for q in quantities:
+            col = f"in_{q}"
+            if col in sub and sub[col].notna().any():
+                v = float(sub[col].astype(float).mean())
+                coverage[(family, q)] = v
+                by_ni = sub.groupby("ni")[col].mean()
+                parts.append(f"{q} {v:.2f} (no NiO {by_ni.get(False, np.nan):.2f}, NiO "
+                             f"{by_ni.get(True, np.nan):.2f})")
+        print(f"  {family:10s} n={len(sub)}: " + "; ".join(parts))
+        fam_cov = {q: v for (f, q), v in coverage.items() if f == family}
+        if fam_cov and len(sub):
+            q_low = min(fam_cov, key=fam_cov.get)
+            n_in = int(round(fam_cov[q_low] * len(sub)))
+            ci = stats.binomtest(n_in, len(sub)).proportion_ci(0.95)
+            print(f"  {'':10s} lowest: {q_low} {n_in} of {len(sub)}, binomial 95% interval "
+                  f"[{ci.low:.2f}, {ci.high:.2f}] ("
+                  + ("holds" if ci.low <= 0.95 <= ci.high else "excludes")
+                  + " 0.95)")
+        print(f"  {'':10s} preferred: " + ", ".join(
+            f"{k} {v}" for k, v in sub["preferred"].value_counts().items())
+              + f"; trade-off stated in {int(sub['trade_off'].sum())}")
+    for q in quantities:
+        col = f"in_{q}"
+        print(f"  {q:20s} coverage over all families {ok[col].astype(float).mean():.3f}; "
+              f"constrained in {ok[f'constrained_{q}'].astype(float).mean():.0%}")
+    print(f"  reported values outside their own band: {int(ok['best_outside_band'].sum())}; "
+          f"crashes: {crashes}")
+    n_noise_ok = int((noise_table["crash"] == "").sum()) if len(noise_table) else 0
+    false_rev = int(noise_table.get("reversal", pd.Series(dtype=bool)).fillna(False).sum())
+    print(f"  reversal with 3x noise: {false_rev} of {n_noise_ok} traverses")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--n-timing", type=int, default=10)
@@ -268,34 +309,9 @@ def main() -> None:
     table = pd.DataFrame(rows[:len(cases)])
     noise_table = pd.DataFrame(rows[len(cases):])
     print(f"  done in {time.perf_counter() - t0:.0f} s")
-    crashes = _crashes(table) + _crashes(noise_table)
-    ok = table[table["crash"] == ""]
-    quantities = QUANTITIES + PROCESS_QUANTITIES
     coverage = {}
-    for family in FAMILIES:
-        sub = ok[ok["family"] == family]
-        parts = []
-        for q in quantities:
-            col = f"in_{q}"
-            if col in sub and sub[col].notna().any():
-                v = float(sub[col].astype(float).mean())
-                coverage[(family, q)] = v
-                by_ni = sub.groupby("ni")[col].mean()
-                parts.append(f"{q} {v:.2f} (no NiO {by_ni.get(False, np.nan):.2f}, NiO "
-                             f"{by_ni.get(True, np.nan):.2f})")
-        print(f"  {family:10s} n={len(sub)}: " + "; ".join(parts))
-        print(f"  {'':10s} preferred: " + ", ".join(
-            f"{k} {v}" for k, v in sub["preferred"].value_counts().items())
-              + f"; trade-off stated in {int(sub['trade_off'].sum())}")
-    for q in quantities:
-        col = f"in_{q}"
-        print(f"  {q:20s} coverage over all families {ok[col].astype(float).mean():.3f}; "
-              f"constrained in {ok[f'constrained_{q}'].astype(float).mean():.0%}")
-    print(f"  reported values outside their own band: {int(ok['best_outside_band'].sum())}; "
-          f"crashes: {crashes}")
-    n_noise_ok = int((noise_table["crash"] == "").sum()) if len(noise_table) else 0
-    false_rev = int(noise_table.get("reversal", pd.Series(dtype=bool)).fillna(False).sum())
-    print(f"  reversal with 3x noise: {false_rev} of {n_noise_ok} traverses")
+    if cases:
+        _family_coverage(table, noise_table, coverage)
 
     print(f"part 3: coverage over {args.n_coverage} mixed olivine/plagioclase traverses "
           "without processes, default settings")

@@ -286,7 +286,8 @@ def process_note(section_h_over_r) -> str:
     return PROCESS_NOTE
 
 #: Verdicts of a crystal.
-VERDICTS = ("consistent", "likely antecryst", "second melt", "excluded", "undecided")
+VERDICTS = ("consistent", "likely antecryst", "second melt", "excluded", "too few spots",
+            "undecided")
 
 _SHARED_OPTIONS = {"f_rim": ("shared", "per_crystal"),
                    "retention": ("shared", "hierarchical")}
@@ -314,7 +315,9 @@ class CrystalFit:
         melt), ``"likely antecryst"`` (set apart by the consistency test),
         ``"second melt"`` (shares a melt with other crystals set apart,
         different from the main group's), ``"excluded"`` (left out by the
-        user) or ``"undecided"`` (too few crystals to tell which disagree).
+        user), ``"too few spots"`` (left out: fewer usable spots than its
+        parameters need; the warnings say how many) or ``"undecided"`` (too
+        few crystals to tell which disagree).
     group : int
         1 for the main group, 2 for a second melt, 0 otherwise.
     estimates : mapping of str to Estimate
@@ -2167,17 +2170,30 @@ def fit_sample(
         trace_params=tuple((p, key, ox) for p, key, ox, _n in chosen_all.values()),
         robust=bool(robust), section_fixed=0.0 if section == "free" else float(section),
     )
+    # A crystal with fewer usable spots than its own fit has parameters (plus
+    # two) is left out and reported, so that one short traverse does not stop
+    # the sample; the sample stops only when fewer than two crystals remain.
+    warn_list: list[str] = list(melt_input.notes)
+    data_quality: set[str] = set()  # messages that are DataQualityWarnings
     n_own = 4 + len(extra_local) + len(settings.trace_params)
-    for i in active:
-        cr = crystals[i]
-        if cr.y.size < n_own + 2:
-            raise FitError(
-                f"crystal {cr.name!r} has {cr.y.size} usable spots; at least {n_own + 2} are "
-                "needed. Leave it out (--exclude) or check its flagged spots."
-            )
+    too_few = [i for i in active if crystals[i].y.size < n_own + 2]
+    for i in too_few:
+        hint = (" or fix its section (--section-h-over-r 0 when its core is in the cut)"
+                if section == "free" else "")
+        msg = (f"crystal {crystals[i].name!r} has {crystals[i].y.size} usable spots; at "
+               f"least {n_own + 2} are needed to fit it here: left out (verdict 'too few "
+               f"spots'). Check its flagged spots (--include-flagged){hint}.")
+        warn_list.append(msg)
+        data_quality.add(msg)
+    active = [i for i in active if i not in too_few]
+    if len(active) < 2:
+        raise FitError(
+            f"a joint fit needs at least two crystals with at least {n_own + 2} usable spots "
+            f"each; {len(active)} of {names} have them. Check the flagged spots, leave out "
+            "the short traverses (--exclude), or fit the crystals without --joint."
+        )
 
     # --- every crystal alone -----------------------------------------------
-    warn_list: list[str] = list(melt_input.notes)
     written = by_written_sample(traverses)
     if len(written) > 1:
         warn_list.append(
@@ -2251,9 +2267,10 @@ def fit_sample(
     crystal_fits = []
     for i, cr in enumerate(crystals):
         tested = screen.stats.get(i) or second.stats.get(i) or (np.nan, 0, np.nan)
-        if is_excluded[i]:
+        if i not in active:
             crystal_fits.append(CrystalFit(
-                name=cr.name, traverse=cr.traverse, verdict="excluded", group=0,
+                name=cr.name, traverse=cr.traverse,
+                verdict="excluded" if is_excluded[i] else "too few spots", group=0,
                 estimates={}, own_estimates={}, n_spots=cr.traverse.n_spots,
                 n_used=int(cr.y.size)))
             continue
@@ -2349,8 +2366,8 @@ def fit_sample(
         warn_list.append("robust (soft-L1) loss used: stray spots are down-weighted.")
     warn_list.append(process_note(section))
     for w in warn_list:
-        if ("does not share" in w or "two melts" in w or "do not share" in w
-                or "samples in their sample column" in w):
+        if (w in data_quality or "does not share" in w or "two melts" in w
+                or "do not share" in w or "samples in their sample column" in w):
             warnings.warn(f"sample {sample_name!r}: {w}", DataQualityWarning, stacklevel=2)
         if "too short" in w:
             warnings.warn(f"sample {sample_name!r}: {w}", ConvergenceWarning, stacklevel=2)

@@ -79,6 +79,10 @@ MODE_JUMP_SHARE = 0.1
 #: Degrees of freedom and widening of the Student-t independence proposal.
 T_DOF = 5.0
 T_WIDEN = 1.2
+#: Shortest burn-in stage [steps]: the burn-in is split into a
+#: differential-evolution stage and a production-move stage when it is at
+#: least twice this long.
+MIN_STAGE_STEPS = 50
 #: Shrink factor of the Laplace-shaped starting ball.
 BALL_SHRINK = 1.0
 
@@ -245,8 +249,10 @@ def run_ensemble(
     max_steps : int, optional
         When given and the effective sample size after ``n_steps`` is below
         :data:`MIN_ESS`, the production chain is continued (same moves, from
-        where it stopped) by the steps that size needs, up to ``max_steps``
-        in all; ``n_steps`` of the result is the length actually run.
+        where it stopped) by the steps that size needs, with tau estimated
+        again on the longer chain after every extension, until the size is
+        reached or ``max_steps`` in all; ``n_steps`` of the result is the
+        length actually run.
 
     Returns
     -------
@@ -274,57 +280,63 @@ def run_ensemble(
         ).get_state()
         return sampler
 
-    # Burn-in: differential-evolution moves, which adapt to the posterior's
-    # shape through the ensemble itself (emcee documentation: "moves").
+    # Burn-in, in two stages. First differential-evolution moves, which adapt
+    # to the posterior's shape through the ensemble itself (emcee
+    # documentation: "moves"); then the production moves shaped by the first
+    # stage's draws. Those reach a ridge's far tail, which differential
+    # evolution from a start at the best fit is slow to reach, and the
+    # production proposal is shaped again from them.
     hop = modes is not None and bool(np.size(modes))
     burn_moves = [(emcee.moves.DEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)]
     if hop:
         burn_moves = [(emcee.moves.DEMove(), 0.8 - MODE_JUMP_SHARE),
                       (emcee.moves.DEMove(gamma0=1.0), MODE_JUMP_SHARE),
                       (emcee.moves.DESnookerMove(), 0.2)]
+    staged = burn_in >= 2 * MIN_STAGE_STEPS
+    first = burn_in // 2 if staged else burn_in
     burn = seeded(emcee.EnsembleSampler(
         n_walkers, n_par, log_prob, vectorize=True, moves=burn_moves,
     ))
     # The starting ball may be very thin along well-determined directions;
     # emcee's check for linearly dependent walkers would then refuse it.
     state = (
-        burn.run_mcmc(start, burn_in, progress=progress, skip_initial_state_check=True)
-        if burn_in > 0
+        burn.run_mcmc(start, first, progress=progress, skip_initial_state_check=True)
+        if first > 0
         else start
     )
-    if hop and burn_in > 0:
+    if hop and first > 0:
         state = _reset_stragglers(state, rng)
+    moves = _production_moves(burn.get_chain(discard=first // 2), hop) if first >= 20 else None
+    if staged and moves is not None:
+        second = seeded(emcee.EnsembleSampler(
+            n_walkers, n_par, log_prob, vectorize=True, moves=moves
+        ))
+        state = second.run_mcmc(state, burn_in - first, progress=progress,
+                                skip_initial_state_check=True)
+        moves = _production_moves(second.get_chain(), hop) or moves
     # Production: Metropolis steps with a Gaussian proposal shaped by the
-    # covariance of the second half of the burn-in (scaled by 2.38^2/p,
-    # Gelman, Roberts & Gilks 1996), mixed with differential-evolution steps.
-    # The proposal is fixed during production, so the chain is a valid MCMC.
-    moves = [(emcee.moves.DEMove(), 1.0)]
-    if burn_in >= 20:
-        tail = burn.get_chain(discard=burn_in // 2).reshape(-1, n_par)
-        cov = np.atleast_2d(np.cov(tail, rowvar=False))
-        if np.all(np.isfinite(cov)) and np.all(np.linalg.eigvalsh(cov) > 0):
-            try:
-                independence = _independence_move(tail.mean(axis=0), cov)
-            except np.linalg.LinAlgError:
-                independence = emcee.moves.GaussianMove(cov * PROPOSAL_SCALE**2 / n_par)
-            moves = [
-                (emcee.moves.GaussianMove(cov * PROPOSAL_SCALE**2 / n_par), GAUSSIAN_SHARE),
-                (emcee.moves.DEMove(), DE_SHARE),
-                (independence, 1.0 - GAUSSIAN_SHARE - DE_SHARE),
-            ]
-            if hop:
-                moves.append((emcee.moves.DEMove(gamma0=1.0), MODE_JUMP_SHARE))
+    # covariance of the burn-in's last stage (scaled by 2.38^2/p, Gelman,
+    # Roberts & Gilks 1996), mixed with differential-evolution and
+    # independence steps. The proposal is fixed during production, so the
+    # chain is a valid MCMC.
+    if moves is None:
+        moves = [(emcee.moves.DEMove(), 1.0)]
     sampler = seeded(emcee.EnsembleSampler(
         n_walkers, n_par, log_prob, vectorize=True, moves=moves
     ))
     sampler.run_mcmc(state, n_steps - burn_in, progress=progress, skip_initial_state_check=True)
-    if max_steps is not None and max_steps > n_steps:
-        # continue (not restart) a chain whose effective sample is too small
-        tau0 = _tau(sampler.get_chain())
-        post_needed = 1.25 * MIN_ESS * float(np.max(tau0)) / n_walkers
-        extra = int(np.ceil((post_needed - (n_steps - burn_in)) / 100.0) * 100)
-        extra = min(extra, max_steps - n_steps)
-        if extra > 0:
+    if max_steps is not None:
+        # Continue (not restart) a chain whose effective sample is too small,
+        # re-estimating tau after every extension: on a thin curved ridge the
+        # estimate from a short chain is far too low (it grows with the
+        # chain), and one extension sized by it stops short.
+        while n_steps < max_steps:
+            tau0 = _tau(sampler.get_chain())
+            post_needed = 1.25 * MIN_ESS * float(np.max(tau0)) / n_walkers
+            extra = int(np.ceil((post_needed - (n_steps - burn_in)) / 100.0) * 100)
+            extra = min(extra, max_steps - n_steps)
+            if extra <= 0:
+                break
             sampler.run_mcmc(None, extra, progress=progress)
             n_steps += extra
     chain = sampler.get_chain()  # (steps, walkers, p)
@@ -360,6 +372,30 @@ def run_ensemble(
         burn_in=int(burn_in),
         thin=thin,
     )
+
+
+def _production_moves(chain: np.ndarray, hop: bool):
+    """Production moves shaped by burn-in draws ``chain`` (steps, walkers, p).
+
+    Returns None when the draws' covariance is not positive definite.
+    """
+    n_par = chain.shape[-1]
+    tail = chain.reshape(-1, n_par)
+    cov = np.atleast_2d(np.cov(tail, rowvar=False))
+    if not (np.all(np.isfinite(cov)) and np.all(np.linalg.eigvalsh(cov) > 0)):
+        return None
+    try:
+        independence = _independence_move(tail.mean(axis=0), cov)
+    except np.linalg.LinAlgError:
+        independence = emcee.moves.GaussianMove(cov * PROPOSAL_SCALE**2 / n_par)
+    moves = [
+        (emcee.moves.GaussianMove(cov * PROPOSAL_SCALE**2 / n_par), GAUSSIAN_SHARE),
+        (emcee.moves.DEMove(), DE_SHARE),
+        (independence, 1.0 - GAUSSIAN_SHARE - DE_SHARE),
+    ]
+    if hop:
+        moves.append((emcee.moves.DEMove(gamma0=1.0), MODE_JUMP_SHARE))
+    return moves
 
 
 def _tau(chain: np.ndarray) -> np.ndarray:

@@ -31,6 +31,7 @@ from zoning.io.figures import (
     _title,
     _wrap,
 )
+from zoning.io.joint_results import LEFT_OUT_VERDICTS
 
 __all__ = ["sample_figure", "crystals_figure", "sample_figures", "JOINT_FIGURES"]
 
@@ -68,7 +69,7 @@ def sample_figure(result, *, fig: Figure | None = None,
     matplotlib.figure.Figure
     """
     with _styled(style) as st:
-        apart = [c for c in result.crystals if c.group != 1 and c.verdict != "excluded"]
+        apart = [c for c in result.crystals if c.group != 1 and c.verdict not in LEFT_OUT_VERDICTS]
         n_panels = 3 if apart else 2
         if fig is None:
             height = 2.6 * n_panels + 1.2 if st.narrow else 4.8
@@ -149,7 +150,8 @@ def crystals_figure(result, *, fig: Figure | None = None,
     matplotlib.figure.Figure
     """
     with _styled(style) as st:
-        shown = [c for c in result.crystals if c.verdict != "excluded" and not c.curve.empty]
+        shown = [c for c in result.crystals
+                 if c.verdict not in LEFT_OUT_VERDICTS and not c.curve.empty]
         n = max(len(shown), 1)
         cols = min(2 if st.narrow else (4 if st.legend_side == "right" else 3), n)
         rows = math.ceil(n / cols)

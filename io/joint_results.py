@@ -42,6 +42,11 @@ __all__ = [
     "joint_caution",
 ]
 
+#: Verdicts (:data:`zoning.fitting.joint.VERDICTS`) of crystals left out of
+#: every group, by the user or for too few usable spots: no joint estimates,
+#: no profile table, not drawn.
+LEFT_OUT_VERDICTS = ("excluded", "too few spots")
+
 #: The general assumption statement of joint fits (the single-fit one says
 #: that sections and diffusion are fitted; joint fits never fit diffusion and
 #: fit sections only when asked, which :func:`joint_caution` states).
@@ -244,7 +249,7 @@ def _crystal_folders(result: Any) -> list[tuple[Any, str]]:
     """Crystals that get a profile table, with their sub-folder names."""
     names = unique_names([c.name for c in result.crystals])
     return [(c, sub) for c, sub in zip(result.crystals, names, strict=True)
-            if c.verdict != "excluded" and not c.spots.empty]
+            if c.verdict not in LEFT_OUT_VERDICTS and not c.spots.empty]
 
 
 def sample_output_names(result: Any, *, figures: bool = True, report: bool = True,

@@ -1108,7 +1108,8 @@ def _sample_crystals(ctx):
             Paragraph("consistent: shares the melt of the others and enters the shared "
                       "answer; likely antecryst: disagrees with the others (leave-one-out "
                       "likelihood-ratio test) and is left out of the shared answer; excluded: "
-                      "left out by the user.", size=7.5, italic=True)]
+                      "left out by the user; too few spots: left out, fewer usable spots "
+                      "than its parameters need.", size=7.5, italic=True)]
 
 
 @section("Methods", sample=40)

@@ -18,7 +18,12 @@ from zoning.fitting import fit_sample
 from zoning.fitting import joint as J
 from zoning.fitting.problem import FitProblem, TraceData, _build_model
 
-from zoning.exceptions import CalibrationRangeWarning, DataQualityWarning, ZoningError
+from zoning.exceptions import (
+    CalibrationRangeWarning,
+    DataQualityWarning,
+    FitError,
+    ZoningError,
+)
 from zoning.models import CrystallizationModel
 from zoning.traverse import Traverse
 
@@ -204,6 +209,31 @@ def test_excluded_crystals_are_left_out_and_listed():
     assert J.PROCESS_NOTE in res.warnings
     keys = [m.key for m in res.methods]
     assert "wilks_1938" in keys and "hart_davis_1978" in keys
+
+
+def _shortened(traverse, n_spots):
+    """The traverse with only its first ``n_spots`` spots."""
+    return Traverse(traverse.name, traverse.source, traverse.mineral,
+                    traverse.spots.iloc[:n_spots].reset_index(drop=True))
+
+
+def test_crystal_with_too_few_spots_is_left_out_and_said_not_a_stop():
+    traverses, _ = js.sample(n_hosts=3, antecryst=False, n_spots=25, seed=12)
+    # 4 growth parameters + the initial Ni: 7 spots needed, 6 given
+    short = _shortened(traverses[1], 6)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        res = fit_sample([traverses[0], short, traverses[2]], melt=js.MELT, n_sweeps=300,
+                         n_chains=12)
+    assert any(issubclass(w.category, DataQualityWarning)
+               and "6 usable spots; at least 7" in str(w.message) for w in caught)
+    assert res.crystal(short.name).verdict == "too few spots"
+    assert res.crystal(short.name).group == 0 and not res.crystal(short.name).estimates
+    assert {c.verdict for c in res.crystals if c.name != short.name} == {"consistent"}
+    assert res.excluded == ()  # the user's exclusions only
+    # fewer than two crystals left: the sample cannot be fitted, and says why
+    with pytest.raises(FitError, match="at least two crystals with at least 7 usable"):
+        fit_sample([traverses[0], short], melt=js.MELT)
 
 
 def test_two_melts_are_not_forced_into_one_answer():

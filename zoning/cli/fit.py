@@ -350,6 +350,7 @@ def run(args: argparse.Namespace) -> int:
 
 def _run_joint(args, traverses, common, out_dir, sources, graphics) -> int:
     """Fit every traverse as one crystal of one sample and write the joint outputs."""
+    from zoning.exceptions import FitError
     from zoning.fitting import fit_sample
     from zoning.io.joint_results import format_sample_report, write_sample_outputs
     from zoning.io.outputs import OutputFolder
@@ -386,11 +387,18 @@ def _run_joint(args, traverses, common, out_dir, sources, graphics) -> int:
                   f"({', '.join(sorted(names - set(mine))) or 'none'}); fit it without --joint.",
                   file=sys.stderr)
             continue
-        result = fit_sample(
-            members, **common, name=args.name if len(groups) == 1 else sample,
-            f_rim=args.joint_f_rim, retention=args.joint_retention, exclude=mine,
-            n_chains=32 if args.walkers is None else args.walkers, n_sweeps=args.steps,
-        )
+        try:
+            result = fit_sample(
+                members, **common, name=args.name if len(groups) == 1 else sample,
+                f_rim=args.joint_f_rim, retention=args.joint_retention, exclude=mine,
+                n_chains=32 if args.walkers is None else args.walkers, n_sweeps=args.steps,
+            )
+        except FitError as exc:
+            if len(groups) == 1:
+                raise
+            # one sample that cannot be fitted does not stop the others
+            print(f"zoning fit: sample {sample!r}: not fitted: {exc}", file=sys.stderr)
+            continue
         result = with_command(result, args)
         print(format_sample_report(result))
         results.append(result)
