@@ -83,6 +83,9 @@ T_WIDEN = 1.2
 #: differential-evolution stage and a production-move stage when it is at
 #: least twice this long.
 MIN_STAGE_STEPS = 50
+#: Burn-in draws per coefficient of the largest quadratic of the ridge-
+#: straightening map (_QuadraticShear): with fewer, the map is not used.
+SHEAR_DRAWS_PER_COEF = 20
 #: Shrink factor of the Laplace-shaped starting ball.
 BALL_SHRINK = 1.0
 
@@ -306,14 +309,27 @@ def run_ensemble(
     )
     if hop and first > 0:
         state = _reset_stragglers(state, rng)
-    moves = _production_moves(burn.get_chain(discard=first // 2), hop) if first >= 20 else None
+    # From here on the sampler works in coordinates in which the ridge seen
+    # so far is straight (_Straightened; the same log-posterior values), fitted
+    # to the first stage's draws and again to the second's, which reach
+    # further along the ridge; the chain is mapped back at the end.
+    coords = _Straightened(log_prob)
+    moves = None
+    if first >= 20:
+        draws = burn.get_chain(discard=first // 2)
+        if staged:
+            coords.fit(draws)
+        moves = _production_moves(coords.forward(draws), hop)
     if staged and moves is not None:
         second = seeded(emcee.EnsembleSampler(
-            n_walkers, n_par, log_prob, vectorize=True, moves=moves
+            n_walkers, n_par, coords.log_prob, vectorize=True, moves=moves
         ))
-        state = second.run_mcmc(state, burn_in - first, progress=progress,
-                                skip_initial_state_check=True)
-        moves = _production_moves(second.get_chain(), hop) or moves
+        state = second.run_mcmc(coords.forward_state(state), burn_in - first,
+                                progress=progress, skip_initial_state_check=True)
+        draws, state = coords.inverse(second.get_chain()), coords.inverse_state(state)
+        coords.fit(draws)
+        moves = _production_moves(coords.forward(draws), hop) or moves
+    state = coords.forward_state(state)
     # Production: Metropolis steps with a Gaussian proposal shaped by the
     # covariance of the burn-in's last stage (scaled by 2.38^2/p, Gelman,
     # Roberts & Gilks 1996), mixed with differential-evolution and
@@ -322,16 +338,17 @@ def run_ensemble(
     if moves is None:
         moves = [(emcee.moves.DEMove(), 1.0)]
     sampler = seeded(emcee.EnsembleSampler(
-        n_walkers, n_par, log_prob, vectorize=True, moves=moves
+        n_walkers, n_par, coords.log_prob, vectorize=True, moves=moves
     ))
     sampler.run_mcmc(state, n_steps - burn_in, progress=progress, skip_initial_state_check=True)
+
     if max_steps is not None:
         # Continue (not restart) a chain whose effective sample is too small,
         # re-estimating tau after every extension: on a thin curved ridge the
         # estimate from a short chain is far too low (it grows with the
         # chain), and one extension sized by it stops short.
         while n_steps < max_steps:
-            tau0 = _tau(sampler.get_chain())
+            tau0 = _tau(coords.inverse(sampler.get_chain()))
             post_needed = 1.25 * MIN_ESS * float(np.max(tau0)) / n_walkers
             extra = int(np.ceil((post_needed - (n_steps - burn_in)) / 100.0) * 100)
             extra = min(extra, max_steps - n_steps)
@@ -339,7 +356,7 @@ def run_ensemble(
                 break
             sampler.run_mcmc(None, extra, progress=progress)
             n_steps += extra
-    chain = sampler.get_chain()  # (steps, walkers, p)
+    chain = coords.inverse(sampler.get_chain())  # (steps, walkers, p)
     # A walker that never moved in production (stranded in a small, narrow
     # mode that no move reaches or leaves) carries no information on the
     # posterior's shape and would give it a spike: leave it out.
@@ -372,6 +389,138 @@ def run_ensemble(
         burn_in=int(burn_in),
         thin=thin,
     )
+
+
+class _QuadraticShear:
+    """Triangular map with a constant Jacobian that straightens a curved ridge.
+
+    Built from burn-in draws ``u`` (k, p): the draws are standardized, put in
+    an order in which each parameter is best predicted by the ones before it,
+    and every parameter after the first is shifted by a quadratic (linear
+    and squared terms and products) in those before it, fitted by least
+    squares to the draws: ``w_k = z_k - q_k(z_1 .. z_{k-1})``. The order is
+    found backwards: the last parameter is the one a quadratic in all the
+    others predicts best (largest R^2), and so on. The map is a scaling
+    followed by a lower-triangular map with unit diagonal, so its Jacobian
+    is constant and cancels in every Metropolis-Hastings ratio: sampling
+    ``w`` with the target ``log_prob(inverse(w))`` is sampling ``u``
+    exactly, whatever the fitted coefficients. Where parameters trade off
+    along a bent ridge (a thin direction whose position depends on the long
+    ones through a curve) the ridge is nearly straight and uncorrelated in
+    ``w``, which the ensemble's linear moves and the independence proposal
+    follow. A transport map of the lowest useful order (triangular maps
+    fitted to draws: Parno & Marzouk 2018).
+    """
+
+    def __init__(self, u: np.ndarray):
+        u = np.asarray(u, dtype=float)
+        self.mean = u.mean(axis=0)
+        sd = u.std(axis=0)
+        self.sd = np.where(sd > 0, sd, 1.0)
+        z = (u - self.mean) / self.sd
+        remaining = list(range(u.shape[1]))
+        tail = []
+        while len(remaining) > 1:
+            scores = []
+            for v in remaining:
+                others = [o for o in remaining if o != v]
+                scores.append(-self._residual_var(z[:, others], z[:, v]))
+            v = remaining[int(np.argmax(scores))]
+            tail.insert(0, v)
+            remaining.remove(v)
+        self.order = np.array(remaining + tail)
+        zo = z[:, self.order]
+        self.coef = [None]
+        for k in range(1, u.shape[1]):
+            feats = self._features(zo[:, :k])
+            coef, *_ = np.linalg.lstsq(feats, zo[:, k], rcond=None)
+            self.coef.append(coef if np.all(np.isfinite(coef)) else np.zeros(feats.shape[1]))
+
+    @classmethod
+    def _residual_var(cls, x, y) -> float:
+        feats = cls._features(x)
+        coef, *_ = np.linalg.lstsq(feats, y, rcond=None)
+        return float(np.var(y - feats @ coef)) if np.all(np.isfinite(coef)) else np.inf
+
+    @staticmethod
+    def _features(y: np.ndarray) -> np.ndarray:
+        k = y.shape[1]
+        quad = [y[:, a] * y[:, b] for a in range(k) for b in range(a, k)]
+        return np.column_stack([np.ones(y.shape[0]), y, *quad])
+
+    @staticmethod
+    def n_features(p: int) -> int:
+        """Coefficients of the last component's quadratic (p parameters)."""
+        k = p - 1
+        return 1 + k + k * (k + 1) // 2
+
+    def forward(self, u: np.ndarray) -> np.ndarray:
+        """Parameters u (m, p) -> straightened coordinates w (m, p)."""
+        z = ((np.atleast_2d(u) - self.mean) / self.sd)[:, self.order]
+        w = z.copy()
+        for k in range(1, z.shape[1]):
+            w[:, k] = z[:, k] - self._features(z[:, :k]) @ self.coef[k]
+        return w
+
+    def inverse(self, w: np.ndarray) -> np.ndarray:
+        """Straightened coordinates w (m, p) -> parameters u (m, p)."""
+        w = np.atleast_2d(w)
+        z = w.copy()
+        for k in range(1, w.shape[1]):
+            z[:, k] = w[:, k] + self._features(z[:, :k]) @ self.coef[k]
+        u = np.empty_like(z)
+        u[:, self.order] = z
+        return u * self.sd + self.mean
+
+
+class _Straightened:
+    """Sampler coordinates: the parameters, or a fitted :class:`_QuadraticShear` of them.
+
+    Chains and states are converted with :meth:`forward`/:meth:`inverse`
+    (any leading shape, parameters last); :meth:`log_prob` is the target in
+    the current coordinates, with the same values as ``log_prob`` of the
+    parameters (the map's Jacobian is constant).
+    """
+
+    def __init__(self, log_prob):
+        self._log_prob = log_prob
+        self.shear = None
+
+    def fit(self, draws: np.ndarray) -> None:
+        """Fit the map to draws of the parameters (any leading shape), when there are enough."""
+        flat = draws.reshape(-1, draws.shape[-1])
+        p = flat.shape[1]
+        if p >= 2 and flat.shape[0] >= SHEAR_DRAWS_PER_COEF * _QuadraticShear.n_features(p):
+            shear = _QuadraticShear(flat)
+            w = shear.forward(flat)
+            # a map fitted to degenerate draws (a walker set that never
+            # moved) is not used
+            if np.all(np.isfinite(w)) and np.allclose(shear.inverse(w), flat, rtol=1e-8,
+                                                      atol=1e-10 * np.abs(flat).max()):
+                self.shear = shear
+
+    def forward(self, u: np.ndarray) -> np.ndarray:
+        if self.shear is None:
+            return u
+        return self.shear.forward(u.reshape(-1, u.shape[-1])).reshape(u.shape)
+
+    def inverse(self, w: np.ndarray) -> np.ndarray:
+        if self.shear is None:
+            return w
+        return self.shear.inverse(w.reshape(-1, w.shape[-1])).reshape(w.shape)
+
+    def forward_state(self, state):
+        coords = np.asarray(state.coords if hasattr(state, "coords") else state, dtype=float)
+        lp = getattr(state, "log_prob", None)
+        rs = getattr(state, "random_state", None)
+        return emcee.State(self.forward(coords), log_prob=lp, random_state=rs)
+
+    def inverse_state(self, state):
+        return emcee.State(self.inverse(np.asarray(state.coords, dtype=float)),
+                           log_prob=state.log_prob, random_state=state.random_state)
+
+    def log_prob(self, w: np.ndarray) -> np.ndarray:
+        return self._log_prob(self.inverse(np.atleast_2d(w)))
 
 
 def _production_moves(chain: np.ndarray, hop: bool):

@@ -174,6 +174,34 @@ def test_joint_fit_of_a_file_with_two_samples_fits_each_on_its_own(two_sample_ta
     assert any("2 samples in their sample column" in w for w in res.warnings)
 
 
+def test_joint_fit_of_several_samples_goes_on_past_one_it_cannot_fit(two_sample_table,
+                                                                     tmp_path, capsys):
+    table = pd.read_csv(two_sample_table)
+    rank = table.groupby(["Sample", "Crystal"]).cumcount()
+    # FRL-31: ol3 dropped and ol2 cut to 5 spots -> one usable crystal, not fitted;
+    # FRL-32: ol3 cut to 5 spots -> left out, the sample fitted with ol1 and ol2.
+    keep = ~((table["Sample"] == "FRL-31") & (table["Crystal"] == "ol3"))
+    keep &= ~((table["Crystal"].isin(["ol2"]) & (table["Sample"] == "FRL-31")) & (rank >= 5))
+    keep &= ~((table["Crystal"].isin(["ol3"]) & (table["Sample"] == "FRL-32")) & (rank >= 5))
+    path = tmp_path / "ferrolyn_short_traverses.csv"
+    table[keep].to_csv(path, index=False)
+    out = tmp_path / "joint"
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DataQualityWarning)
+        code = _run(["fit", str(path), "--melt", "FeO=9.5", "--joint", "--steps", "200",
+                     "--walkers", "8", "--no-figures", "--no-report", "--out", str(out)])
+    captured = capsys.readouterr()
+    assert code == 1 and "Traceback" not in captured.err
+    assert "sample 'FRL-31': not fitted" in captured.err
+    assert "at least two crystals with at least 7 usable spots" in captured.err
+    summary = pd.read_csv(out / "summary.csv", comment="#")
+    assert list(summary["sample"]) == ["FRL-32"]
+    crystals = pd.read_csv(out / "crystals.csv", comment="#")
+    verdicts = dict(zip(crystals["crystal"], crystals["verdict"], strict=True))
+    assert verdicts["FRL-32 ol3"] == "too few spots"
+    assert "5 usable spots; at least 7" in captured.out
+
+
 def test_joint_fit_with_free_sections_writes_them_per_crystal(two_sample_table, tmp_path,
                                                               capsys):
     out = tmp_path / "joint_sections"
