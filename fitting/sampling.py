@@ -290,11 +290,11 @@ def run_ensemble(
     # evolution from a start at the best fit is slow to reach, and the
     # production proposal is shaped again from them.
     hop = modes is not None and bool(np.size(modes))
-    burn_moves = [(emcee.moves.DEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)]
+    burn_moves = [(emcee.moves.DEMove(), 0.8), (_GuardedSnooker(), 0.2)]
     if hop:
         burn_moves = [(emcee.moves.DEMove(), 0.8 - MODE_JUMP_SHARE),
                       (emcee.moves.DEMove(gamma0=1.0), MODE_JUMP_SHARE),
-                      (emcee.moves.DESnookerMove(), 0.2)]
+                      (_GuardedSnooker(), 0.2)]
     staged = burn_in >= 2 * MIN_STAGE_STEPS
     first = burn_in // 2 if staged else burn_in
     burn = seeded(emcee.EnsembleSampler(
@@ -389,6 +389,42 @@ def run_ensemble(
         burn_in=int(burn_in),
         thin=thin,
     )
+
+
+class _GuardedSnooker(emcee.moves.DESnookerMove):
+    """emcee's snooker move (ter Braak & Vrugt 2008) that stays put on a 0/0 direction.
+
+    The snooker direction is the walker's difference to a randomly chosen
+    walker of the other sets. When the two coincide (walkers that collapsed
+    onto one point at a bound, or that were reset onto the same state) the
+    direction is 0/0 and emcee's move proposes NaN coordinates, whose
+    log-probability is NaN. Here such a walker proposes its own position
+    (accepted, so the chain stays where it is), with the same random draws
+    as emcee's move otherwise, so chains without coinciding walkers are
+    unchanged.
+    """
+
+    def get_proposal(self, s, c, random):
+        n_s = len(s)
+        n_c = list(map(len, c))
+        ndim = s.shape[1]
+        q = np.empty_like(s)
+        metropolis = np.empty(n_s, dtype=np.float64)
+        for i in range(n_s):
+            w = np.array([c[j][random.randint(n_c[j])] for j in range(3)])
+            random.shuffle(w)
+            z, z1, z2 = w
+            delta = s[i] - z
+            norm = np.linalg.norm(delta)
+            if not norm > 0.0:
+                q[i] = s[i]
+                metropolis[i] = 0.0
+                continue
+            u = delta / np.sqrt(norm)
+            q[i] = s[i] + u * self.gammas * (np.dot(u, z1) - np.dot(u, z2))
+            with np.errstate(divide="ignore"):
+                metropolis[i] = np.log(np.linalg.norm(q[i] - z)) - np.log(norm)
+        return q, 0.5 * (ndim - 1.0) * metropolis
 
 
 class _QuadraticShear:

@@ -132,3 +132,30 @@ def test_ridge_straightening_map_is_exact_and_straightens_the_twisted_gaussian()
     assert list(shear.order) == [1, 0]
     assert np.std(w[:, 1]) * shear.sd[0] == pytest.approx(1.0, rel=0.05)
     assert abs(np.corrcoef(w[:, 0] ** 2, w[:, 1])[0, 1]) < 0.05
+
+
+def test_snooker_move_with_coinciding_walkers_stays_put_instead_of_nan():
+    """A walker whose snooker partner sits on the same point keeps its position.
+
+    Closed form: with every walker of the ensemble on one point the snooker
+    direction is 0/0; the proposal must be that point itself with a zero
+    log-ratio (emcee's own move gives NaN there). Away from coinciding
+    walkers the guarded move is emcee's move, draw for draw.
+    """
+    import emcee
+    from zoning.fitting.sampling import _GuardedSnooker
+
+    ndim = 3
+    same = np.ones((4, ndim))
+    others = [np.ones((4, ndim)) for _ in range(3)]
+    q, log_ratio = _GuardedSnooker().get_proposal(same, others, np.random.RandomState(1))
+    assert_allclose(q, same)
+    assert_allclose(log_ratio, 0.0)
+
+    rng = np.random.default_rng(2)
+    s = rng.standard_normal((5, ndim))
+    c = [rng.standard_normal((5, ndim)) for _ in range(3)]
+    q_ref, r_ref = emcee.moves.DESnookerMove().get_proposal(s, c, np.random.RandomState(7))
+    q_new, r_new = _GuardedSnooker().get_proposal(s, c, np.random.RandomState(7))
+    assert_allclose(q_new, q_ref, rtol=0, atol=0)
+    assert_allclose(r_new, r_ref, rtol=0, atol=0)
