@@ -174,8 +174,10 @@ from zoning.fitting.problem import (
 from zoning.fitting.results import Estimate
 from zoning.fitting.sampling import (
     MIN_ESS,
+    SHEAR_DRAWS_PER_COEF,
     T_DOF,
     T_WIDEN,
+    _QuadraticShear,
     credible_band,
     laplace_covariance,
 )
@@ -764,6 +766,16 @@ class _Joint:
     # (hyperbolic) in the natural parameters, is straight in the logarithms
     # and the linear moves follow it. The flat priors are kept through the
     # Jacobian (d v / d log v = v).
+    #
+    # Where the section is off the core (h/R free, or fixed above 0), the
+    # spots fix the composition of the zone the section's centre cuts, not
+    # the crystal's own core: that zone grew at F = g F_rim with
+    # g = c + (1 - c) s, s = (h/R)^n and c = F_core / F_rim. Every crystal
+    # but the anchor (whose F_core is held at 0) is therefore sampled in
+    # log g instead of log c, so that a move of h/R or n keeps the observed
+    # core where the data put it instead of dragging it along a curved
+    # ridge; c = (g - s) / (1 - s), with log |d c / d log g| = log g -
+    # log(1 - s) in the Jacobian. Without a section offset s = 0 and g = c.
     def _k(self, w):
         if "kd" in self.shared:
             kd = w[:, self.shared.index("kd")]
@@ -793,9 +805,11 @@ class _Joint:
         v = np.atleast_2d(np.asarray(v, dtype=float))
         w = v.copy()
         w[:, 0] = equilibrium_crystal(v[:, 0], self._k(v))
+        g_cols, s = self._observed_core(v)
+        w[:, g_cols] = v[:, g_cols] + (1.0 - v[:, g_cols]) * s
         L = self._log_cols
         with np.errstate(divide="ignore"):
-            w[:, L] = np.maximum(np.log(np.maximum(v[:, L], 0.0)), self._slo[L])
+            w[:, L] = np.maximum(np.log(np.maximum(w[:, L], 0.0)), self._slo[L])
         return w
 
     def from_sampler(self, w):
@@ -807,7 +821,32 @@ class _Joint:
         L = self._log_cols
         # at the floor: the natural lower bound itself (the anchor's F_core of 0)
         v[:, L] = np.where(w[:, L] <= self._slo[L], self.lower[L], np.exp(w[:, L]))
+        g_cols, s = self._observed_core(v)
+        v[:, g_cols] = (v[:, g_cols] - s) / (1.0 - s)
         return v
+
+    def _observed_core(self, v):
+        """Columns sampled as the observed core's g, and s = (h/R)^n of their crystals.
+
+        ``v`` holds natural values at least in the section and exponent
+        columns (the same in both coordinate systems). Returns the columns
+        (k,) of the free ``f_core_fraction`` entries and s (m, k); with no
+        section offset, no columns.
+        """
+        if "section_h_over_r" not in self.local and not self.s.section_fixed > 0.0:
+            return np.zeros(0, dtype=int), np.zeros((v.shape[0], 0))
+        crystals = np.array([c for c in range(self.C)
+                             if not self.fixed[self.index("f_core_fraction", c)]], dtype=int)
+        cols = self.S + crystals * self.Q + self.local.index("f_core_fraction")
+        if "section_h_over_r" in self.local:
+            h = v[:, self.S + crystals * self.Q + self.local.index("section_h_over_r")]
+        else:
+            h = np.full((v.shape[0], crystals.size), self.s.section_fixed)
+        if "growth_exponent" in self.local:
+            n = v[:, self.S + crystals * self.Q + self.local.index("growth_exponent")]
+        else:
+            n = self._default("growth_exponent")
+        return cols, np.clip(h, 0.0, 1.0 - 1e-12) ** n
 
     def log_jacobian(self, w):
         """Log |d natural / d sampler|: per crystal (m, C) and shared (m,)."""
@@ -822,6 +861,9 @@ class _Joint:
         local = np.zeros((w.shape[0], self.C))
         sel = ~is_shared & free
         np.add.at(local.T, (L[sel] - self.S) // self.Q, w[:, L[sel]].T)
+        g_cols, s = self._observed_core(w)
+        if g_cols.size:
+            np.add.at(local.T, (g_cols - self.S) // self.Q, -np.log1p(-s).T)
         return local, shared
 
     def log_parts(self, w):
@@ -836,7 +878,10 @@ class _Joint:
         local_w = w[:, self.S :].reshape(-1, self.C, self.Q)
         llo = slo[self.S :].reshape(self.C, self.Q)
         lhi = shi[self.S :].reshape(self.C, self.Q)
-        bad_local = ~np.all((local_w >= llo) & (local_w <= lhi), axis=2)
+        local_v = v[:, self.S :].reshape(-1, self.C, self.Q)
+        bad_local = ~np.all((local_w >= llo) & (local_w <= lhi)
+                            & (local_v >= lo[self.S :].reshape(self.C, self.Q))
+                            & (local_v <= hi[self.S :].reshape(self.C, self.Q)), axis=2)
         vc = np.clip(v, lo, hi)
         per, pr = self.chi2_blocks(vc)
         jac_local, jac_shared = self.log_jacobian(w)
@@ -1078,9 +1123,95 @@ def _stuck_chains(logp: np.ndarray) -> np.ndarray:
     return ~finite | (means < q1 - 2.0 * (q3 - q1))
 
 
+#: Sample in coordinates straightened by a :class:`_BlockShear` fitted to the
+#: burn-in draws (False: the sampler coordinates themselves).
+STRAIGHTEN = True
+
+
+class _BlockShear:
+    """Straightening map of the joint posterior that keeps the crystals apart.
+
+    Fitted to burn-in draws ``u`` (k, p) of the free sampler coordinates. The
+    shared entries are straightened by :class:`~zoning.fitting.sampling._QuadraticShear`
+    (a triangular quadratic map with unit diagonal after standardizing); each
+    local entry is standardized and shifted by a quadratic in the
+    standardized shared entries, fitted by least squares to the draws:
+    ``w_l = z_l - q_l(z_s)``. A crystal's entries depend only on its own
+    and the shared ones, so with the shared entries held the crystals stay
+    conditionally independent and the per-crystal block moves remain exact
+    Gibbs steps. The map is triangular with a constant Jacobian, which
+    cancels in every Metropolis-Hastings ratio: the target in ``w`` is the
+    target in ``u`` at ``inverse(w)``, whatever the coefficients. Where a
+    crystal's F_core or h/R follows the shared melt and F_rim along a bent
+    ridge, the ridge is nearly straight in ``w``.
+    """
+
+    def __init__(self, u: np.ndarray, shared_cols: np.ndarray, local_cols: np.ndarray):
+        u = np.asarray(u, dtype=float)
+        self.Is, self.Il = np.asarray(shared_cols), np.asarray(local_cols)
+        us, ul = u[:, self.Is], u[:, self.Il]
+        self.shared = _QuadraticShear(us)
+        self.ms = us.mean(axis=0)
+        sd = us.std(axis=0)
+        self.ss = np.where(sd > 0, sd, 1.0)
+        self.ml = ul.mean(axis=0)
+        sd = ul.std(axis=0)
+        self.sl = np.where(sd > 0, sd, 1.0)
+        feats = _QuadraticShear._features((us - self.ms) / self.ss)
+        coef, *_ = np.linalg.lstsq(feats, (ul - self.ml) / self.sl, rcond=None)
+        self.coef = np.where(np.isfinite(coef), coef, 0.0)
+
+    @classmethod
+    def fitted(cls, u, shared_cols, local_cols):
+        """Fit the map to ``u``; None when the draws are too few or degenerate."""
+        u = np.asarray(u, dtype=float).reshape(-1, np.shape(u)[-1])
+        n_s = np.size(shared_cols)
+        need = SHEAR_DRAWS_PER_COEF * _QuadraticShear.n_features(n_s + 1)
+        if n_s < 1 or u.shape[0] < need or not np.all(np.isfinite(u)):
+            return None
+        with np.errstate(all="ignore"):
+            shear = cls(u, shared_cols, local_cols)
+            w = shear.forward(u)
+            back = shear.inverse(w)
+        scale = np.abs(u).max(axis=0) + 1e-300
+        if not (np.all(np.isfinite(w)) and np.allclose(back / scale, u / scale, rtol=0,
+                                                       atol=1e-9)):
+            return None
+        return shear
+
+    def _shift(self, us):
+        return _QuadraticShear._features((us - self.ms) / self.ss) @ self.coef
+
+    def forward(self, u: np.ndarray) -> np.ndarray:
+        """Free sampler coordinates u (m, p) -> straightened w (m, p)."""
+        u = np.atleast_2d(u)
+        w = np.empty_like(u)
+        us = u[:, self.Is]
+        w[:, self.Is] = self.shared.forward(us)
+        w[:, self.Il] = (u[:, self.Il] - self.ml) / self.sl - self._shift(us)
+        return w
+
+    def inverse(self, w: np.ndarray) -> np.ndarray:
+        """Straightened w (m, p) -> free sampler coordinates u (m, p)."""
+        w = np.atleast_2d(w)
+        u = np.empty_like(w)
+        us = self.shared.inverse(w[:, self.Is])
+        u[:, self.Is] = us
+        u[:, self.Il] = (w[:, self.Il] + self._shift(us)) * self.sl + self.ml
+        return u
+
+
 def _sample(joint: _Joint, v_best: np.ndarray, cov: np.ndarray, *, n_chains: int,
-            n_sweeps: int, seed: int) -> _Chain:
-    """Metropolis-within-Gibbs with parallel crystal blocks and a shear move."""
+            n_sweeps: int, seed: int, straighten: bool | None = None) -> _Chain:
+    """Metropolis-within-Gibbs with parallel crystal blocks and a shear move.
+
+    With ``straighten`` (default :data:`STRAIGHTEN`) the moves work in the
+    coordinates of a :class:`_BlockShear` fitted to the burn-in draws at half
+    and at three quarters of the burn-in (the second fit, to the draws in
+    between, is kept for production); the chains are returned in natural
+    coordinates either way.
+    """
+    straighten = STRAIGHTEN if straighten is None else straighten
     rng = np.random.default_rng(seed)
     free = np.flatnonzero(~joint.fixed)
     w_full = joint.to_sampler(v_best)[0]
@@ -1096,10 +1227,17 @@ def _sample(joint: _Joint, v_best: np.ndarray, cov: np.ndarray, *, n_chains: int
     log_scale_local = np.log(2.38 / np.sqrt(np.maximum(dim_c, 1)))
     log_scale_shared = np.log(2.38 / np.sqrt(max(shared_cols.size, 1)))
     burn = int(n_sweeps * BURN_FRACTION)
+    shear = None  # W holds sampler coordinates u until a map is fitted
+
+    def to_u(w):
+        return w if shear is None else shear.inverse(w)
+
+    def to_w(u):
+        return u if shear is None else shear.forward(u)
 
     def full(w):
         out = np.repeat(w_full[None, :], w.shape[0], axis=0)
-        out[:, free] = w
+        out[:, free] = to_u(w)
         return out
 
     # start: Laplace draws, each kept only where its posterior is finite
@@ -1111,7 +1249,7 @@ def _sample(joint: _Joint, v_best: np.ndarray, cov: np.ndarray, *, n_chains: int
     start[bad] = w0
     W = start
     lc, ls = joint.log_parts(full(W))
-    kept = []
+    kept = []  # burn-in: sampler coordinates u; production: natural values
     logp_burn = []  # log-target of every chain over the burn-in
     n_restarted = 0
     indep = indep_mean = indep_sd = None
@@ -1122,6 +1260,8 @@ def _sample(joint: _Joint, v_best: np.ndarray, cov: np.ndarray, *, n_chains: int
     de_gamma = 2.38 / np.sqrt(2.0 * free.size)
     de_jitter = 1e-4 * np.sqrt(np.maximum(np.diag(cov), 0.0))
     n_prod = 0
+    reshape_at = {burn // 2, 3 * burn // 4} if straighten else {burn // 2}
+    last_reshape = 0
     for t in range(n_sweeps):
         adapt = t < burn
         gamma = 1.0 / np.sqrt(t + 1.0)
@@ -1194,16 +1334,29 @@ def _sample(joint: _Joint, v_best: np.ndarray, cov: np.ndarray, *, n_chains: int
             acc_ind += float(acc_i.mean())
         if adapt:
             log_scale_shared += gamma * (float(accept.mean()) - 0.25)
-            kept.append(W.copy())
+            kept.append(to_u(W))
             logp_burn.append(lc.sum(axis=1) + ls)
-            if t == burn // 2 and burn >= 40:
-                tail = np.concatenate(kept[len(kept) // 2 :], axis=0)
+            if t in reshape_at and burn >= 40:
+                # reshape the moves from the draws since the last reshaping
+                # (the second half of them at the first), after refitting the
+                # straightening map to them
+                first = len(kept) // 2 if last_reshape == 0 else last_reshape
+                tail_u = np.concatenate(kept[first:], axis=0)
+                last_reshape = len(kept)
+                if straighten:
+                    fitted = _BlockShear.fitted(tail_u, shared_cols, local_cols)
+                    if fitted is not None:
+                        U = to_u(W)
+                        shear = fitted
+                        W = to_w(U)
+                tail = to_w(tail_u)
                 emp = np.cov(tail, rowvar=False)
                 if tail.shape[0] > 5 * free.size and np.all(np.isfinite(emp)):
                     try:
                         blocks = _Blocks(_sym(emp), shared_cols, local_cols, crystal_of_local)
                         log_scale_shared = np.log(2.38 / np.sqrt(max(shared_cols.size, 1)))
                         log_scale_local = np.log(2.38 / np.sqrt(np.maximum(dim_c, 1)))
+                        de_jitter = 1e-4 * np.sqrt(np.maximum(np.diag(emp), 0.0))
                     except np.linalg.LinAlgError:
                         pass
             if t == burn - 1:
@@ -1216,7 +1369,7 @@ def _sample(joint: _Joint, v_best: np.ndarray, cov: np.ndarray, *, n_chains: int
                     n_restarted = int(stuck.sum())
                 good = np.flatnonzero(~stuck)
                 indep, indep_mean, indep_sd = _independence(
-                    [k[good] for k in kept[len(kept) // 2 :]])
+                    [to_w(k[good]) for k in kept[len(kept) // 2 :]])
                 kept = []
         else:
             acc_s += float(accept.mean())
