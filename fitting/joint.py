@@ -170,6 +170,7 @@ from zoning.fitting.problem import (
     _select_traces,
     _soft_l1,
     _split_sigma,
+    diffusion_length_max_um,
 )
 from zoning.fitting.results import Estimate
 from zoning.fitting.sampling import (
@@ -184,6 +185,7 @@ from zoning.fitting.sampling import (
 from zoning.fitting.summary import N_CURVE_POINTS, _versions, calibration_messages
 from zoning.fitting.summary import estimate_from_draws as _estimate
 
+from zoning import diffusion as _diffusion
 from zoning import geometry as _geometry
 from zoning.exceptions import (
     CalibrationRangeWarning,
@@ -540,6 +542,8 @@ class _Settings:
     robust: bool
     #: Section offset h/R of every crystal when not fitted (0: cut through the core).
     section_fixed: float = 0.0
+    #: Diffusion length L of every crystal when not fitted [µm] (0: unrelaxed).
+    diffusion_fixed: float = 0.0
 
     def shared_names(self) -> list[str]:
         names = [self.ratio]
@@ -595,6 +599,11 @@ class _Joint:
             lo += [settings.bounds(n)[0] for n in self.local]
             hi += [settings.bounds(n)[1] for n in self.local]
         self.lower, self.upper = np.array(lo), np.array(hi)
+        if "diffusion_length_um" in self.local:
+            # uniform prior on [0, min(R, model bound)] per crystal, as single fits
+            for c, cr in enumerate(self.crystals):
+                i = self.index("diffusion_length_um", c)
+                self.upper[i] = diffusion_length_max_um(cr.radius_um, self.upper[i])
         n = max(c.distance_um.size for c in self.crystals)
         self.N = n
         self.X = np.zeros((self.C, n))
@@ -657,45 +666,62 @@ class _Joint:
             out[name] = local(name)
         if "section_h_over_r" not in out and self.s.section_fixed > 0.0:
             out["section_h_over_r"] = np.full(m * self.C, self.s.section_fixed)
+        if "diffusion_length_um" not in out and self.s.diffusion_fixed > 0.0:
+            out["diffusion_length_um"] = np.full(m * self.C, self.s.diffusion_fixed)
         return out
 
     # -------------------------------------------------------- evaluation
     def predict(self, v: np.ndarray, distance: np.ndarray | None = None) -> dict:
-        """Crystal outputs (m, C, n) at the spots (or at ``distance`` (C, n))."""
+        """Crystal outputs (m, C, n) at the spots (or at ``distance`` (C, n)).
+
+        With a diffusion length L > 0 (fitted per crystal or fixed) every
+        crystal output is the grown profile relaxed by diffusion after growth,
+        as :meth:`zoning.models.CrystallizationModel.profile` computes it for
+        one crystal: the growth profile of the true crystal on the radial grid
+        of :func:`zoning.diffusion.radial_grid` is relaxed with L over the
+        true radius and read at the spots' zone radii; ``"<key>_grown"`` then
+        holds the growth profile.
+        """
         p = self.rows(v)
         m = np.atleast_2d(v).shape[0]
         X = self.X if distance is None else distance
         n = X.shape[1]
         xr = np.broadcast_to(X[None], (m, self.C, n)).reshape(-1, n)
         rr = np.broadcast_to(self.R[None], (m, self.C, 1)).reshape(-1, 1)
-        exponent = p.get("growth_exponent", self._default("growth_exponent"))
-        offset = p.get("core_offset_um", 0.0)
-        section = p.get("section_h_over_r", 0.0)
-        f = _geometry.fraction_from_distance(
-            xr, rr, p["f_core"][:, None], p["f_rim"][:, None],
-            np.reshape(exponent, (-1, 1)) if np.ndim(exponent) else exponent,
-            np.reshape(offset, (-1, 1)) if np.ndim(offset) else offset,
-            self.s.model.section_offset_um,
-            np.reshape(section, (-1, 1)) if np.ndim(section) else section,
-        )
-        f = np.clip(f, 0.0, 0.999)
+
+        def column(value):
+            return np.reshape(value, (-1, 1)) if np.ndim(value) else value
+
+        exponent = column(p.get("growth_exponent", self._default("growth_exponent")))
+        offset = column(p.get("core_offset_um", 0.0))
+        section = column(p.get("section_h_over_r", 0.0))
+        xi = _geometry.zone_fraction(xr, rr, offset, self.s.model.section_offset_um, section)
+        f = np.clip(_geometry.fraction_from_zone(xi**exponent, p["f_core"][:, None],
+                                                 p["f_rim"][:, None]), 0.0, 0.999)
+        length = p.get("diffusion_length_um")
+        diffuse = length is not None and bool(np.any(length > 0))
+        f_eval = f
+        if diffuse:
+            grid = _diffusion.radial_grid()
+            f_grid = _geometry.fraction_from_zone(grid[None, :] ** exponent,
+                                                  p["f_core"][:, None], p["f_rim"][:, None])
+            f_eval = np.concatenate([f, np.clip(f_grid, 0.0, 0.999)], axis=1)
+        n_eval = f_eval.shape[1]
         keys = ["crystal"] + [k for _p, k, _o in self.s.trace_params]
         model_params = {k: val for k, val in p.items()
                         if k not in ("f_core", "f_rim", "growth_exponent", "core_offset_um",
-                                     "section_h_over_r")}
-        out = {k: np.empty((m * self.C, n)) for k in keys + ["f"]}
-        out["f"][:] = f
+                                     "section_h_over_r", "diffusion_length_um")}
         if self.hier:
             # r differs by crystal: one row per (set, crystal)
-            rows, cols, step = m * self.C, n, CHUNK_ROWS
-            fs = f
+            rows, cols, step = m * self.C, n_eval, CHUNK_ROWS
+            fs = f_eval
             params = model_params
         else:
             # the path depends on the set only: every crystal's spots on one row
             # (one integration grid per set instead of one per crystal)
-            rows, cols = m, self.C * n
+            rows, cols = m, self.C * n_eval
             step = max(4, CHUNK_POINTS // cols)
-            fs = f.reshape(m, cols)
+            fs = f_eval.reshape(m, cols)
             params = {k: val[:: self.C] for k, val in model_params.items()}
         res_all = {k: np.empty((rows, cols)) for k in keys}
         with np.errstate(all="ignore"), warnings.catch_warnings():
@@ -706,8 +732,26 @@ class _Joint:
                                         **{k: val[a:b] for k, val in params.items()})
                 for k in keys:
                     res_all[k][a:b] = res[k]
+        grown = {k: res_all[k].reshape(m * self.C, n_eval) for k in keys}
+        out = {"f": f}
         for k in keys:
-            out[k] = res_all[k].reshape(m * self.C, n)
+            out[k] = grown[k][:, :n]
+        if diffuse:
+            positive = (length > 0)[:, None]
+            rel = np.reshape(length, (-1, 1)) * np.sqrt(1.0 - np.square(section)) / rr
+            with np.errstate(all="ignore"), warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                change = self.s.model._relax({k: g[:, n:] for k, g in grown.items()}, {},
+                                             rel, rr)
+            idx, w = _diffusion.grid_interpolation(xi)
+            at = np.arange(m * self.C)[:, None]
+            for k in keys:
+                out[k + "_grown"] = out[k]
+                if k in change:
+                    d = change[k]
+                    delta = (w[0] * d[at, idx] + w[1] * d[at, idx + 1]
+                             + w[2] * d[at, idx + 2] + w[3] * d[at, idx + 3])
+                    out[k] = np.where(positive, out[k] + delta, out[k])
         return {k: val.reshape(m, self.C, n) for k, val in out.items()}
 
     def _default(self, name):

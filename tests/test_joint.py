@@ -545,6 +545,42 @@ def test_stacked_evaluation_with_a_section_per_crystal_equals_each_crystal_alone
                     rtol=RTOL_IDENTITY)
 
 
+@pytest.mark.parametrize("hier", [False, True])
+def test_stacked_evaluation_with_diffusion_per_crystal_equals_each_crystal_alone(hier):
+    # Limit check against the single-crystal forward model: with one
+    # diffusion length (and section) per row, the stacked evaluation must
+    # equal CrystallizationModel.profile(..., diffusion_length_um=L,
+    # section_h_over_r=h) of each crystal alone, relaxed and grown profiles
+    # both; rows with L = 0 are the growth profile (the L -> 0 limit).
+    traverses, _ = js.sample(n_hosts=3, antecryst=False, n_spots=20, seed=4)
+    joint = J._Joint(_settings(hier=hier, per_crystal_rim=True,
+                               extra_local=("section_h_over_r", "diffusion_length_um")),
+                     _crystals(traverses))
+    rng = np.random.default_rng(3)
+    v = _vector(joint, rng)
+    for c in range(joint.C):
+        v[:, joint.index("section_h_over_r", c)] = rng.uniform(0.0, 0.8, v.shape[0])
+        v[:, joint.index("diffusion_length_um", c)] = rng.uniform(0.0, 60.0, v.shape[0])
+    v[0, joint.index("diffusion_length_um", 1)] = 0.0
+    out = joint.predict(v)
+    rows = joint.rows(v)
+    model = joint.s.model
+    for c, cr in enumerate(joint.crystals):
+        ref = _profile_alone(model, cr, rows, c, joint.C,
+                             ("section_h_over_r", "diffusion_length_um"))
+        n = cr.distance_um.size
+        for key in ("crystal", "crystal_grown"):
+            assert_allclose(out[key][:, c, :n], ref[key], rtol=RTOL_STACKED)
+        for key in ("crystal_nio_wt", "crystal_nio_wt_grown"):
+            assert_allclose(out[key][:, c, :n], ref[key], rtol=RTOL_STACKED_TRACE)
+    assert_allclose(out["crystal"][0, 1], out["crystal_grown"][0, 1], rtol=0)
+    assert not np.allclose(out["crystal"][1, 1], out["crystal_grown"][1, 1])
+    # a crystal's L is capped at its section radius (the single-fit prior)
+    for c, cr in enumerate(joint.crystals):
+        assert joint.upper[joint.index("diffusion_length_um", c)] == min(
+            cr.radius_um, {s.name: s for s in model.parameters}["diffusion_length_um"].upper)
+
+
 def test_off_centre_crystals_fitted_with_free_sections_recover_the_shared_melt():
     # Invented sample: three hosts cut at h/R 0.3-0.8, all from one melt.
     traverses, truth = js.sample(n_hosts=3, antecryst=False, n_spots=30, seed=21,
