@@ -267,27 +267,67 @@ PROCESS_NOTE_SECTION_FIXED = (
 #: (a cut changes the profile at O(h^2)), so a start at 0 stays there (the
 #: first level of bestfit.PROCESS_START_LEVELS).
 SECTION_START = PROCESS_START_LEVELS["section_h_over_r"][0]
+#: Starting level of a free diffusion length, as a share of each crystal's
+#: bound (the first level of bestfit.PROCESS_START_LEVELS; same reason).
+DIFFUSION_START = PROCESS_START_LEVELS["diffusion_length_um"][0]
 
 
-def process_note(section_h_over_r) -> str:
+#: Stated instead when diffusion after growth is fitted or fixed: the diffusion
+#: clause, then the section clause (``{section}``) and the caution.
+PROCESS_NOTE_DIFFUSION_FREE = (
+    "joint fits here fit each crystal's diffusion length L = sqrt(D t) after growth "
+    "(uniform prior on [0, min(R, {lmax:g} µm)], R the crystal's section radius; traces "
+    "relaxed with their diffusivities relative to Fe-Mg, the rim held at the melt's "
+    "composition){section}. Diffusion and near-equilibrium growth (high r) both flatten a "
+    "profile: without NiO or another slower-diffusing element they trade off, and the r "
+    "and L bands are then wide."
+)
+PROCESS_NOTE_DIFFUSION_FIXED = (
+    "joint fits here relax every crystal by the same diffusion length L = {length:g} µm "
+    "after growth (not fitted){section}. Crystals that sat in the melt for different times "
+    "relaxed by different lengths: fit them with --diffusion-length-um free."
+)
+_SECTION_CLAUSE = {
+    "free": " and each crystal's section offset h/R (uniform prior on [0, {hmax:g}])",
+    "zero": ", every crystal taken as cut through its core (h/R = 0; an off-centre cut "
+            "biases r towards equilibrium, --section-h-over-r free fits it)",
+    "fixed": ", every crystal taken as cut at h/R = {h:g} (not fitted)",
+}
+
+
+def process_note(section_h_over_r, diffusion_length_um=0.0) -> str:
     """Statement of the processes after growth a joint fit models.
 
     Parameters
     ----------
     section_h_over_r : "free" or float
         The section setting of the fit (0 when growth only).
+    diffusion_length_um : "free" or float, optional
+        The diffusion setting of the fit [µm] (0, the default, when none).
 
     Returns
     -------
     str
-        :data:`PROCESS_NOTE` for h/R = 0, otherwise the statement of the
-        fitted or fixed section.
+        :data:`PROCESS_NOTE` for h/R = 0 and L = 0, otherwise the statement
+        of the fitted or fixed processes.
     """
+    if diffusion_length_um == 0.0:
+        if section_h_over_r == "free":
+            return PROCESS_NOTE_SECTION_FREE.format(hmax=SECTION_H_OVER_R_MAX)
+        if float(section_h_over_r) > 0.0:
+            return PROCESS_NOTE_SECTION_FIXED.format(h=float(section_h_over_r))
+        return PROCESS_NOTE
     if section_h_over_r == "free":
-        return PROCESS_NOTE_SECTION_FREE.format(hmax=SECTION_H_OVER_R_MAX)
-    if float(section_h_over_r) > 0.0:
-        return PROCESS_NOTE_SECTION_FIXED.format(h=float(section_h_over_r))
-    return PROCESS_NOTE
+        clause = _SECTION_CLAUSE["free"].format(hmax=SECTION_H_OVER_R_MAX)
+    elif float(section_h_over_r) > 0.0:
+        clause = _SECTION_CLAUSE["fixed"].format(h=float(section_h_over_r))
+    else:
+        clause = _SECTION_CLAUSE["zero"]
+    if diffusion_length_um == "free":
+        return PROCESS_NOTE_DIFFUSION_FREE.format(lmax=_diffusion.MAX_DIFFUSION_LENGTH_UM,
+                                                  section=clause)
+    return PROCESS_NOTE_DIFFUSION_FIXED.format(length=float(diffusion_length_um),
+                                               section=clause)
 
 #: Verdicts of a crystal.
 VERDICTS = ("consistent", "likely antecryst", "second melt", "excluded", "too few spots",
@@ -1457,7 +1497,7 @@ def _own_fit(settings: _Settings, crystal: _Crystal, model) -> _Own:
     if settings.kd_sd > 0:
         free.append("kd")
     free += [n for n in settings.extra_local
-             if n in OPTIONAL_FREE or n == "section_h_over_r"]
+             if n in OPTIONAL_FREE or n in ("section_h_over_r", "diffusion_length_um")]
     free += [t[0] for t in settings.trace_params if t[0] in crystal.traces]
     free = tuple(n for n in order if n in free)
     fixed = {n: float(specs[n].default) for n in order if n not in free}
@@ -1465,6 +1505,12 @@ def _own_fit(settings: _Settings, crystal: _Crystal, model) -> _Own:
         fixed["kd"] = settings.kd0
     if "section_h_over_r" not in free:
         fixed["section_h_over_r"] = float(settings.section_fixed)
+    if "diffusion_length_um" not in free:
+        fixed["diffusion_length_um"] = float(settings.diffusion_fixed)
+    upper = np.array([specs[n].upper for n in free], dtype=float)
+    if "diffusion_length_um" in free:
+        j = free.index("diffusion_length_um")
+        upper[j] = diffusion_length_max_um(crystal.radius_um, upper[j])
     trace_names = {t[0]: t[1] for t in TRACES[settings.mineral]}
     traces = tuple(TraceData(ox, trace_names.get(ox, ox), key, param, obs, sig, ok)
                    for param, (ox, key, obs, sig, ok) in crystal.traces.items())
@@ -1472,7 +1518,7 @@ def _own_fit(settings: _Settings, crystal: _Crystal, model) -> _Own:
         traverse=crystal.traverse, usable=crystal.usable,
         model=model, names=tuple(order), free=free, fixed=fixed,
         lower=np.array([specs[n].lower for n in free], dtype=float),
-        upper=np.array([specs[n].upper for n in free], dtype=float),
+        upper=upper,
         kd0=settings.kd0, kd_sd=settings.kd_sd, distance_um=crystal.distance_um,
         radius_um=crystal.radius_um, y=crystal.y, sigma=crystal.sigma, traces=traces,
         robust=settings.robust,
@@ -1484,6 +1530,12 @@ def _own_fit(settings: _Settings, crystal: _Crystal, model) -> _Own:
         cut = starts.copy()
         cut[:, free.index("section_h_over_r")] = SECTION_START
         starts = np.concatenate([starts, cut], axis=0)
+    if "diffusion_length_um" in free:
+        # likewise L (the relaxation changes the profile at O(L^2)): start relaxed too
+        j = free.index("diffusion_length_um")
+        relaxed = starts.copy()
+        relaxed[:, j] = DIFFUSION_START * upper[j]
+        starts = np.concatenate([starts, relaxed], axis=0)
     theta, obj, _, _, _ = _optimise(prob, starts)
     if not np.isfinite(obj):
         raise FitError(
@@ -1617,23 +1669,29 @@ def _start(joint: _Joint, owns: Sequence[_Own], y0: float) -> np.ndarray:
 
 
 def _section_starts(joint: _Joint, starts) -> list[np.ndarray]:
-    """Return copies of the starts with every crystal's h/R at :data:`SECTION_START`.
+    """Return copies of the starts moved off the zero-gradient point of each process.
 
-    Empty when h/R is not fitted. The least-squares gradient with respect to
-    h/R vanishes at h = 0, so a crystal started there stays there; the copies
-    let the fit leave a centred cut when the data call for an off-centre one.
+    Empty when neither h/R nor L is fitted. The least-squares gradient with
+    respect to h/R vanishes at h = 0 and that with respect to L at L = 0 (both
+    change the profile at second order), so a crystal started there stays
+    there; the copies (every crystal's h/R at :data:`SECTION_START`; its L at
+    :data:`DIFFUSION_START` of its bound) let the fit leave them when the data
+    call for it.
     """
-    if "section_h_over_r" not in joint.local:
-        return []
-    cols = [joint.index("section_h_over_r", c) for c in range(joint.C)]
     out = []
-    for v0 in starts:
-        v0 = np.array(v0, dtype=float)
-        if np.all(np.isclose(v0[cols], SECTION_START)):
+    for name in ("section_h_over_r", "diffusion_length_um"):
+        if name not in joint.local:
             continue
-        v1 = v0.copy()
-        v1[cols] = SECTION_START
-        out.append(v1)
+        cols = [joint.index(name, c) for c in range(joint.C)]
+        level = (np.full(joint.C, SECTION_START) if name == "section_h_over_r"
+                 else DIFFUSION_START * joint.upper[cols])
+        for v0 in starts:
+            v0 = np.array(v0, dtype=float)
+            if np.allclose(v0[cols], level):
+                continue
+            v1 = v0.copy()
+            v1[cols] = level
+            out.append(v1)
     return out
 
 
@@ -2199,6 +2257,7 @@ def fit_sample(
     n_chains: int = N_CHAINS,
     n_sweeps: int | None = None,
     section_h_over_r: str | float | None = None,
+    diffusion_length_um: str | float | None = None,
 ) -> SampleFitResult:
     """Fit the crystals of one sample jointly: one parent melt, Kd and r.
 
@@ -2241,6 +2300,15 @@ def fit_sample(
         per crystal, uniform prior on [0, :data:`zoning.models.SECTION_H_OVER_R_MAX`]
         (as single fits); a number in [0, 1): that offset for every crystal.
         Geometry "slab" accepts only None or 0 (an offset changes nothing there).
+    diffusion_length_um : None, "free" or float, optional
+        Diffusion length L = sqrt(D t) of Fe-Mg after growth [µm], per crystal
+        (crystals sit in the melt for different times). None (default): no
+        diffusion (growth only, L = 0); "free": fitted per crystal, uniform
+        prior on [0, min(R, model bound)] with R the crystal's section radius
+        (as single fits), the traces relaxed with their diffusivities relative
+        to Fe-Mg and the rim held at the melt's composition; a number: that L
+        for every crystal. Plagioclase needs an MgO or SrO profile (An is
+        practically frozen), as for single fits.
 
     Returns
     -------
@@ -2297,7 +2365,6 @@ def fit_sample(
         # the single-fit rules and wording (slab, range, "free" or a number)
         section = _process_setting("section_h_over_r", section_h_over_r, mineral, geometry,
                                    (), [])
-    extra_local = extra + (("section_h_over_r",) if section == "free" else ())
     names = _unique_names(traverses)
     exclude = tuple(exclude)
     missing = [e for e in exclude if e not in names and e not in [t.name for t in traverses]]
@@ -2358,6 +2425,15 @@ def fit_sample(
                 chosen_all.setdefault(c[3], (c[3], c[2], c[0], c[1]))
     melt_input = read_melt(melt, mineral, fe3_fraction=fe3_fraction)
     melt, fe3_fraction = melt_input.oxides, melt_input.fe3_fraction
+    process_notes: list[str] = []
+    diffusion = 0.0
+    if diffusion_length_um is not None:
+        # the single-fit rules and wording (plagioclase needs an MgO/SrO profile)
+        diffusion = _process_setting("diffusion_length_um", diffusion_length_um, mineral,
+                                     geometry, [v[2] for v in chosen_all.values()],
+                                     process_notes)
+    extra_local = (extra + (("section_h_over_r",) if section == "free" else ())
+                   + (("diffusion_length_um",) if diffusion == "free" else ()))
     model = _build_model(mineral, melt, kd, fe3_fraction,
                          [v[3] for v in chosen_all.values()], geometry, temperature_c)
     kd0, kd_sd_v = _kd_prior(mineral, kd, kd_sd, model)
@@ -2366,17 +2442,20 @@ def fit_sample(
         f_rim_mode=f_rim, retention_mode=retention, extra_local=extra_local,
         trace_params=tuple((p, key, ox) for p, key, ox, _n in chosen_all.values()),
         robust=bool(robust), section_fixed=0.0 if section == "free" else float(section),
+        diffusion_fixed=0.0 if diffusion == "free" else float(diffusion),
     )
     # A crystal with fewer usable spots than its own fit has parameters (plus
     # two) is left out and reported, so that one short traverse does not stop
     # the sample; the sample stops only when fewer than two crystals remain.
-    warn_list: list[str] = list(melt_input.notes)
+    warn_list: list[str] = list(melt_input.notes) + process_notes
     data_quality: set[str] = set()  # messages that are DataQualityWarnings
     n_own = 4 + len(extra_local) + len(settings.trace_params)
     too_few = [i for i in active if crystals[i].y.size < n_own + 2]
     for i in too_few:
         hint = (" or fix its section (--section-h-over-r 0 when its core is in the cut)"
                 if section == "free" else "")
+        if diffusion == "free":
+            hint += " or its diffusion length (--diffusion-length-um 0)"
         msg = (f"crystal {crystals[i].name!r} has {crystals[i].y.size} usable spots; at "
                f"least {n_own + 2} are needed to fit it here: left out (verdict 'too few "
                f"spots'). Check its flagged spots (--include-flagged){hint}.")
@@ -2561,7 +2640,7 @@ def fit_sample(
         )
     if robust:
         warn_list.append("robust (soft-L1) loss used: stray spots are down-weighted.")
-    warn_list.append(process_note(section))
+    warn_list.append(process_note(section, diffusion))
     for w in warn_list:
         if (w in data_quality or "does not share" in w or "two melts" in w
                 or "do not share" in w or "samples in their sample column" in w):
@@ -2616,11 +2695,13 @@ def fit_sample(
         "consistency_test": "leave-one-out likelihood ratio (Wilks 1938), sequential, "
                             f"Bonferroni alpha {ALPHA:g}",
         "sampler": "Metropolis-within-Gibbs, parallel crystal blocks + shear move",
-        "section_h_over_r": section, "diffusion_length_um": 0.0,
+        "section_h_over_r": section, "diffusion_length_um": diffusion,
     }
     from zoning.fitting.methods import joint_methods
 
-    methods = model.methods(processes=("section",) if section != 0.0 else ()) + joint_methods(
+    processes = tuple(p for p, value in (("section", section), ("diffusion", diffusion))
+                      if value != 0.0)
+    methods = model.methods(processes=processes) + joint_methods(
         mineral, kd_mean=kd0, kd_sd=kd_sd_v, kd_default=kd is None,
         fe3_fraction=float(fe3_fraction), fe3_source=melt_input.fe3_source,
         sigma_scaled=any(owns[i].sigma_scale > 1.0 for i in main_members))

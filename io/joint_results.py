@@ -80,8 +80,9 @@ def joint_caution(settings: Mapping[str, Any] | None = None) -> str:
     Parameters
     ----------
     settings : mapping, optional
-        :attr:`SampleFitResult.settings`; its ``section_h_over_r`` ("free" or a
-        number) says whether sections were fitted.
+        :attr:`SampleFitResult.settings`; its ``section_h_over_r`` and
+        ``diffusion_length_um`` ("free" or a number) say whether sections and
+        diffusion after growth were fitted.
 
     Returns
     -------
@@ -89,7 +90,24 @@ def joint_caution(settings: Mapping[str, Any] | None = None) -> str:
         :data:`JOINT_CAUTION` with the section statement of this fit.
     """
     section = (settings or {}).get("section_h_over_r", 0.0)
+    diffusion = (settings or {}).get("diffusion_length_um", 0.0)
     head = _JOINT_CAUTION_HEAD
+    if diffusion != 0.0:
+        if diffusion == "free":
+            text = (" The diffusion length L was fitted per crystal (uniform prior on [0, "
+                    "the crystal's radius]); relaxation and near-equilibrium growth both "
+                    "flatten a profile, so without NiO r and L trade off and their bands "
+                    "are wide.")
+        else:
+            text = (f" Every crystal is taken as relaxed by L = {float(diffusion):g} µm "
+                    "after growth (not fitted).")
+        if section == "free":
+            text += " The section offset h/R was fitted per crystal (uniform prior)."
+        elif float(section) > 0.0:
+            text += f" Every crystal is taken as cut at h/R = {float(section):g} (not fitted)."
+        else:
+            text += " Every crystal is taken as cut through its core."
+        return head + text
     if section == "free":
         return head + (" The section offset h/R was fitted per crystal (uniform prior); "
                        "diffusion after growth was not: each crystal is taken as unrelaxed, "
@@ -143,8 +161,8 @@ def crystals_table(result: Any) -> pd.DataFrame:
         ``sample``, ``crystal``, ``verdict``, ``group``, ``anchor`` (bool),
         ``n_spots``, ``n_used``; ``f_core`` (and ``f_rim``, ``retention`` when
         per crystal, plus any per-crystal free parameter) with ``_lo95`` and
-        ``_hi95`` from the joint fit of its group (``section_h_over_r`` also
-        with ``_constrained``); ``own_<ratio>``,
+        ``_hi95`` from the joint fit of its group (``section_h_over_r`` and
+        ``diffusion_length_um`` also with ``_constrained``); ``own_<ratio>``,
         ``own_f_rim``, ``own_retention``, ``own_kd`` with bands from its own
         single-crystal fit; ``consistency_statistic``, ``consistency_dof``,
         ``consistency_p``, ``reduced_chi_square``, ``own_reduced_chi_square``,
@@ -165,7 +183,7 @@ def crystals_table(result: Any) -> pd.DataFrame:
         }
         for k in local:
             _band(row, k, c.estimates.get(k))
-            if k == "section_h_over_r":
+            if k in ("section_h_over_r", "diffusion_length_um"):
                 # a section offset is often unconstrained by one crystal: say so per crystal
                 e = c.estimates.get(k)
                 row[f"{k}_constrained"] = bool(e.constrained) if e is not None else False

@@ -49,13 +49,17 @@ def crystal(name, truth, *, n_spots, radius_um, rng, sigma=FO_SIGMA) -> Traverse
 
 def sample(*, n_hosts=6, antecryst=True, two_melts=False, n_spots=50, seed=0,
            mg_number=0.76, f_rim=0.16, retention=0.3, kd=0.30, ni_ppm=400.0,
-           antecryst_dmg=0.06, f_core_max=0.10, name="FRL-21", section_h_over_r=None):
+           antecryst_dmg=0.06, f_core_max=0.10, name="FRL-21", section_h_over_r=None,
+           diffusion_length_um=None):
     """Return (traverses, truth) of one invented sample.
 
     ``section_h_over_r`` = (lo, hi) cuts every host crystal off-centre at an
     h/R drawn uniformly in [lo, hi] (from its own random stream, so the other
     draws are those of a centred sample); ``truth["section_h_over_r"]`` holds
     them by crystal name (0 for crystals cut through the centre).
+    ``diffusion_length_um`` = (lo, hi) relaxes every host crystal after
+    growth by an L [µm] drawn uniformly in [lo, hi] (its own stream too);
+    ``truth["diffusion_length_um"]`` holds them by crystal name.
 
     ``truth`` holds the shared values (``melt_mg_number``, ``f_rim``,
     ``retention``, ``kd``, ``melt0_ni_ppm``), ``f_core`` by crystal name,
@@ -69,17 +73,24 @@ def sample(*, n_hosts=6, antecryst=True, two_melts=False, n_spots=50, seed=0,
     h = np.zeros(n_hosts)
     if section_h_over_r is not None:
         h = np.random.default_rng(seed + 1000).uniform(*section_h_over_r, n_hosts)
-    traverses, f_core, cuts = [], {}, {}
+    lengths = np.zeros(n_hosts)
+    if diffusion_length_um is not None:
+        lengths = np.random.default_rng(seed + 2000).uniform(*diffusion_length_um, n_hosts)
+    traverses, f_core, cuts, relaxed = [], {}, {}, {}
     for i, fc in enumerate(f_cores):
         nm = f"{name} ol{i + 1}"
         t = dict(shared, f_core=float(fc))
         if h[i] > 0:
             t["section_h_over_r"] = float(h[i])
+        if lengths[i] > 0:
+            t["diffusion_length_um"] = float(lengths[i])
         cuts[nm] = float(h[i])
+        relaxed[nm] = float(lengths[i])
         traverses.append(crystal(nm, t, n_spots=n_spots, radius_um=rng.uniform(200, 450),
                                  rng=rng))
         f_core[nm] = float(fc)
-    truth = dict(shared, f_core=f_core, antecrysts=[], groups=[], section_h_over_r=cuts)
+    truth = dict(shared, f_core=f_core, antecrysts=[], groups=[], section_h_over_r=cuts,
+                 diffusion_length_um=relaxed)
     if antecryst:
         nm = f"{name} ol{n_hosts + 1}"
         t = dict(shared, melt_mg_number=mg_number + antecryst_dmg, f_rim=0.10, f_core=0.0)

@@ -224,8 +224,8 @@ def test_joint_fit_with_free_sections_writes_them_per_crystal(two_sample_table, 
     "extra, message",
     [
         (["--geometry", "slab", "--section-h-over-r", "free"], "geometry 'slab'"),
-        (["--diffusion-length-um", "free"], "--diffusion-length-um apply to single fits"),
-        (["--delta-qfm", "0"], "--delta-qfm apply to single fits"),
+        (["--diffusion-length-um", "-3"], "diffusion length >= 0"),
+        (["--delta-qfm", "0"], "--delta-qfm applies to single fits"),
     ],
 )
 def test_joint_fit_rejects_what_it_cannot_fit(two_sample_table, tmp_path, capsys, extra,

@@ -605,6 +605,46 @@ def test_off_centre_crystals_fitted_with_free_sections_recover_the_shared_melt()
     assert "not diffusion after growth" in J.process_note("free")
 
 
+def test_diffused_crystals_fitted_with_free_diffusion_recover_the_melt_and_their_lengths():
+    # Invented sample: three hosts from one melt, each relaxed after growth by
+    # its own L in 15-40 µm (sitting in the melt for different times). With
+    # L fitted per crystal the shared bands and every crystal's L band hold
+    # the truth; the settings, process note and methods say diffusion was
+    # fitted.
+    traverses, truth = js.sample(n_hosts=3, antecryst=False, n_spots=30, seed=21,
+                                 diffusion_length_um=(15.0, 40.0))
+    res = _fit(traverses, seed=1, diffusion_length_um="free")
+    assert [c.verdict for c in res.crystals] == ["consistent"] * 3
+    for name in ("melt_mg_number", "f_rim", "retention", "kd"):
+        e = res.estimates[name]
+        assert e.lo95 <= truth[name] <= e.hi95, (name, e)
+    for c in res.crystals:
+        e = c.estimates["diffusion_length_um"]
+        assert e.lo95 <= truth["diffusion_length_um"][c.name] <= e.hi95, (c.name, e)
+    assert res.settings["diffusion_length_um"] == "free"
+    assert any("diffusion_length_um[" in n for n in res.parameter_names)
+    assert J.process_note(0.0, "free") in res.warnings
+    assert any("diffusion" in m.role for m in res.methods)
+    from zoning.io.joint_results import crystals_table, joint_caution
+
+    table = crystals_table(res)
+    assert {"diffusion_length_um", "diffusion_length_um_lo95", "diffusion_length_um_hi95",
+            "diffusion_length_um_constrained"} <= set(table.columns)
+    assert "diffusion length L was fitted per crystal" in joint_caution(res.settings)
+
+
+def test_diffusion_settings_are_checked_as_for_single_fits():
+    traverses, _ = js.sample(n_hosts=2, antecryst=False, n_spots=20, seed=14)
+    with pytest.raises(ZoningError, match="diffusion length >= 0"):
+        fit_sample(traverses, melt=js.MELT, diffusion_length_um=-5.0)
+    with pytest.raises(ZoningError, match="'free' or a number"):
+        fit_sample(traverses, melt=js.MELT, diffusion_length_um="long")
+    # the growth-only note names both processes as held at zero
+    assert "unrelaxed by diffusion" in J.process_note(0.0, 0.0)
+    assert "L = 12 µm" in J.process_note("free", 12.0)
+    assert "section offset h/R" in J.process_note("free", "free")
+
+
 def test_section_settings_are_checked_as_for_single_fits():
     traverses, _ = js.sample(n_hosts=2, antecryst=False, n_spots=20, seed=14)
     with pytest.raises(ZoningError, match="geometry 'slab'"):

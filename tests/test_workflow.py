@@ -312,7 +312,8 @@ joint = true
         read_project(bad)
 
 
-def test_joint_samples_receive_the_section_key_but_not_diffusion(tmp_path, monkeypatch):
+def test_joint_samples_receive_the_section_and_diffusion_keys_but_not_redox(tmp_path,
+                                                                             monkeypatch):
     import zoning.fitting as fitting
 
     from zoning import workflow
@@ -341,4 +342,5 @@ joint = true
     with pytest.raises(_Stop):
         workflow._fit_and_write_joint(job, tmp_path / "build")
     assert seen["section_h_over_r"] == "free"
-    assert "diffusion_length_um" not in seen and "delta_qfm" not in seen
+    assert seen["diffusion_length_um"] == "free"
+    assert "delta_qfm" not in seen

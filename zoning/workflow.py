@@ -1291,10 +1291,9 @@ def _fit_and_write_joint(job: SampleJob, build: Path):
     if job.traverse:
         traverses = [t for t in traverses if t.name == job.traverse] or traverses
     kw = dict(job.fit_options)
-    # Joint fits fit the section offset (per crystal) when asked, but not diffusion
-    # after growth nor the redox setting of single fits.
-    for key in ("diffusion_length_um", "delta_qfm"):
-        kw.pop(key, None)
+    # Joint fits fit the section offset and the diffusion length (per crystal)
+    # when asked, but not the redox setting of single fits.
+    kw.pop("delta_qfm", None)
     if "n_walkers" in kw:
         kw["n_chains"] = kw.pop("n_walkers")
     if "n_steps" in kw:

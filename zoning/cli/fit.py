@@ -191,7 +191,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--diffusion-length-um", metavar="free|L",
                    help="diffusion length sqrt(D t) after growth [µm]: 'free' (fitted; "
                         "olivine default) or a number, 0 for none (plagioclase default: An "
-                        "is frozen)")
+                        "is frozen); with --joint: per crystal, default 0")
     p.add_argument("--delta-qfm", type=float,
                    help="log10 fO2 relative to QFM for the olivine Fe-Mg diffusivity of the "
                         "diffusion time (default 0)")
@@ -296,16 +296,13 @@ def run(args: argparse.Namespace) -> int:
         delta_qfm=args.delta_qfm,
     )
     if args.joint:
-        given = [opt for opt, key in (("--diffusion-length-um", "diffusion_length_um"),
-                                      ("--delta-qfm", "delta_qfm"))
-                 if process[key] is not None]
-        if given:
+        if process["delta_qfm"] is not None:
             raise ZoningError(
-                f"{' and '.join(given)} apply to single fits; joint fits (--joint) do not "
-                "fit diffusion after growth (they can fit each crystal's section, "
-                "--section-h-over-r free). Drop them or fit without --joint."
+                "--delta-qfm applies to single fits; joint fits (--joint) take the melt "
+                "Fe3+/FeT from --fe3. Drop it or fit without --joint."
             )
-        common = dict(common, section_h_over_r=process["section_h_over_r"])
+        common = dict(common, section_h_over_r=process["section_h_over_r"],
+                      diffusion_length_um=process["diffusion_length_um"])
         return _run_joint(args, traverses, common, out_dir, sources, graphics)
     if args.exclude:
         raise ZoningError("--exclude applies to joint fits only; add --joint.")
