@@ -20,7 +20,12 @@ Parts (each can be skipped):
    only (h/R = 0, the default) and with ``section_h_over_r="free"``: coverage
    of the shared 95% bands and consistent crystals wrongly set apart
    (antecryst false alarms), for both.
-5. ``--validate``: one 6-crystal sample sampled again with a long emcee chain
+5. ``--diffused N``: N samples of 5 crystals from one melt, every crystal
+   relaxed after growth by an L drawn uniformly in [0, 50] µm; each fitted
+   growth only (L = 0, the default) and with ``diffusion_length_um="free"``:
+   coverage of the shared 95% bands, antecryst false alarms, and how many
+   crystals' own L bands hold their L.
+6. ``--validate``: one 6-crystal sample sampled again with a long emcee chain
    (differential-evolution moves, 20 x the default length) on the same
    posterior; prints the 2.5/50/97.5 percentiles of both.
 
@@ -28,7 +33,8 @@ Samples are made by ``tests/_joint_synthetic.py`` (invented Ferrolyn numbers).
 Usage::
 
     nice -n 10 python benchmarks/joint.py [--n-timing 3] [--n-coverage 40]
-        [--n-single 8] [--n-two-melt 6] [--off-centre 8] [--validate] [--workers 2]
+        [--n-single 8] [--n-two-melt 6] [--off-centre 8] [--diffused 8] [--validate]
+        [--workers 2]
 """
 
 from __future__ import annotations
@@ -123,6 +129,28 @@ def off_centre_one(seed):
     return out
 
 
+def diffused_one(seed):
+    rng = np.random.default_rng(4000 + seed)
+    t = _truth(rng)
+    traverses, truth = js.sample(n_hosts=5, antecryst=False, n_spots=40, seed=seed,
+                                 diffusion_length_um=(0.0, 50.0), **t)
+    out = {}
+    for label, length in (("growth only", None), ("L free", "free")):
+        t0 = time.perf_counter()
+        res = _quiet(fit_sample, traverses, melt=js.MELT, seed=seed, diffusion_length_um=length)
+        inside = {q: bool(res.estimates[q].lo95 <= truth[q] <= res.estimates[q].hi95)
+                  for q in SHARED}
+        false = len([c for c in res.crystals if c.verdict != "consistent"])
+        held = [bool(c.estimates["diffusion_length_um"].lo95
+                     <= truth["diffusion_length_um"][c.name]
+                     <= c.estimates["diffusion_length_um"].hi95)
+                for c in res.crystals if "diffusion_length_um" in c.estimates]
+        out[label] = (inside, false, time.perf_counter() - t0, res.diagnostics["max_rhat"],
+                      held)
+    out["kd_z"] = (truth["kd"] - 0.30) / 0.03
+    return out
+
+
 def validate(seed=5):
     import emcee
     from zoning.fitting import joint as J
@@ -198,6 +226,7 @@ def main(argv=None) -> int:
     p.add_argument("--n-single", type=int, default=8)
     p.add_argument("--n-two-melt", type=int, default=6)
     p.add_argument("--off-centre", type=int, default=0, metavar="N")
+    p.add_argument("--diffused", type=int, default=0, metavar="N")
     p.add_argument("--validate", action="store_true")
     p.add_argument("--workers", type=int, default=2)
     a = p.parse_args(argv)
@@ -235,6 +264,26 @@ def main(argv=None) -> int:
                   f"{sum(o[label][1] for o in out)} of {5 * n}; median fit "
                   f"{np.median([o[label][2] for o in out]):.1f} s; largest R-hat "
                   f"{max(o[label][3] for o in out):.3f}")
+    if a.diffused:
+        with ProcessPoolExecutor(a.workers) as pool:
+            out = list(pool.map(diffused_one, range(a.diffused)))
+        n = len(out)
+        print(f"diffused: {n} samples of 5 crystals relaxed by L 0-50 µm (uniform), one melt")
+        for label in ("growth only", "L free"):
+            cov = "  ".join(f"{q} {np.mean([o[label][0][q] for o in out]):.3f}"
+                            for q in SHARED)
+            print(f"  {label:11s} coverage95: {cov}")
+            held = [h for o in out for h in o[label][4]]
+            own = f"; crystals' L bands hold the truth: {sum(held)} of {len(held)}" if held else ""
+            print(f"  {label:11s} consistent crystals set apart: "
+                  f"{sum(o[label][1] for o in out)} of {5 * n}; median fit "
+                  f"{np.median([o[label][2] for o in out]):.1f} s; largest R-hat "
+                  f"{max(o[label][3] for o in out):.3f}{own}")
+            for s_, o in enumerate(out):
+                missed = [q for q in SHARED if not o[label][0][q]]
+                if missed:
+                    print(f"    sample {s_}: missed {', '.join(missed)} (true Kd "
+                          f"{o['kd_z']:+.1f} prior sd from the prior mean)")
     if a.validate:
         validate()
     if a.n_timing:

@@ -67,10 +67,10 @@ _JOINT_CAUTION_HEAD = (
 )
 #: What the joint fit assumes beyond single fits, printed with every report.
 JOINT_CAUTION = _JOINT_CAUTION_HEAD + (
-    " Unlike single fits, joint fits do not fit diffusion after growth "
-    "(each crystal is taken as unrelaxed), and they fit an off-centre section only when "
-    "asked (section_h_over_r = \"free\", one h/R per crystal); otherwise each crystal is "
-    "taken as cut through its core."
+    " Unlike single fits, joint fits fit diffusion after growth and an off-centre "
+    "section only when asked (diffusion_length_um = \"free\", one L per crystal; "
+    "section_h_over_r = \"free\", one h/R per crystal); here each crystal is taken as "
+    "unrelaxed and cut through its core."
 )
 
 
@@ -110,8 +110,9 @@ def joint_caution(settings: Mapping[str, Any] | None = None) -> str:
         return head + text
     if section == "free":
         return head + (" The section offset h/R was fitted per crystal (uniform prior); "
-                       "diffusion after growth was not: each crystal is taken as unrelaxed, "
-                       "and a diffused crystal can still look like an antecryst.")
+                       "diffusion after growth was not (diffusion_length_um = \"free\" fits "
+                       "it): each crystal is taken as unrelaxed, and a diffused crystal can "
+                       "still look like an antecryst.")
     if float(section) > 0.0:
         return head + (f" Every crystal is taken as cut at h/R = {float(section):g} (not "
                        "fitted) and unrelaxed by diffusion after growth.")

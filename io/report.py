@@ -78,7 +78,8 @@ CAUTIONS = (
     "break this.",
     "Diffusion after growth: Fe-Mg in olivine diffuses fast at magmatic temperature and "
     "relaxes the zoning, which mimics a higher retention r. Single fits fit the diffusion "
-    "length L (olivine, by default); joint fits do not. Measured on invented crystals "
+    "length L (olivine, by default); joint fits fit it per crystal only when asked "
+    "(diffusion_length_um = \"free\"). Measured on invented crystals "
     "(benchmarks/fit.py): unmodelled diffusion of a fractional crystal (r = 0) by L = 50 µm "
     "raised r by about 0.65 and made equilibrium look preferred; with L fitted the r band "
     "held the truth but was wide. NiO, or another slower-diffusing element, tells "
