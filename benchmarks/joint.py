@@ -113,42 +113,61 @@ def two_melt_one(seed):
     return res.verdict
 
 
-def off_centre_one(seed):
-    rng = np.random.default_rng(3000 + seed)
-    t = _truth(rng)
+def _process_one(seed, offset, sample_kw, option, labels):
+    """Fit one invented sample growth only and with one process free per crystal.
+
+    Returns, per label, (inside by quantity, crystals set apart, seconds,
+    largest R-hat, per-crystal process bands holding the truth), and the true
+    Kd's distance from its prior mean in prior sd (``"kd_z"``).
+    """
+    t = _truth(np.random.default_rng(offset + seed))
     traverses, truth = js.sample(n_hosts=5, antecryst=False, n_spots=40, seed=seed,
-                                 section_h_over_r=(0.3, 0.8), **t)
-    out = {}
-    for label, section in (("growth only", None), ("h/R free", "free")):
+                                 **sample_kw, **t)
+    out = {"kd_z": (truth["kd"] - 0.30) / 0.03}
+    for label, value in zip(labels, (None, "free"), strict=True):
         t0 = time.perf_counter()
-        res = _quiet(fit_sample, traverses, melt=js.MELT, seed=seed, section_h_over_r=section)
+        res = _quiet(fit_sample, traverses, melt=js.MELT, seed=seed, **{option: value})
         inside = {q: bool(res.estimates[q].lo95 <= truth[q] <= res.estimates[q].hi95)
                   for q in SHARED}
         false = len([c for c in res.crystals if c.verdict != "consistent"])
-        out[label] = (inside, false, time.perf_counter() - t0, res.diagnostics["max_rhat"])
+        held = [bool(c.estimates[option].lo95 <= truth[option][c.name]
+                     <= c.estimates[option].hi95)
+                for c in res.crystals if option in c.estimates]
+        out[label] = (inside, false, time.perf_counter() - t0, res.diagnostics["max_rhat"],
+                      held)
     return out
+
+
+OFF_CENTRE = (3000, {"section_h_over_r": (0.3, 0.8)}, "section_h_over_r",
+              ("growth only", "h/R free"))
+DIFFUSED = (4000, {"diffusion_length_um": (0.0, 50.0)}, "diffusion_length_um",
+            ("growth only", "L free"))
+
+
+def off_centre_one(seed):
+    return _process_one(seed, *OFF_CENTRE)
 
 
 def diffused_one(seed):
-    rng = np.random.default_rng(4000 + seed)
-    t = _truth(rng)
-    traverses, truth = js.sample(n_hosts=5, antecryst=False, n_spots=40, seed=seed,
-                                 diffusion_length_um=(0.0, 50.0), **t)
-    out = {}
-    for label, length in (("growth only", None), ("L free", "free")):
-        t0 = time.perf_counter()
-        res = _quiet(fit_sample, traverses, melt=js.MELT, seed=seed, diffusion_length_um=length)
-        inside = {q: bool(res.estimates[q].lo95 <= truth[q] <= res.estimates[q].hi95)
-                  for q in SHARED}
-        false = len([c for c in res.crystals if c.verdict != "consistent"])
-        held = [bool(c.estimates["diffusion_length_um"].lo95
-                     <= truth["diffusion_length_um"][c.name]
-                     <= c.estimates["diffusion_length_um"].hi95)
-                for c in res.crystals if "diffusion_length_um" in c.estimates]
-        out[label] = (inside, false, time.perf_counter() - t0, res.diagnostics["max_rhat"],
-                      held)
-    out["kd_z"] = (truth["kd"] - 0.30) / 0.03
-    return out
+    return _process_one(seed, *DIFFUSED)
+
+
+def _print_process(out, labels, what) -> None:
+    n = len(out)
+    for label in labels:
+        cov = "  ".join(f"{q} {np.mean([o[label][0][q] for o in out]):.3f}" for q in SHARED)
+        print(f"  {label:11s} coverage95: {cov}")
+        held = [h for o in out for h in o[label][4]]
+        own = f"; crystals' {what} bands hold the truth: {sum(held)} of {len(held)}" if held else ""
+        print(f"  {label:11s} consistent crystals set apart: "
+              f"{sum(o[label][1] for o in out)} of {5 * n}; median fit "
+              f"{np.median([o[label][2] for o in out]):.1f} s; largest R-hat "
+              f"{max(o[label][3] for o in out):.3f}{own}")
+        for s_, o in enumerate(out):
+            missed = [q for q in SHARED if not o[label][0][q]]
+            if missed:
+                print(f"    sample {s_}: missed {', '.join(missed)} (true Kd "
+                      f"{o['kd_z']:+.1f} prior sd from the prior mean)")
 
 
 def validate(seed=5):
@@ -254,36 +273,15 @@ def main(argv=None) -> int:
     if a.off_centre:
         with ProcessPoolExecutor(a.workers) as pool:
             out = list(pool.map(off_centre_one, range(a.off_centre)))
-        n = len(out)
-        print(f"off-centre: {n} samples of 5 crystals cut at h/R 0.3-0.8 (uniform), one melt")
-        for label in ("growth only", "h/R free"):
-            cov = "  ".join(f"{q} {np.mean([o[label][0][q] for o in out]):.3f}"
-                            for q in SHARED)
-            print(f"  {label:11s} coverage95: {cov}")
-            print(f"  {label:11s} consistent crystals set apart: "
-                  f"{sum(o[label][1] for o in out)} of {5 * n}; median fit "
-                  f"{np.median([o[label][2] for o in out]):.1f} s; largest R-hat "
-                  f"{max(o[label][3] for o in out):.3f}")
+        print(f"off-centre: {len(out)} samples of 5 crystals cut at h/R 0.3-0.8 (uniform), "
+              "one melt")
+        _print_process(out, OFF_CENTRE[3], "h/R")
     if a.diffused:
         with ProcessPoolExecutor(a.workers) as pool:
             out = list(pool.map(diffused_one, range(a.diffused)))
-        n = len(out)
-        print(f"diffused: {n} samples of 5 crystals relaxed by L 0-50 µm (uniform), one melt")
-        for label in ("growth only", "L free"):
-            cov = "  ".join(f"{q} {np.mean([o[label][0][q] for o in out]):.3f}"
-                            for q in SHARED)
-            print(f"  {label:11s} coverage95: {cov}")
-            held = [h for o in out for h in o[label][4]]
-            own = f"; crystals' L bands hold the truth: {sum(held)} of {len(held)}" if held else ""
-            print(f"  {label:11s} consistent crystals set apart: "
-                  f"{sum(o[label][1] for o in out)} of {5 * n}; median fit "
-                  f"{np.median([o[label][2] for o in out]):.1f} s; largest R-hat "
-                  f"{max(o[label][3] for o in out):.3f}{own}")
-            for s_, o in enumerate(out):
-                missed = [q for q in SHARED if not o[label][0][q]]
-                if missed:
-                    print(f"    sample {s_}: missed {', '.join(missed)} (true Kd "
-                          f"{o['kd_z']:+.1f} prior sd from the prior mean)")
+        print(f"diffused: {len(out)} samples of 5 crystals relaxed by L 0-50 µm (uniform), "
+              "one melt")
+        _print_process(out, DIFFUSED[3], "L")
     if a.validate:
         validate()
     if a.n_timing:
