@@ -474,6 +474,12 @@ def format_sample_report(result: Any) -> str:
         if fc is not None:
             parts.append(f"F_core {_fmt(fc.best, '1')} [{_fmt(fc.lo95, '1')}, "
                          f"{_fmt(fc.hi95, '1')}]")
+        for key, label, unit in (("section_h_over_r", "h/R", "1"),
+                                 ("diffusion_length_um", "L", "µm")):
+            e = c.estimates.get(key)
+            if e is not None:
+                parts.append(f"{label} {_fmt(e.best, unit)} [{_fmt(e.lo95, unit)}, "
+                             f"{_fmt(e.hi95, unit)}]{'' if unit == '1' else ' ' + unit}")
         if own is not None:
             parts.append(f"own {ratio} [{_fmt(own.lo95, '1')}, {_fmt(own.hi95, '1')}]")
         if np.isfinite(c.consistency_p):

@@ -631,6 +631,11 @@ def test_diffused_crystals_fitted_with_free_diffusion_recover_the_melt_and_their
     assert {"diffusion_length_um", "diffusion_length_um_lo95", "diffusion_length_um_hi95",
             "diffusion_length_um_constrained"} <= set(table.columns)
     assert "diffusion length L was fitted per crystal" in joint_caution(res.settings)
+    # the text report gives every crystal's L band
+    from zoning.io.joint_results import format_sample_report
+
+    lines = [ln for ln in format_sample_report(res).splitlines() if ": consistent" in ln]
+    assert len(lines) == 3 and all(", L " in ln and "] µm" in ln for ln in lines)
 
 
 def test_diffusion_settings_are_checked_as_for_single_fits():
