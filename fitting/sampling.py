@@ -445,7 +445,9 @@ class _QuadraticShear:
     ones through a curve) the ridge is nearly straight and uncorrelated in
     ``w``, which the ensemble's linear moves and the independence proposal
     follow. A transport map of the lowest useful order (triangular maps
-    fitted to draws: Parno & Marzouk 2018).
+    fitted to draws: Parno, M. D. & Marzouk, Y. M. 2018, Transport map
+    accelerated Markov chain Monte Carlo, SIAM/ASA Journal on Uncertainty
+    Quantification 6, 645-682; reference from memory, not checked).
     """
 
     def __init__(self, u: np.ndarray):
