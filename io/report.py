@@ -389,7 +389,9 @@ class _Layout:
             mark = f"{k + 1}." if block.numbered else "•"
             indent = _width("00. ", block.size) if block.numbered else _width("•  ", block.size)
             lines = wrap_text(item, _TEXT_W - indent, block.size)
-            self.need(lead * min(len(lines), 2))
+            # an item of up to KEEP_LINES lines is kept on one page; a longer
+            # one may break, but not after its first line
+            self.need(lead * (len(lines) if len(lines) <= KEEP_LINES else 2))
             self._text(_LEFT, self.y, mark, block.size)
             for line in lines:
                 if self.need(lead):
@@ -454,6 +456,10 @@ class _Layout:
             fig.text((_LEFT + _TEXT_W) / _PAGE_W, (_BOTTOM * 0.5) / _PAGE_H,
                      f"page {k + 1} of {n} (text)", fontsize=6.5, family=_FONT,
                      color="#555555", va="center", ha="right", parse_math=False)
+
+
+#: Bullet items of at most this many lines are never split across pages.
+KEEP_LINES = 8
 
 
 def _column_widths(block: Table, pad: float) -> list[float]:
