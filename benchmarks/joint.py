@@ -270,18 +270,17 @@ def main(argv=None) -> int:
         with ProcessPoolExecutor(a.workers) as pool:
             verdicts = list(pool.map(two_melt_one, range(500, 500 + a.n_two_melt)))
         print(f"two melts (3 + 3): verdicts {verdicts}")
-    if a.off_centre:
+    parts = ((a.off_centre, off_centre_one, OFF_CENTRE, "h/R",
+              "cut at h/R 0.3-0.8 (uniform)"),
+             (a.diffused, diffused_one, DIFFUSED, "L", "relaxed by L 0-50 µm (uniform)"))
+    for n_samples, one, spec, what, how in parts:
+        if not n_samples:
+            continue
         with ProcessPoolExecutor(a.workers) as pool:
-            out = list(pool.map(off_centre_one, range(a.off_centre)))
-        print(f"off-centre: {len(out)} samples of 5 crystals cut at h/R 0.3-0.8 (uniform), "
-              "one melt")
-        _print_process(out, OFF_CENTRE[3], "h/R")
-    if a.diffused:
-        with ProcessPoolExecutor(a.workers) as pool:
-            out = list(pool.map(diffused_one, range(a.diffused)))
-        print(f"diffused: {len(out)} samples of 5 crystals relaxed by L 0-50 µm (uniform), "
-              "one melt")
-        _print_process(out, DIFFUSED[3], "L")
+            out = list(pool.map(one, range(n_samples)))
+        kind = "off-centre" if spec is OFF_CENTRE else "diffused"
+        print(f"{kind}: {len(out)} samples of 5 crystals {how}, one melt")
+        _print_process(out, spec[3], what)
     if a.validate:
         validate()
     if a.n_timing:
