@@ -233,3 +233,37 @@ def test_bands_cover_the_truth_across_the_process_families():
                 e = r.estimates[q]
                 hits[q] += bool(e.lo95 <= truth.get(q, 0.0) <= e.hi95)
     assert all(v >= n - 2 for v in hits.values()), hits
+
+
+def test_section_sentence_gives_the_central_cut_band_only_where_it_differs():
+    from zoning.fitting.summary import CENTRAL_CUT, estimate_from_draws, section_messages
+
+    rng = np.random.default_rng(3)
+    names = ("melt_mg_number", "section_h_over_r")
+    n = 8000
+    h = rng.uniform(0.0, 0.6, n)  # piled at 0: a central cut is not ruled out
+    m = 0.70 + 0.10 * h + rng.normal(0.0, 0.01, n)  # off-centre cuts need a higher Mg#
+    flat = np.column_stack([m, h])
+    lower, upper = np.array([0.2, 0.0]), np.array([0.9, 1.0])
+    est = {nm: estimate_from_draws(nm, "1", float(np.median(flat[:, j])), flat[:, j],
+                                   lower[j], upper[j]) for j, nm in enumerate(names)}
+    assert est["section_h_over_r"].lo95 == 0.0
+    text = section_messages(names, flat, est, "melt_mg_number", "Mg#")
+    assert len(text) == 1 and "--section-h-over-r 0" in text[0] and "higher parent Mg#" in text[0]
+    c_lo, c_hi = np.percentile(m[h < CENTRAL_CUT], [2.5, 97.5])
+    assert f"{c_lo:.3f}-{c_hi:.3f}" in text[0]
+    # the stated central-cut band matches this construction's closed form:
+    # Mg# = 0.70 + 0.1 h with h uniform below 0.1, plus N(0, 0.01), is close
+    # to normal with mean 0.705 and sd sqrt(0.01^2 + 0.01^2 / 12) (tolerance:
+    # sampling of about 800 draws)
+    sd = np.sqrt(0.01**2 + 0.01**2 / 12.0)
+    assert abs(c_lo - (0.705 - 1.96 * sd)) < 0.002
+    assert abs(c_hi - (0.705 + 1.96 * sd)) < 0.002
+    # negative controls: Mg# independent of h; h/R band away from 0
+    flat2 = np.column_stack([rng.normal(0.7, 0.01, n), h])
+    assert section_messages(names, flat2, est, "melt_mg_number", "Mg#") == []
+    h3 = rng.uniform(0.4, 0.6, n)
+    flat3 = np.column_stack([0.70 + 0.10 * h3, h3])
+    est3 = dict(est, section_h_over_r=estimate_from_draws(
+        "section_h_over_r", "1", 0.5, h3, 0.0, 1.0))
+    assert section_messages(names, flat3, est3, "melt_mg_number", "Mg#") == []
