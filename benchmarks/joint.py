@@ -170,6 +170,12 @@ def _print_process(out, labels, what) -> None:
                       f"{o['kd_z']:+.1f} prior sd from the prior mean)")
 
 
+#: Steps of the long emcee chain of ``--validate`` (the first half discarded)
+#: and the spread of its start about the joint-sampler draws.
+VALIDATE_STEPS = 24000
+START_SPREAD = 1.5
+
+
 def validate(seed=5):
     import emcee
     from zoning.fitting import joint as J
@@ -215,11 +221,24 @@ def validate(seed=5):
 
     n_walkers = 4 * free.size
     rng = np.random.default_rng(seed)
-    start = w0[free] + 1e-4 * rng.standard_normal((n_walkers, free.size))
+    # Start over-dispersed: joint-sampler draws spread 1.5 times about their
+    # mean in sampler coordinates (a start inside a tiny ball leaves the
+    # differential-evolution ensemble narrow for a long time), each walker
+    # kept only where the posterior is finite.
+    pick = res.samples[rng.choice(res.samples.shape[0], size=4 * n_walkers, replace=False)]
+    full = np.repeat(v_best[None, :], pick.shape[0], axis=0)
+    for i, name in zip(free, res.parameter_names, strict=True):
+        full[:, i] = pick[:, list(res.parameter_names).index(name)]
+    w_draws = jnt.to_sampler(full)[:, free]
+    w_mean = w_draws.mean(axis=0)
+    w_start = w_mean + START_SPREAD * (w_draws - w_mean)
+    start = w_start[np.isfinite(log_prob(w_start))][:n_walkers]
+    if start.shape[0] < n_walkers:
+        raise RuntimeError(f"only {start.shape[0]} finite over-dispersed starts of {n_walkers}")
     sampler = emcee.EnsembleSampler(n_walkers, free.size, log_prob, vectorize=True,
                                     moves=[(emcee.moves.DEMove(), 0.8),
                                            (emcee.moves.DESnookerMove(), 0.2)])
-    n_steps = 20 * 1200
+    n_steps = VALIDATE_STEPS
     t0 = time.perf_counter()
     sampler.run_mcmc(start, n_steps, skip_initial_state_check=True)
     chain = sampler.get_chain(discard=n_steps // 2)

@@ -220,6 +220,9 @@ N_CHAINS = 32
 DEFAULT_N_SWEEPS = {"olivine": 1200, "plagioclase": 2000}
 #: Share of the sweeps used as burn-in (adaptation, covariance refresh).
 BURN_FRACTION = 0.4
+#: Without a user --steps, a chain still short after the default sweeps is
+#: continued up to this many times the default in all (:func:`_sample`).
+MAX_EXTEND = 3
 #: Differential-evolution move (ter Braak 2006): share of the moves that use
 #: a jump factor of 1 (to hop between modes) instead of 2.38/sqrt(2 d).
 DE_HOP = 0.1
@@ -1127,6 +1130,7 @@ class _Chain:
     n_chains: int
     n_sweeps: int
     burn_in: int
+    extended_from: int = 0  # planned sweeps when production was continued, else 0
 
 
 def _split_rhat(chain: np.ndarray) -> np.ndarray:
@@ -1285,8 +1289,24 @@ class _BlockShear:
         return u
 
 
+def _chain_diagnostics(chain: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Autocorrelation time [sweeps], effective sample size and split R-hat per entry."""
+    import emcee
+
+    tau = np.asarray(emcee.autocorr.integrated_time(chain, c=5, tol=0, quiet=True), dtype=float)
+    tau = np.maximum(np.where(np.isfinite(tau), tau, float(chain.shape[0])), 1.0)
+    ess = chain.shape[0] * chain.shape[1] / tau
+    return tau, ess, _split_rhat(chain)
+
+
+def _chain_short(ess: np.ndarray, rhat: np.ndarray) -> bool:
+    """Tell whether a chain has too few effective draws or has not mixed."""
+    return bool(np.min(ess) < MIN_ESS or np.max(rhat) > MAX_RHAT)
+
+
 def _sample(joint: _Joint, v_best: np.ndarray, cov: np.ndarray, *, n_chains: int,
-            n_sweeps: int, seed: int, straighten: bool | None = None) -> _Chain:
+            n_sweeps: int, seed: int, straighten: bool | None = None,
+            max_sweeps: int | None = None) -> _Chain:
     """Metropolis-within-Gibbs with parallel crystal blocks and a shear move.
 
     With ``straighten`` (default :data:`STRAIGHTEN`) the moves work in the
@@ -1294,6 +1314,12 @@ def _sample(joint: _Joint, v_best: np.ndarray, cov: np.ndarray, *, n_chains: int
     and at three quarters of the burn-in (the second fit, to the draws in
     between, is kept for production); the chains are returned in natural
     coordinates either way.
+
+    With ``max_sweeps`` larger than ``n_sweeps``, production continues (with
+    the moves as tuned) while the chain is short by :func:`_chain_short`:
+    each time by as many sweeps as it has so far, up to ``max_sweeps`` in
+    all. The burn-in stays that of ``n_sweeps``; a chain that is long enough
+    after ``n_sweeps`` is returned as it is, draw for draw.
     """
     straighten = STRAIGHTEN if straighten is None else straighten
     rng = np.random.default_rng(seed)
@@ -1346,7 +1372,10 @@ def _sample(joint: _Joint, v_best: np.ndarray, cov: np.ndarray, *, n_chains: int
     n_prod = 0
     reshape_at = {burn // 2, 3 * burn // 4} if straighten else {burn // 2}
     last_reshape = 0
-    for t in range(n_sweeps):
+    total = n_sweeps
+    t = -1
+    while t + 1 < total:
+        t += 1
         adapt = t < burn
         gamma = 1.0 / np.sqrt(t + 1.0)
         # --- every crystal's own block at once -----------------------------
@@ -1459,18 +1488,19 @@ def _sample(joint: _Joint, v_best: np.ndarray, cov: np.ndarray, *, n_chains: int
             acc_s += float(accept.mean())
             n_prod += 1
             kept.append(joint.from_sampler(full(W))[:, free])
+            if t + 1 == total and max_sweeps is not None and total < max_sweeps:
+                _, ess_now, rhat_now = _chain_diagnostics(np.stack(kept, axis=0))
+                if _chain_short(ess_now, rhat_now):
+                    total = min(int(max_sweeps), total + n_prod)
     chain = np.stack(kept, axis=0)
-    import emcee
-
-    tau = np.asarray(emcee.autocorr.integrated_time(chain, c=5, tol=0, quiet=True), dtype=float)
-    tau = np.maximum(np.where(np.isfinite(tau), tau, float(chain.shape[0])), 1.0)
-    ess = chain.shape[0] * chain.shape[1] / tau
+    tau, ess, rhat = _chain_diagnostics(chain)
     return _Chain(
-        draws=chain, tau=tau, ess=ess, rhat=_split_rhat(chain),
+        draws=chain, tau=tau, ess=ess, rhat=rhat,
         accept_local=acc_l / max(n_prod, 1), accept_shared=acc_s / max(n_prod, 1),
         accept_independence=acc_ind / max(n_prod, 1), accept_de=acc_de / max(n_prod, 1),
         n_restarted=n_restarted,
-        n_chains=n_chains, n_sweeps=n_sweeps, burn_in=burn,
+        n_chains=n_chains, n_sweeps=total, burn_in=burn,
+        extended_from=n_sweeps if total > n_sweeps else 0,
     )
 
 
@@ -2126,7 +2156,7 @@ def _param_names(joint: _Joint, idx) -> list[str]:
 
 
 def _fit_group(settings, crystals, owns, *, n_chains, n_sweeps, seed, include_flagged,
-               rng_range) -> _Group:
+               rng_range, max_sweeps=None) -> _Group:
     joint, v, obj, anchor = _best_joint(settings, crystals, owns)
     if not np.isfinite(obj):
         raise FitError(
@@ -2135,7 +2165,8 @@ def _fit_group(settings, crystals, owns, *, n_chains, n_sweeps, seed, include_fl
         )
     cov = _laplace(joint, v)
     try:
-        chain = _sample(joint, v, cov, n_chains=n_chains, n_sweeps=n_sweeps, seed=seed)
+        chain = _sample(joint, v, cov, n_chains=n_chains, n_sweeps=n_sweeps, seed=seed,
+                        max_sweeps=max_sweeps)
     except np.linalg.LinAlgError as exc:
         raise FitError(
             f"posterior sampling of the joint fit failed ({exc}); try another --seed or "
@@ -2157,13 +2188,19 @@ def _fit_group(settings, crystals, owns, *, n_chains, n_sweeps, seed, include_fl
     nd = joint._n_data_block()
     chi2_c = (block[0, :, :nd] ** 2).sum(axis=1)
     warn = list(notes)
+    if chain.extended_from:
+        warn.append(
+            f"the default {chain.extended_from} sweeps gave too few effective draws or "
+            f"chains that had not mixed; production was continued to {chain.n_sweeps} sweeps "
+            "(set --steps to choose the length yourself)."
+        )
     names = _param_names(joint, free)
     short = [n for n, e, r in zip(names, chain.ess, chain.rhat, strict=True)
              if e < MIN_ESS or r > MAX_RHAT]
     if short:
         factor = max(MIN_ESS / float(np.min(chain.ess)), 2.0 if np.max(chain.rhat) > MAX_RHAT
                      else 1.25)
-        need = int(np.ceil(n_sweeps * factor / 100) * 100)
+        need = int(np.ceil(chain.n_sweeps * factor / 100) * 100)
         warn.append(
             f"posterior chains too short for {', '.join(short[:4])}"
             + (f" and {len(short) - 4} more" if len(short) > 4 else "")
@@ -2292,7 +2329,10 @@ def fit_sample(
     n_chains, n_sweeps : int, optional
         Sampler chains and sweeps per chain (burn-in, the first
         :data:`BURN_FRACTION`, included); default sweeps
-        :data:`DEFAULT_N_SWEEPS` of the mineral.
+        :data:`DEFAULT_N_SWEEPS` of the mineral. With the default, a chain
+        with too few effective draws or an R-hat above :data:`MAX_RHAT` is
+        continued (up to :data:`MAX_EXTEND` times the default in all) and a
+        warning says so; a given ``n_sweeps`` is run as it is.
     section_h_over_r : None, "free" or float, optional
         Section offset h/R of each crystal [1] (distance of the section plane
         from the crystal centre over the true radius). None (default): every
@@ -2382,6 +2422,8 @@ def fit_sample(
             f"(crystals {names}). Fit a single crystal without --joint."
         )
     sample_name = name or _common_name([t.name for t in traverses])
+    # Without a user length, a short chain is continued (as single fits do).
+    max_sweeps = MAX_EXTEND * DEFAULT_N_SWEEPS[mineral] if n_sweeps is None else None
     n_sweeps = int(DEFAULT_N_SWEEPS[mineral] if n_sweeps is None else n_sweeps)
     if n_sweeps < 100:
         raise ZoningError(f"n_sweeps must be at least 100; got {n_sweeps}. Use e.g. --steps 1200.")
@@ -2532,7 +2574,8 @@ def fit_sample(
             continue
         grp = _fit_group(settings, [crystals[i] for i in members], [owns[i] for i in members],
                          n_chains=n_chains, n_sweeps=n_sweeps, seed=seed + 101 * g,
-                         include_flagged=include_flagged, rng_range=rng_range)
+                         include_flagged=include_flagged, rng_range=rng_range,
+                         max_sweeps=max_sweeps)
         groups.append((members, grp))
     t_sample = time.perf_counter()
     main_members, main_grp = groups[0]
@@ -2670,6 +2713,7 @@ def fit_sample(
     ch = main_grp.chain
     diagnostics = {
         "n_chains": float(ch.n_chains), "n_sweeps": float(ch.n_sweeps),
+        "n_sweeps_planned": float(ch.extended_from or ch.n_sweeps),
         "burn_in": float(ch.burn_in), "accept_local": ch.accept_local,
         "accept_shared": ch.accept_shared, "accept_independence": ch.accept_independence,
         "accept_de": ch.accept_de, "chains_restarted": ch.n_restarted,

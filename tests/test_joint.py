@@ -198,6 +198,20 @@ def test_planted_antecryst_is_named_and_shared_bands_contain_the_truth():
     assert all(inside)
 
 
+def test_default_length_is_continued_when_short_and_a_given_length_is_not(monkeypatch):
+    # With the default sweeps (made short here), a short chain is continued
+    # and the fit says so; the length a user gives is run as it is.
+    traverses, _ = js.sample(n_hosts=3, antecryst=False, n_spots=20, seed=4)
+    monkeypatch.setattr(J, "DEFAULT_N_SWEEPS", {"olivine": 200, "plagioclase": 200})
+    res = _fit(traverses, n_sweeps=None, seed=1)
+    d = res.diagnostics
+    assert d["n_sweeps_planned"] == 200 and 200 < d["n_sweeps"] <= J.MAX_EXTEND * 200
+    assert any("production was continued to" in w for w in res.warnings)
+    given = _fit(traverses, n_sweeps=200, seed=1)
+    assert given.diagnostics["n_sweeps"] == given.diagnostics["n_sweeps_planned"] == 200
+    assert not any("production was continued" in w for w in given.warnings)
+
+
 def test_excluded_crystals_are_left_out_and_listed():
     traverses, truth = js.sample(n_hosts=3, n_spots=25, seed=12)
     res = _fit(traverses, exclude=truth["antecrysts"])
@@ -407,6 +421,30 @@ def test_sampler_draws_a_gaussian_target_with_its_closed_form_spread():
     draws = chain.draws.reshape(-1, target.D)
     assert_allclose(draws.std(axis=0), np.sqrt(np.diag(cov)), rtol=RTOL_SAMPLER_SD)
     assert chain.rhat.max() < 1.05
+
+
+def test_short_chain_is_continued_draw_for_draw_up_to_the_cap():
+    # Production continues while the chain is short (ESS or R-hat): the
+    # continued chain starts with exactly the draws of the chain that was
+    # not continued (same seed), stops once long enough or at the cap, and
+    # still draws the target's closed-form spread.
+    target = _GaussianJoint()
+    cov = target.covariance()
+    kw = dict(n_chains=32, n_sweeps=200, seed=3)
+    plain = J._sample(target, np.zeros(target.D), cov, **kw)
+    assert J._chain_short(plain.ess, plain.rhat)  # 120 production sweeps are too few
+    longer = J._sample(target, np.zeros(target.D), cov, max_sweeps=2000, **kw)
+    n_prod = plain.draws.shape[0]
+    assert_allclose(longer.draws[:n_prod], plain.draws, rtol=0, atol=0)
+    assert longer.extended_from == 200 and 200 < longer.n_sweeps <= 2000
+    assert longer.draws.shape[0] == longer.n_sweeps - longer.burn_in
+    assert longer.n_sweeps == 2000 or not J._chain_short(longer.ess, longer.rhat)
+    draws = longer.draws.reshape(-1, target.D)
+    assert_allclose(draws.std(axis=0), np.sqrt(np.diag(cov)), rtol=RTOL_SAMPLER_SD)
+    # a cap at the planned length changes nothing
+    same = J._sample(target, np.zeros(target.D), cov, max_sweeps=200, **kw)
+    assert same.extended_from == 0
+    assert_allclose(same.draws, plain.draws, rtol=0, atol=0)
 
 
 class _CurvedJoint(_GaussianJoint):
