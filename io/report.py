@@ -1104,14 +1104,60 @@ def crystal_rows(result) -> list[list[str]]:
     return rows
 
 
+#: Per-crystal processes after growth of a joint fit: key, column title, unit.
+_CRYSTAL_PROCESSES = (("section_h_over_r", "section offset h/R (95% band)", "1"),
+                      ("diffusion_length_um", "diffusion length L [µm] (95% band)", "µm"))
+
+
+def crystal_process_rows(result) -> tuple[tuple[str, ...], list[list[str]]]:
+    """Column titles and rows of the per-crystal process table of a joint fit.
+
+    Parameters
+    ----------
+    result : SampleFitResult
+
+    Returns
+    -------
+    titles : tuple of str
+        ``"crystal"`` and one title per process fitted (or fixed away from 0)
+        for some crystal: section offset h/R, diffusion length L [µm].
+    rows : list of list of str
+        One row per crystal with each process's value and 95% band ("–"
+        where the crystal has none); empty when no process was fitted.
+    """
+    keys = [(k, t, u) for k, t, u in _CRYSTAL_PROCESSES
+            if any(k in c.estimates for c in result.crystals)]
+    if not keys:
+        return ("crystal",), []
+    rows = []
+    for c in result.crystals:
+        row = [c.name]
+        for k, _t, u in keys:
+            e = c.estimates.get(k)
+            if e is None:
+                row.append("–")
+                continue
+            text = f"{_fmt(e.best, u)} ({_fmt(e.lo95, u)}–{_fmt(e.hi95, u)})"
+            row.append(text + ("" if e.constrained else ", not constrained"))
+        rows.append(row)
+    return ("crystal", *(t for _k, t, _u in keys)), rows
+
+
 @section("Crystals", sample=20)
 def _sample_crystals(ctx):
     r = ctx.result
     _, sym = _RATIO[r.mineral]
+    titles, process_rows = crystal_process_rows(r)
+    process = []
+    if process_rows:
+        n = len(titles) - 1
+        process = [Table(titles, tuple(map(tuple, process_rows)),
+                         (0.25, *([0.75 / n] * n)))]
     return [Table(("crystal", "verdict", "group", "F at the core (95% band)",
                    f"own parent {sym} (95%)", "consistency test", "spots used"),
                   tuple(map(tuple, crystal_rows(r))),
                   (0.17, 0.13, 0.07, 0.19, 0.13, 0.22, 0.09)),
+            *process,
             Paragraph("consistent: shares the melt of the others and enters the shared "
                       "answer; likely antecryst: disagrees with the others (leave-one-out "
                       "likelihood-ratio test) and is left out of the shared answer; excluded: "

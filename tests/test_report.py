@@ -309,3 +309,30 @@ def test_table_words_are_never_cut(joint, olivine):
     header = {w for p in sample_report_pages(joint, figures=[]) for t in p.texts
               for w in t.get_text().split()}
     assert {"group", "verdict", "consistency"} <= header
+
+
+def test_crystal_table_gives_each_crystals_processes_when_fitted(joint):
+    from zoning.fitting.results import Estimate
+    from zoning.io.report import crystal_process_rows, sample_report_pages
+
+    # growth only (the fixture): no process table
+    assert crystal_process_rows(joint) == (("crystal",), [])
+    pages = sample_report_pages(joint, figures=[])
+    text = " ".join(" ".join(t.get_text() for p in pages for t in p.texts).split())
+    assert "diffusion length L [µm] (95% band)" not in text
+    # each crystal with a fitted L (values put in by hand; the table shows them)
+    crystals = []
+    for i, c in enumerate(joint.crystals):
+        e = Estimate("diffusion_length_um", "µm", best=12.0 + i, lo95=3.0, hi95=40.0 + i,
+                     lower=0.0, upper=300.0, constrained=i != 0)
+        crystals.append(dataclasses.replace(
+            c, estimates={**c.estimates, "diffusion_length_um": e}))
+    relaxed = dataclasses.replace(joint, crystals=tuple(crystals))
+    titles, rows = crystal_process_rows(relaxed)
+    assert titles == ("crystal", "diffusion length L [µm] (95% band)")
+    assert rows[0] == [joint.crystals[0].name, "12 (3–40), not constrained"]
+    assert rows[1] == [joint.crystals[1].name, "13 (3–41)"]
+    text = " ".join(t.get_text() for p in sample_report_pages(relaxed, figures=[])
+                    for t in p.texts)
+    assert "diffusion length L [µm] (95% band)" in " ".join(text.split())
+    assert "13 (3–41)" in text
