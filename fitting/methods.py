@@ -91,6 +91,10 @@ def fit_methods(
             MethodUse(sampling, "ter_braak_vrugt_2008", "snooker moves during burn-in"),
             MethodUse(sampling, "gelman_1996",
                       "scale 2.38/sqrt(p) of the Gaussian random-walk move"),
+            MethodUse(sampling, "parno_marzouk_2018",
+                      "production moves in coordinates straightened by a triangular "
+                      "quadratic map fitted to the burn-in draws (a low-order transport "
+                      "map; constant Jacobian; when the burn-in has enough draws)"),
             MethodUse("convergence of the chains", "sokal_1997",
                       "integrated autocorrelation time and effective sample size"),
         ]
@@ -157,8 +161,17 @@ def joint_methods(
         MethodUse("posterior sampling", "vrugt_2009",
                   "a chain left far below the others at the end of burn-in (outlier test "
                   "on the chains' mean log-posterior) restarted from another chain"),
+        MethodUse("posterior sampling", "parno_marzouk_2018",
+                  "moves in coordinates straightened by a block triangular map fitted to "
+                  "the burn-in draws (a low-order transport map keeping the crystals "
+                  "conditionally independent)"),
+        MethodUse("convergence of the chains", "gelman_rubin_1992",
+                  "split R-hat (each chain's two halves compared with the others)"),
         MethodUse("convergence of the chains", "vehtari_2021",
-                  "rank-normalised split R-hat and effective sample size"),
+                  "largest R-hat accepted 1.01 (their threshold; the rank-normalised form "
+                  "is not used)"),
+        MethodUse("convergence of the chains", "sokal_1997",
+                  "integrated autocorrelation time and effective sample size"),
     ]
     if sigma_scaled:
         uses.append(MethodUse("uncertainty scaling", "birge_1932",

@@ -447,7 +447,8 @@ class _QuadraticShear:
     follow. A transport map of the lowest useful order (triangular maps
     fitted to draws: Parno, M. D. & Marzouk, Y. M. 2018, Transport map
     accelerated Markov chain Monte Carlo, SIAM/ASA Journal on Uncertainty
-    Quantification 6, 645-682; reference from memory, not checked).
+    Quantification 6, 645-682; zoning.references key parno_marzouk_2018, from
+    memory, not checked).
     """
 
     def __init__(self, u: np.ndarray):

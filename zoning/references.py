@@ -358,6 +358,9 @@ _ENTRIES = (
                           "Bürkner, P.-C."], 2021,
          "Rank-normalization, folding, and localization: an improved R-hat for assessing "
          "convergence of MCMC", "Bayesian Analysis", "16", "667-718", "10.1214/20-BA1221"),
+    _ref("parno_marzouk_2018", ["Parno, M. D.", "Marzouk, Y. M."], 2018,
+         "Transport map accelerated Markov chain Monte Carlo",
+         "SIAM/ASA Journal on Uncertainty Quantification", "6", "645-682"),
     _ref("gelman_rubin_1992", ["Gelman, A.", "Rubin, D. B."], 1992,
          "Inference from iterative simulation using multiple sequences", "Statistical Science",
          "7", "457-472", "10.1214/ss/1177011136"),
