@@ -231,11 +231,11 @@ def validate(seed=5):
     # mean in sampler coordinates (a start inside a tiny ball leaves the
     # differential-evolution ensemble narrow for a long time), each walker
     # kept only where the posterior is finite.
-    pick = res.samples[rng.choice(res.samples.shape[0], size=4 * n_walkers, replace=False)]
-    full = np.repeat(v_best[None, :], pick.shape[0], axis=0)
+    v_all = np.repeat(v_best[None, :], res.samples.shape[0], axis=0)
     for i, name in zip(free, res.parameter_names, strict=True):
-        full[:, i] = pick[:, list(res.parameter_names).index(name)]
-    w_draws = jnt.to_sampler(full)[:, free]
+        v_all[:, i] = res.samples[:, list(res.parameter_names).index(name)]
+    w_all = jnt.to_sampler(v_all)[:, free]  # every joint draw, sampler coordinates
+    w_draws = w_all[rng.choice(w_all.shape[0], size=4 * n_walkers, replace=False)]
     w_mean = w_draws.mean(axis=0)
     w_start = w_mean + START_SPREAD * (w_draws - w_mean)
     start = w_start[np.isfinite(log_prob(w_start))][:n_walkers]
@@ -258,10 +258,6 @@ def validate(seed=5):
     # Student-t proposal (5 dof) with the mean and 1.3 times the spread of
     # the joint-sampler draws in sampler coordinates.
     t0 = time.perf_counter()
-    v_all = np.repeat(v_best[None, :], res.samples.shape[0], axis=0)
-    for i, name in zip(free, res.parameter_names, strict=True):
-        v_all[:, i] = res.samples[:, list(res.parameter_names).index(name)]
-    w_all = jnt.to_sampler(v_all)[:, free]
     prop = stats.multivariate_t(loc=w_all.mean(axis=0),
                                 shape=IS_SPREAD**2 * np.cov(w_all, rowvar=False), df=5)
     ws, logw = [], []

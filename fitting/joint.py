@@ -1299,9 +1299,14 @@ def _chain_diagnostics(chain: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.nd
     return tau, ess, _split_rhat(chain)
 
 
+def _short_entries(ess: np.ndarray, rhat: np.ndarray) -> np.ndarray:
+    """Entries with too few effective draws or chains that have not mixed (bool)."""
+    return (np.asarray(ess) < MIN_ESS) | (np.asarray(rhat) > MAX_RHAT)
+
+
 def _chain_short(ess: np.ndarray, rhat: np.ndarray) -> bool:
-    """Tell whether a chain has too few effective draws or has not mixed."""
-    return bool(np.min(ess) < MIN_ESS or np.max(rhat) > MAX_RHAT)
+    """Tell whether any entry of a chain is short by :func:`_short_entries`."""
+    return bool(_short_entries(ess, rhat).any())
 
 
 def _sample(joint: _Joint, v_best: np.ndarray, cov: np.ndarray, *, n_chains: int,
@@ -2195,8 +2200,8 @@ def _fit_group(settings, crystals, owns, *, n_chains, n_sweeps, seed, include_fl
             "(set --steps to choose the length yourself)."
         )
     names = _param_names(joint, free)
-    short = [n for n, e, r in zip(names, chain.ess, chain.rhat, strict=True)
-             if e < MIN_ESS or r > MAX_RHAT]
+    short = [n for n, s_ in zip(names, _short_entries(chain.ess, chain.rhat), strict=True)
+             if s_]
     if short:
         factor = max(MIN_ESS / float(np.min(chain.ess)), 2.0 if np.max(chain.rhat) > MAX_RHAT
                      else 1.25)

@@ -414,8 +414,7 @@ def section_messages(names: Sequence[str], flat: np.ndarray, estimates: dict,
         f"needs a {side} parent {label}, so the {label} band {lo:.3f}-{hi:.3f} includes such "
         f"cuts. With the core in the cut (posterior draws with h/R < {CENTRAL_CUT:g}) it is "
         f"{c_lo:.3f}-{c_hi:.3f}; if the traverse crosses the crystal's core (a core feature "
-        "is visible), refit with "
-        "--section-h-over-r 0 (project key section_h_over_r = 0)."
+        "is visible), refit with --section-h-over-r 0 (project key section_h_over_r = 0)."
     ]
 
 

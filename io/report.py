@@ -1071,6 +1071,11 @@ def _sample_results(ctx):
 _RATIO = {"olivine": ("melt_mg_number", "Mg#"), "plagioclase": ("melt_ca_number", "Ca#")}
 
 
+def _band_text(e, unit: str = "") -> str:
+    """``best (lo95–hi95)`` of an Estimate, each number as :func:`_fmt` writes it."""
+    return f"{_fmt(e.best, unit)} ({_fmt(e.lo95, unit)}–{_fmt(e.hi95, unit)})"
+
+
 def crystal_rows(result) -> list[list[str]]:
     """Rows of the crystals table of a joint fit.
 
@@ -1091,8 +1096,7 @@ def crystal_rows(result) -> list[list[str]]:
         fc = c.estimates.get("f_core")
         own = c.own_estimates.get(ratio)
         name = c.name + (" (anchor)" if c.name == result.anchor else "")
-        f_text = (f"{_fmt(fc.best)} ({_fmt(fc.lo95)}–{_fmt(fc.hi95)})" if fc is not None
-                  else "–")
+        f_text = _band_text(fc) if fc is not None else "–"
         own_text = (f"{_fmt(own.lo95)}–{_fmt(own.hi95)}" if own is not None else "–")
         if math.isfinite(c.consistency_p):
             p_text = "< 0.001" if c.consistency_p < 1e-3 else f"= {c.consistency_p:.2g}"
@@ -1137,8 +1141,7 @@ def crystal_process_rows(result) -> tuple[tuple[str, ...], list[list[str]]]:
             if e is None:
                 row.append("–")
                 continue
-            text = f"{_fmt(e.best, u)} ({_fmt(e.lo95, u)}–{_fmt(e.hi95, u)})"
-            row.append(text + ("" if e.constrained else ", not constrained"))
+            row.append(_band_text(e, u) + ("" if e.constrained else ", not constrained"))
         rows.append(row)
     return ("crystal", *(t for _k, t, _u in keys)), rows
 
