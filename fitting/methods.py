@@ -50,6 +50,7 @@ def fit_methods(
     fe3_source: str = "given",
     sigma_scale: float = 1.0,
     sampled: bool = True,
+    section_free: bool = False,
 ) -> tuple[MethodUse, ...]:
     """List the published methods of the inversion of one traverse.
 
@@ -73,6 +74,9 @@ def fit_methods(
         ratio; 1 when the fit is consistent with the stated uncertainties).
     sampled : bool, optional
         Whether the posterior was sampled (False: best fit only).
+    section_free : bool, optional
+        Whether the section offset h/R was fitted (the bands are then
+        widened for a cut through the core, :func:`zoning.fitting.summary.section_envelope`).
 
     Returns
     -------
@@ -106,6 +110,15 @@ def fit_methods(
                   "a model is preferred when its BIC is lower than the runner-up's by at "
                   "least 2 (positive evidence)"),
     ]
+    if sampled and section_free:
+        uses += [
+            MethodUse("bands with the section offset free", "berger_1990",
+                      "envelope of the bands under the random-cut prior and for a cut "
+                      "through the core (h/R < 0.1): a band over a class of priors"),
+            MethodUse("bands with the section offset free", "kass_raftery_1995",
+                      "a central cut counts as ruled out when its Bayes factor against the "
+                      "random cut is below 1/3"),
+        ]
     if math.isfinite(sigma_scale) and sigma_scale > 1.0:
         uses.append(MethodUse("uncertainty scaling", "birge_1932",
                               f"every sigma multiplied by the Birge ratio {sigma_scale:.2f} "

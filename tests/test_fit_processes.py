@@ -252,6 +252,8 @@ def test_section_sentence_gives_the_central_cut_band_only_where_it_differs():
     assert len(text) == 1 and "--section-h-over-r 0" in text[0] and "higher parent Mg#" in text[0]
     c_lo, c_hi = np.percentile(m[h < CENTRAL_CUT], [2.5, 97.5])
     assert f"{c_lo:.3f}-{c_hi:.3f}" in text[0]
+    e = est["melt_mg_number"]
+    assert f"Mg# {e.lo95:.3f}-{e.hi95:.3f}) hold for either" in text[0]
     # the stated central-cut band matches this construction's closed form:
     # Mg# = 0.70 + 0.1 h with h uniform below 0.1, plus N(0, 0.01), is close
     # to normal with mean 0.705 and sd sqrt(0.01^2 + 0.01^2 / 12) (tolerance:
@@ -267,3 +269,103 @@ def test_section_sentence_gives_the_central_cut_band_only_where_it_differs():
     est3 = dict(est, section_h_over_r=estimate_from_draws(
         "section_h_over_r", "1", 0.5, h3, 0.0, 1.0))
     assert section_messages(names, flat3, est3, "melt_mg_number", "Mg#") == []
+
+
+def _section_draws(n=8000, seed=3):
+    rng = np.random.default_rng(seed)
+    h = rng.uniform(0.0, 0.6, n)  # a central cut not ruled out
+    m = 0.70 + 0.10 * h + rng.normal(0.0, 0.01, n)  # off-centre cuts need a higher Mg#
+    return h, m
+
+
+def test_section_envelope_is_the_union_of_the_random_and_central_cut_bands():
+    from zoning.fitting.summary import CENTRAL_CUT, section_envelope
+
+    h, m = _section_draws()
+    central = h < CENTRAL_CUT
+    med, lo, hi, kind, widened = section_envelope("melt_mg_number", m, 0.2, 0.9, m[central])
+    f_lo, f_med, f_hi = np.percentile(m, [2.5, 50.0, 97.5])
+    c_lo, c_hi = np.percentile(m[central], [2.5, 97.5])
+    assert widened and kind == "central"
+    assert med == pytest.approx(f_med, rel=RTOL_IDENTITY)
+    # closed form of this construction: the central draws are close to
+    # normal with mean 0.705 and sd sqrt(0.01^2 + 0.01^2 / 12), so their
+    # lower end (0.684) lies below that of all draws (0.70 + uniform 0-0.06
+    # + noise: 0.698) and the upper end is that of all draws
+    assert lo == pytest.approx(c_lo, rel=RTOL_IDENTITY) and lo < f_lo
+    assert hi == pytest.approx(f_hi, rel=RTOL_IDENTITY)
+    assert lo <= med <= hi
+    # too few central draws, or none given: the band is that of all draws
+    for few in (None, m[central][:150]):
+        _, lo2, hi2, _, w2 = section_envelope("melt_mg_number", m, 0.2, 0.9, few)
+        assert not w2 and (lo2, hi2) == pytest.approx((f_lo, f_hi), rel=RTOL_IDENTITY)
+    # a central band inside the full band leaves it unchanged
+    inner = np.random.default_rng(4).normal(0.73, 0.002, 500)
+    _, lo3, hi3, _, w3 = section_envelope("melt_mg_number", m, 0.2, 0.9, inner)
+    assert not w3 and (lo3, hi3) == pytest.approx((f_lo, f_hi), rel=RTOL_IDENTITY)
+
+
+def test_section_envelope_keeps_a_one_sided_band_one_sided():
+    from zoning.fitting.summary import section_envelope
+
+    rng = np.random.default_rng(5)
+    length = np.abs(rng.normal(0.0, 10.0, 6000))  # piled at L = 0: an upper limit
+    central = np.abs(rng.normal(0.0, 20.0, 400))  # a central cut needs more diffusion
+    _, lo, hi, kind, widened = section_envelope("diffusion_length_um", length, 0.0, 120.0,
+                                                central)
+    assert widened and kind == "upper_limit" and lo == 0.0
+    assert hi == pytest.approx(np.percentile(central, 95.0), rel=RTOL_IDENTITY)
+    # a lower limit on r from all draws and an upper limit from the central
+    # ones span the whole range: "bounds"
+    r_all = 1.0 - np.abs(rng.normal(0.0, 0.2, 6000))
+    r_central = np.abs(rng.normal(0.0, 0.2, 400))
+    _, lo, hi, kind, _ = section_envelope("retention", r_all, 0.0, 1.0, r_central)
+    assert (lo, hi, kind) == (0.0, 1.0, "bounds")
+
+
+def test_central_cut_draws_only_where_a_central_cut_is_not_ruled_out():
+    from zoning.fitting.summary import CENTRAL_CUT, central_cut_draws, estimate_from_draws
+
+    h, m = _section_draws()
+    names = ("melt_mg_number", "section_h_over_r")
+    flat = np.column_stack([m, h])
+    lower, upper = np.array([0.2, 0.0]), np.array([0.9, 1.0])
+    mask = central_cut_draws(names, flat, lower, upper)
+    assert mask is not None and np.array_equal(mask, h < CENTRAL_CUT)
+    est = estimate_from_draws("melt_mg_number", "1", 0.73, m, 0.2, 0.9, central=m[mask])
+    assert est.lo95 < np.percentile(m, 2.5) and "cut through the crystal's core" in est.note
+    # negative controls: h/R not free; h/R band away from 0; every draw central
+    assert central_cut_draws(names[:1], flat[:, :1], lower[:1], upper[:1]) is None
+    away = np.column_stack([m, np.random.default_rng(6).uniform(0.4, 0.6, m.size)])
+    assert central_cut_draws(names, away, lower, upper) is None
+    near = np.column_stack([m, np.random.default_rng(7).uniform(0.0, 0.05, m.size)])
+    assert central_cut_draws(names, near, lower, upper) is None
+    # Bayes factor of a central cut: posterior share of h/R < 0.1 over its
+    # prior share (0.1 here); below 1/3 (Kass & Raftery 1995) it is ruled out
+    rng = np.random.default_rng(8)
+    for n_central, kept in ((500, False), (800, True)):  # shares 2.5% and 4%
+        hh = np.concatenate([rng.uniform(0.0, CENTRAL_CUT, n_central),
+                             rng.uniform(0.3, 0.9, 20_000 - n_central)])
+        got = central_cut_draws(names, np.column_stack([np.full(hh.size, 0.7), hh]),
+                                lower, upper)
+        assert (got is not None) == kept
+
+
+def test_fitted_bands_are_widened_for_a_central_cut_when_the_section_is_unresolved():
+    """A diffused crystal cut through its core, fitted with h/R free: the h/R
+    band reaches 0, and the parent-melt bands are widened to hold also for the
+    draws with a central cut (their band reaches below that of all draws)."""
+    from zoning.fitting.summary import CENTRAL_CUT
+
+    truth = dict(OL_TRUTH, retention=0.0, diffusion_length_um=20.0)
+    r = _fit(_traverse(n=60, radius=300.0, seed=12, **truth))
+    names = list(r.parameter_names)
+    h = r.samples[:, names.index("section_h_over_r")]
+    m = r.samples[:, names.index("melt_mg_number")]
+    assert r.estimates["section_h_over_r"].lo95 == 0.0
+    e = r.estimates["melt_mg_number"]
+    assert "cut through the crystal's core" in e.note
+    assert "cut through the crystal's core" in r.estimates["melt_mgo_wt"].note
+    # the central cuts need a lower Mg#; the thinned draws show it
+    assert np.median(m[h < CENTRAL_CUT]) < np.median(m[h >= CENTRAL_CUT])
+    assert e.lo95 < np.percentile(m, 2.5) and e.lo95 <= e.best <= e.hi95

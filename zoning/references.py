@@ -338,6 +338,9 @@ _ENTRIES = (
     _ref("kass_raftery_1995", ["Kass, R. E.", "Raftery, A. E."], 1995, "Bayes factors",
          "Journal of the American Statistical Association", "90", "773-795",
          "10.1080/01621459.1995.10476572"),
+    _ref("berger_1990", ["Berger, J. O."], 1990,
+         "Robust Bayesian analysis: sensitivity to the prior",
+         "Journal of Statistical Planning and Inference", "25", "303-328"),
     _ref("wilks_1938", ["Wilks, S. S."], 1938,
          "The large-sample distribution of the likelihood ratio for testing composite "
          "hypotheses", "Annals of Mathematical Statistics", "9", "60-62",
@@ -525,7 +528,8 @@ def _uses_by_kind():
     thermometers = tuple(
         MethodUse("melt temperature (glass MgO thermometer)", th.citation, name)
         for name, th in THERMOMETERS.items() if th.citation not in base_keys)
-    section = added(ol_model.methods(processes=("section",)))
+    section = added(ol_model.methods(processes=("section",)) + fit_methods(
+        "olivine", kd_mean=0.30, kd_sd=0.03, kd_default=True, section_free=True))
     diffusion = {m: added(model.methods(processes=("diffusion",)))
                  for model, m in ((ol_model, "olivine"), (pl_model, "plagioclase"))}
     birge = added(fit_methods("olivine", kd_mean=0.30, kd_sd=0.03, kd_default=True,
