@@ -86,7 +86,10 @@ CAUTIONS = (
     "relaxation from near-equilibrium growth.",
     "Sectioning: a cut that misses the crystal centre shortens and flattens the profile "
     "(the core looks less primitive, zones look wider). Single fits fit the offset h/R with "
-    "the prior of a random cut unless it is fixed; joint fits take every cut through the "
+    "the prior of a random cut unless it is fixed, and widen every band to hold also for a "
+    "cut through the core when the data do not rule one out (an off-centre cut hides a more "
+    "primitive core, so the two readings give different parent melts; fix h/R = 0 when a "
+    "core feature is visible, for the narrower band); joint fits take every cut through the "
     "core unless asked to fit h/R per crystal (section_h_over_r = \"free\"). Measured "
     "on invented crystals (benchmarks/fit.py): an unmodelled cut at h/R = 0.5 "
     "raised r by about 0.1 on average (up to 0.35); with h/R fitted, r lay 0.02-0.08 above "
